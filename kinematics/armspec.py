@@ -1,0 +1,198 @@
+"""Validate an arm description (the parsed TOML mapping) into an :class:`Arm`.
+
+Pure: takes a mapping, returns a frozen model or raises :class:`ArmSpecError` whose
+message names the source, the key and the problem on one line, e.g.
+``arm.toml: joints[1].max: not a number``. Reading the file is the caller's job.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from typing import Any
+
+from kinematics.model import GEOMETRIES, PLANAR, PRISMATIC, REVOLUTE, SCARA, Arm, Joint, Zone
+
+JOINT_KEYS = ("name", "type", "a", "alpha", "d", "offset", "min", "max", "max_speed",
+              "counts_per_unit", "zero", "direction")
+ACCEL_PER_SPEED = 4.0  # default max_accel = 4 x max_speed: full speed in 0.25 s (common practice)
+
+
+class ArmSpecError(ValueError):
+    """An arm description is invalid. ``str()`` is the one-line message."""
+
+    def __init__(self, source: str, key: str, problem: str):
+        self.source, self.key, self.problem = source, key, problem
+        super().__init__(f"{source}: {key}: {problem}")
+
+
+class _Reader:
+    def __init__(self, source: str):
+        self.source = source
+
+    def fail(self, key: str, problem: str) -> ArmSpecError:
+        return ArmSpecError(self.source, key, problem)
+
+    def table(self, data: Mapping[str, Any], key: str) -> Mapping[str, Any]:
+        if key not in data:
+            raise self.fail(key, "missing")
+        value = data[key]
+        if not isinstance(value, Mapping):
+            raise self.fail(key, "must be a table")
+        return value
+
+    def number(self, data: Mapping[str, Any], key: str, where: str, default: float | None = None,
+               ) -> float:
+        full = f"{where}.{key}" if where else key
+        if key not in data:
+            if default is None:
+                raise self.fail(full, "missing")
+            return default
+        value = data[key]
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise self.fail(full, f"not a number ({value!r})")
+        value = float(value)
+        if not math.isfinite(value):
+            raise self.fail(full, f"not a finite number ({value})")
+        return value
+
+    def text(self, data: Mapping[str, Any], key: str, where: str, default: str | None = None) -> str:
+        full = f"{where}.{key}" if where else key
+        if key not in data:
+            if default is None:
+                raise self.fail(full, "missing")
+            return default
+        value = data[key]
+        if not isinstance(value, str) or not value.strip():
+            raise self.fail(full, f"must be a non-empty string ({value!r})")
+        return value
+
+
+def _joint(r: _Reader, data: Any, index: int) -> Joint:
+    where = f"joints[{index}]"
+    if not isinstance(data, Mapping):
+        raise r.fail(where, "must be a table")
+    unknown = [k for k in data if k not in JOINT_KEYS + ("max_accel",)]
+    if unknown:
+        raise r.fail(f"{where}.{unknown[0]}", "unknown key")
+    name = r.text(data, "name", where)
+    jtype = r.text(data, "type", where)
+    if jtype not in (REVOLUTE, PRISMATIC):
+        raise r.fail(f"{where}.type", f"must be 'revolute' or 'prismatic' ({jtype!r})")
+    num = {k: r.number(data, k, where) for k in JOINT_KEYS if k not in ("name", "type")}
+    if num["min"] >= num["max"]:
+        raise r.fail(f"{where}.min", f"must be below max ({num['min']:g} >= {num['max']:g})")
+    if num["max_speed"] <= 0:
+        raise r.fail(f"{where}.max_speed", f"must be > 0 ({num['max_speed']:g})")
+    accel = r.number(data, "max_accel", where, default=ACCEL_PER_SPEED * num["max_speed"])
+    if accel <= 0:
+        raise r.fail(f"{where}.max_accel", f"must be > 0 ({accel:g})")
+    if num["counts_per_unit"] <= 0:
+        raise r.fail(f"{where}.counts_per_unit", f"must be > 0 ({num['counts_per_unit']:g})")
+    if num["direction"] not in (1.0, -1.0):
+        raise r.fail(f"{where}.direction", f"must be 1 or -1 ({num['direction']:g})")
+    scale = math.radians if jtype == REVOLUTE else (lambda v: v)
+    return Joint(
+        name=name, type=jtype, a_mm=num["a"], alpha_rad=math.radians(num["alpha"]),
+        d_mm=num["d"], offset_rad=math.radians(num["offset"]),
+        min=scale(num["min"]), max=scale(num["max"]),
+        max_speed=scale(num["max_speed"]), max_accel=scale(accel),
+        counts_per_unit=num["counts_per_unit"], zero=num["zero"],
+        direction=int(num["direction"]),
+    )
+
+
+def _zone(r: _Reader, data: Any, index: int) -> Zone:
+    where = f"zones[{index}]"
+    if not isinstance(data, Mapping):
+        raise r.fail(where, "must be a table")
+    name = r.text(data, "name", where, default=f"zone {index + 1}")
+    kind = r.text(data, "kind", where)
+    z_min = r.number(data, "z_min", where, default=-math.inf) if "z_min" in data else -math.inf
+    z_max = r.number(data, "z_max", where, default=math.inf) if "z_max" in data else math.inf
+    if z_min >= z_max:
+        raise r.fail(f"{where}.z_min", f"must be below z_max ({z_min:g} >= {z_max:g})")
+    if kind == "box":
+        v = {k: r.number(data, k, where) for k in ("x_min", "x_max", "y_min", "y_max")}
+        for axis in "xy":
+            if v[f"{axis}_min"] >= v[f"{axis}_max"]:
+                raise r.fail(f"{where}.{axis}_min", f"must be below {axis}_max "
+                             f"({v[f'{axis}_min']:g} >= {v[f'{axis}_max']:g})")
+        return Zone(name=name, kind=kind, z_min=z_min, z_max=z_max, **v)
+    if kind == "circle":
+        cx, cy, radius = (r.number(data, k, where) for k in ("cx", "cy", "r"))
+        if radius <= 0:
+            raise r.fail(f"{where}.r", f"must be > 0 ({radius:g})")
+        return Zone(name=name, kind=kind, cx=cx, cy=cy, r=radius, z_min=z_min, z_max=z_max)
+    raise r.fail(f"{where}.kind", f"must be 'box' or 'circle' ({kind!r})")
+
+
+def _check_shape(r: _Reader, geometry: str, joints: tuple[Joint, ...]) -> None:
+    """Refuse any chain that is not the contract's planar or SCARA shape."""
+    expected = {PLANAR: (REVOLUTE, REVOLUTE), SCARA: (REVOLUTE, REVOLUTE, PRISMATIC, REVOLUTE)}
+    types = expected[geometry]
+    if len(joints) != len(types):
+        raise r.fail("joints", f"a {geometry} arm has {len(types)} joints, not {len(joints)}")
+    for i, (joint, want) in enumerate(zip(joints, types)):
+        if joint.type != want:
+            raise r.fail(f"joints[{i}].type", f"a {geometry} arm needs a {want} joint here, "
+                         f"not {joint.type}")
+    for i in (0, 1):
+        if joints[i].a_mm <= 0:
+            raise r.fail(f"joints[{i}].a", f"link length must be > 0 ({joints[i].a_mm:g})")
+    near = lambda value, target: abs(value - target) < 1e-9  # noqa: E731
+    alphas = [0.0, 0.0] if geometry == PLANAR else [0.0, math.pi, 0.0, 0.0]
+    for i, want in enumerate(alphas):
+        alpha = joints[i].alpha_rad
+        if not (near(alpha, want) or (want == math.pi and near(alpha, -math.pi))):
+            raise r.fail(f"joints[{i}].alpha", f"must be {math.degrees(want):g} for a "
+                         f"{geometry} arm ({math.degrees(alpha):g})")
+    if geometry == SCARA:
+        for i in (2, 3):
+            if joints[i].a_mm != 0:
+                raise r.fail(f"joints[{i}].a", f"must be 0 for a scara arm ({joints[i].a_mm:g})")
+
+
+def arm_from_mapping(data: Mapping[str, Any], source: str = "<arm>") -> Arm:
+    """Validate a parsed arm file and build the :class:`Arm`.
+
+    Raises:
+        ArmSpecError: naming the key and the problem.
+    """
+    r = _Reader(source)
+    head = r.table(data, "arm")
+    name = r.text(head, "name", "arm")
+    geometry = r.text(head, "geometry", "arm")
+    if geometry not in GEOMETRIES:
+        raise r.fail("arm.geometry", f"unknown geometry {geometry!r} (planar or scara)")
+    raw_joints = data.get("joints")
+    if raw_joints is None:
+        raise r.fail("joints", "missing")
+    if not isinstance(raw_joints, list):
+        raise r.fail("joints", "must be an array of tables ([[joints]])")
+    joints = tuple(_joint(r, j, i) for i, j in enumerate(raw_joints))
+    _check_shape(r, geometry, joints)
+    raw_zones = data.get("zones", [])
+    if not isinstance(raw_zones, list):
+        raise r.fail("zones", "must be an array of tables ([[zones]])")
+    zones = tuple(_zone(r, z, i) for i, z in enumerate(raw_zones))
+
+    def positive(key: str, default: float, allow_zero: bool = False) -> float:
+        value = r.number(head, key, "arm", default=default)
+        if value < 0 or (value == 0 and not allow_zero):
+            raise r.fail(f"arm.{key}", f"must be {'>= 0' if allow_zero else '> 0'} ({value:g})")
+        return value
+
+    sing_deg = positive("singularity_warn_deg", 5.0, allow_zero=True)
+    if sing_deg >= 90:
+        raise r.fail("arm.singularity_warn_deg", f"must be below 90 ({sing_deg:g})")
+    return Arm(
+        name=name, geometry=geometry, joints=joints, zones=zones,
+        singularity_warn_rad=math.radians(sing_deg),
+        limit_margin_rad=math.radians(positive("limit_margin_deg", 0.5, allow_zero=True)),
+        limit_margin_mm=positive("limit_margin_mm", 0.5, allow_zero=True),
+        tool_speed_max_mm_s=positive("tool_speed_max", 250.0),
+        jog_step_max_mm=positive("jog_step_max", 50.0),
+        link_clearance_mm=positive("link_clearance", 0.0, allow_zero=True),
+        source=source,
+    )

@@ -1,0 +1,181 @@
+"""Closed-form kinematics of the planar two-link (2R) arm. Units: mm and radians.
+
+Angles are the DH thetas (joint value + offset), counter-clockwise positive seen from
+above. Elbow-down has theta2 > 0, elbow-up theta2 < 0 (CONTRACT.md).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+REACH_REL_TOL = 1e-12  # a target this close (relative to the reach) to a boundary is on it
+
+
+def tool_xy_from_thetas(a1_mm: float, a2_mm: float, t1_rad: float, t2_rad: float,
+                        ) -> tuple[float, float]:
+    """Forward kinematics of the 2R arm: the tool point.
+
+    Source: Lynch & Park, *Modern Robotics* (2017), section 4.1 (from memory):
+    x = a1 cos t1 + a2 cos(t1 + t2), y = a1 sin t1 + a2 sin(t1 + t2).
+
+    >>> [round(v, 9) for v in tool_xy_from_thetas(300.0, 200.0, 0.0, math.pi / 2)]
+    [300.0, 200.0]
+    """
+    t12 = t1_rad + t2_rad
+    return (a1_mm * math.cos(t1_rad) + a2_mm * math.cos(t12),
+            a1_mm * math.sin(t1_rad) + a2_mm * math.sin(t12))
+
+
+def reach_tolerance_mm(a1_mm: float, a2_mm: float) -> float:
+    """The band around the reach boundaries that counts as on the boundary: far below
+    1e-9 mm for any bench arm, far above the rounding error of the formulas."""
+    return REACH_REL_TOL * max(1.0, a1_mm + a2_mm)
+
+
+def is_reachable(a1_mm: float, a2_mm: float, x_mm: float, y_mm: float) -> bool:
+    """True when |a1 - a2| <= r <= a1 + a2 (within :func:`reach_tolerance_mm`)."""
+    r = math.hypot(x_mm, y_mm)
+    tol = reach_tolerance_mm(a1_mm, a2_mm)
+    return abs(a1_mm - a2_mm) - tol <= r <= a1_mm + a2_mm + tol
+
+
+def elbow_sin_cos(a1_mm: float, a2_mm: float, r_mm: float) -> tuple[float, float]:
+    """|sin t2| and cos t2 of the elbow for a tool at distance r from the shoulder.
+
+    Law of cosines: cos t2 = (r^2 - a1^2 - a2^2) / (2 a1 a2). The sine is formed from
+    the factored 1 - cos t2 = (a1+a2-r)(a1+a2+r) / (2 a1 a2) and
+    1 + cos t2 = (r-|a1-a2|)(r+|a1-a2|) / (2 a1 a2), which keeps full precision next to
+    the stretched and folded boundaries; both are clamped at 0 so a target on a
+    boundary (within the tolerance) gives sin t2 = 0.
+
+    Source: Spong, Hutchinson & Vidyasagar, *Robot Modeling and Control* (2006),
+    section 5.3 (from memory).
+
+    >>> [round(v, 9) for v in elbow_sin_cos(300.0, 200.0, math.hypot(300.0, 200.0))]
+    [1.0, 0.0]
+    """
+    two_a1a2 = 2.0 * a1_mm * a2_mm
+    one_minus = max(0.0, (a1_mm + a2_mm - r_mm) * (a1_mm + a2_mm + r_mm) / two_a1a2)
+    diff = abs(a1_mm - a2_mm)
+    one_plus = max(0.0, (r_mm - diff) * (r_mm + diff) / two_a1a2)
+    s = math.sqrt(one_minus * one_plus)
+    c = (one_plus - one_minus) / 2.0
+    return min(s, 1.0), max(-1.0, min(1.0, c))
+
+
+def thetas_from_tool_xy(a1_mm: float, a2_mm: float, x_mm: float, y_mm: float,
+                        ) -> list[tuple[float, float]]:
+    """Inverse kinematics of the 2R arm by the law of cosines and atan2.
+
+    Returns the elbow-down solution (t2 > 0) first, then elbow-up (t2 < 0); a single
+    solution when the target is on a reach boundary (the branches coincide), and an
+    empty list when it is out of reach. At the origin with equal links the shoulder
+    is arbitrary; t1 = 0 is returned.
+
+    The shoulder is t1 = atan2(y, x) - atan2(a2 sin t2, a1 + a2 cos t2) with the
+    *signed* sin t2 of each branch: on elbow-up (t2 < 0) the correction angle is
+    negative, so it is added. Forming it from |sin t2| on both branches is the classic
+    mistake: the elbow-up shoulder then comes out wrong.
+
+    Source: Lynch & Park, *Modern Robotics* (2017), section 6.1; Spong et al. (2006),
+    section 5.3 (both from memory).
+
+    >>> [tuple(round(math.degrees(t), 6) for t in sol)
+    ...  for sol in thetas_from_tool_xy(300.0, 200.0, 300.0, 200.0)]
+    [(0.0, 90.0), (67.380135, -90.0)]
+    """
+    r = math.hypot(x_mm, y_mm)
+    tol = reach_tolerance_mm(a1_mm, a2_mm)
+    if r > a1_mm + a2_mm + tol or r < abs(a1_mm - a2_mm) - tol:
+        return []
+    s2, c2 = elbow_sin_cos(a1_mm, a2_mm, r)
+    gamma = math.atan2(y_mm, x_mm)
+    on_boundary = (r >= a1_mm + a2_mm - tol) or (r <= abs(a1_mm - a2_mm) + tol)
+    if on_boundary:
+        t2 = 0.0 if c2 > 0 else math.pi
+        return [(gamma - math.atan2(0.0, a1_mm + a2_mm * math.cos(t2)), t2)]
+    solutions = []
+    for sign in (1.0, -1.0):
+        t2 = math.atan2(sign * s2, c2)
+        t1 = gamma - math.atan2(a2_mm * sign * s2, a1_mm + a2_mm * c2)
+        solutions.append((t1, t2))
+    return solutions
+
+
+def thetas_from_tool_xy_batch(a1_mm: float, a2_mm: float, x_mm: np.ndarray, y_mm: np.ndarray,
+                              ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Vectorised :func:`thetas_from_tool_xy` over arrays of targets.
+
+    Returns (t1, t2) of shape (2, N) each (row 0 elbow-down, row 1 elbow-up; on a
+    boundary both rows hold the one solution), ``reachable`` (N,) and
+    ``on_boundary`` (N,). Unreachable entries hold NaN.
+    """
+    x = np.asarray(x_mm, dtype=float)
+    y = np.asarray(y_mm, dtype=float)
+    r = np.hypot(x, y)
+    tol = reach_tolerance_mm(a1_mm, a2_mm)
+    top, diff = a1_mm + a2_mm, abs(a1_mm - a2_mm)
+    reachable = (r <= top + tol) & (r >= diff - tol)
+    two_a1a2 = 2.0 * a1_mm * a2_mm
+    one_minus = np.maximum(0.0, (top - r) * (top + r) / two_a1a2)
+    one_plus = np.maximum(0.0, (r - diff) * (r + diff) / two_a1a2)
+    on_boundary = reachable & ((r >= top - tol) | (r <= diff + tol))
+    s2 = np.where(on_boundary, 0.0, np.sqrt(one_minus * one_plus))
+    c2 = np.clip((one_plus - one_minus) * 0.5, -1.0, 1.0)
+    c2 = np.where(on_boundary, np.where(c2 > 0, 1.0, -1.0), c2)
+    gamma = np.arctan2(y, x)
+    t2_down = np.arctan2(s2, c2)
+    beta = np.arctan2(a2_mm * s2, a1_mm + a2_mm * c2)
+    t1 = np.stack([gamma - beta, gamma + beta])
+    t2 = np.stack([t2_down, -t2_down])
+    t2[1] = np.where(on_boundary, t2_down, t2[1])
+    t1[1] = np.where(on_boundary, t1[0], t1[1])
+    nan = ~reachable
+    t1[:, nan] = np.nan
+    t2[:, nan] = np.nan
+    return t1, t2, reachable, on_boundary
+
+
+def jacobian(a1_mm: float, a2_mm: float, t1_rad: float, t2_rad: float) -> np.ndarray:
+    """The analytic 2x2 Jacobian d(x, y)/d(t1, t2), mm per radian.
+
+    Source: Lynch & Park (2017), example 5.1 (from memory). Its determinant is
+    a1 a2 sin t2 (zero when stretched or folded).
+
+    >>> jacobian(300.0, 200.0, 0.0, math.pi / 2).round(9).tolist()
+    [[-200.0, -200.0], [300.0, 0.0]]
+    """
+    s1, c1 = math.sin(t1_rad), math.cos(t1_rad)
+    s12, c12 = math.sin(t1_rad + t2_rad), math.cos(t1_rad + t2_rad)
+    return np.array([[-a1_mm * s1 - a2_mm * s12, -a2_mm * s12],
+                     [a1_mm * c1 + a2_mm * c12, a2_mm * c12]])
+
+
+def manipulability(a1_mm: float, a2_mm: float, t2_rad: float) -> float:
+    """Yoshikawa's measure sqrt(det(J J^T)) = |det J| = a1 a2 |sin t2| (mm^2).
+
+    Source: Yoshikawa, "Manipulability of robotic mechanisms", IJRR 4(2), 1985
+    (from memory).
+
+    >>> manipulability(300.0, 200.0, math.pi / 2)
+    60000.0
+    """
+    return a1_mm * a2_mm * abs(math.sin(t2_rad))
+
+
+def singular_distance_rad(t2_rad: float) -> float:
+    """How far the elbow is from the nearest singular pose (stretched t2 = 0 or folded
+    t2 = +/-pi), radians.
+
+    >>> round(math.degrees(singular_distance_rad(math.radians(-175.0))), 9)
+    5.0
+    """
+    t = abs(math.remainder(t2_rad, 2.0 * math.pi))
+    return min(t, math.pi - t)
+
+
+def is_singular(t2_rad: float, tol_rad: float = 1e-9) -> bool:
+    """True when the elbow is stretched or folded (within ``tol_rad``)."""
+    return singular_distance_rad(t2_rad) <= tol_rad
