@@ -1,0 +1,92 @@
+"""The ``benchjog`` command line: argparse subcommands, one ``cmd_<name>`` each.
+
+Subcommands live in ``console/cmd_*.py`` modules; each has ``register(subparsers)``
+that adds its parsers with ``set_defaults(func=cmd_<name>)``. ``main`` turns the known
+errors into one stderr line and an exit code (console/exit_codes.py), never a traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+from importlib import metadata
+
+from console import exit_codes
+from console.errors import known_error_code
+
+COMMAND_MODULES = (
+    "console.cmd_kinematics",
+    "console.cmd_drivers",
+    "console.cmd_motion",
+    "console.cmd_program",
+)
+
+
+class _Parser(argparse.ArgumentParser):
+    """Usage errors as one line on stderr, exit 2."""
+
+    def error(self, message: str):  # type: ignore[override]
+        self.exit(exit_codes.BAD_INPUT, f"benchjog: {message} (see benchjog --help)\n")
+
+
+def version() -> str:
+    try:
+        return metadata.version("benchjog")
+    except metadata.PackageNotFoundError:
+        return "0+unknown"
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="benchjog", description=(
+        "Jog, teach and run a small bench robot arm (planar 2R or SCARA). With no "
+        "command: the console on the built-in simulated arm."))
+    parser.add_argument("--version", action="version", version=f"benchjog {version()}")
+    parser.add_argument("--arm", metavar="FILE", help="arm file (TOML) or built-in arm name")
+    parser.add_argument("--port", metavar="URL", help="serial port or pyserial URL of the controller")
+    parser.add_argument("--baud", type=int, default=115200, help="baud rate (default 115200)")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for name in COMMAND_MODULES:
+        try:
+            module = importlib.import_module(name)
+        except ModuleNotFoundError as exc:
+            if exc.name != name:
+                raise
+            continue  # a command family not built yet
+        module.register(sub)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    func = getattr(args, "func", None)
+    try:
+        if func is None:
+            return _console_or_overview(parser, args)
+        return int(func(args))
+    except KeyboardInterrupt:
+        print("benchjog: interrupted", file=sys.stderr)
+        return exit_codes.REFUSED
+    except Exception as exc:  # noqa: BLE001 - known errors become one line
+        code = known_error_code(exc)
+        if code is None:
+            raise
+        print(f"benchjog: {exc}", file=sys.stderr)
+        return code
+
+
+def _console_or_overview(parser: argparse.ArgumentParser, args: argparse.Namespace) -> int:
+    try:
+        from console.app import run_console
+    except ModuleNotFoundError as exc:
+        if exc.name != "console.app":
+            raise
+        parser.print_help()
+        return exit_codes.OK
+    return run_console(args)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

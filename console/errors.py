@@ -1,0 +1,34 @@
+"""Which exceptions are a user's mistake or a link failure, and their exit codes.
+
+Every layer raises its own error types; this is the one place that maps them to the
+exit codes of CONTRACT.md, so ``main`` can print one line instead of a traceback.
+"""
+
+from __future__ import annotations
+
+from console import exit_codes
+from kinematics.armspec import ArmSpecError
+from kinematics.solve import TargetError
+
+
+class UsageError(ValueError):
+    """Bad input found after argument parsing (exit 2)."""
+
+
+class Refused(RuntimeError):
+    """A refusal or cancellation that ends a command with exit 1."""
+
+
+_CODES: list[tuple[type[BaseException], int]] = [
+    (ArmSpecError, exit_codes.BAD_INPUT),
+    (TargetError, exit_codes.BAD_INPUT),
+    (UsageError, exit_codes.BAD_INPUT),
+    (Refused, exit_codes.REFUSED),
+]
+
+
+def known_error_code(exc: BaseException) -> int | None:
+    for exc_type, code in _CODES:
+        if isinstance(exc, exc_type):
+            return code
+    return None
