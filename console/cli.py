@@ -78,6 +78,13 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 def _console_or_overview(parser: argparse.ArgumentParser, args: argparse.Namespace) -> int:
+    """The console when there is a terminal to draw it on; otherwise (a script, CI, a
+    pipe) the command overview."""
+    if not (sys.stdin.isatty() and sys.stdout.isatty()):
+        parser.print_help()
+        print("benchjog: no terminal here, so the console did not open; the commands are "
+              "listed above", file=sys.stderr)
+        return exit_codes.OK
     try:
         from console.app import run_console
     except ModuleNotFoundError as exc:

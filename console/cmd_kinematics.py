@@ -1,0 +1,138 @@
+"""``benchjog solve`` and ``benchjog fk``: kinematics on the command line."""
+
+from __future__ import annotations
+
+import argparse
+import math
+
+from rich.console import Console
+from rich.table import Table
+
+from console import exit_codes
+from console.armfile import load_arm
+from console.cli_common import add_arm_option, parse_number, print_json, round_out
+from console.errors import UsageError
+from kinematics.limits import wrap_pi
+from kinematics.model import Arm
+from kinematics.solve import IKResult, joints_from_tool, pose_warnings, tool_from_joints
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    solve = sub.add_parser("solve", help="every IK branch for a tool target",
+                           description="Every IK branch for a tool target (mm, degrees), with "
+                           "limit, reach and singularity findings.")
+    solve.add_argument("coords", nargs="+", metavar="X Y [Z [ROLL]]",
+                       help="tool target: mm, and degrees for ROLL")
+    add_arm_option(solve)
+    solve.add_argument("--json", action="store_true", help="machine-readable output")
+    solve.set_defaults(func=cmd_solve)
+
+    fk = sub.add_parser("fk", help="the tool pose for joint values",
+                        description="The tool pose for joint values (degrees, mm for the quill).")
+    fk.add_argument("values", nargs="+", metavar="J1 J2 [J3 [J4]]", help="joint values")
+    add_arm_option(fk)
+    fk.add_argument("--json", action="store_true", help="machine-readable output")
+    fk.set_defaults(func=cmd_fk)
+
+
+def target_from_args(arm: Arm, coords: list[str]) -> tuple[float, ...]:
+    """Command-line target (mm, deg) to an internal one (mm, rad). A SCARA target may
+    leave out Z (the home height) and ROLL (0 degrees)."""
+    names = ("X", "Y", "Z", "ROLL") if arm.is_scara else ("X", "Y")
+    if not 2 <= len(coords) <= len(names):
+        raise UsageError(f"a {arm.geometry} arm takes {' '.join(names)}"
+                         f"{' (Z and ROLL optional)' if arm.is_scara else ''}, "
+                         f"got {len(coords)} values")
+    values = [parse_number(text, name) for text, name in zip(coords, names)]
+    if arm.is_scara:
+        home = tool_from_joints(arm, arm.home_joints)
+        if len(values) < 3:
+            values.append(home[2])
+        values.append(math.radians(values.pop(3)) if len(values) == 4 else 0.0)
+    return tuple(values)
+
+
+def display_target(arm: Arm, target: tuple[float, ...]) -> list[float]:
+    shown = list(target)
+    if arm.is_scara:
+        shown[3] = math.degrees(shown[3])
+    return [round_out(v) for v in shown]
+
+
+def display_joints(arm: Arm, values: tuple[float, ...]) -> list[float]:
+    return [round_out(j.to_display(v)) for j, v in zip(arm.joints, values)]
+
+
+def solve_to_dict(arm: Arm, result: IKResult) -> dict:
+    """The ``solve --json`` document of CONTRACT.md."""
+    return {
+        "target": display_target(arm, result.target),
+        "reachable": result.reachable,
+        "solutions": [{"branch": s.branch.value, "joints": display_joints(arm, s.joints),
+                       "usable": s.usable, "problems": list(s.problems)}
+                      for s in result.solutions],
+        "warnings": list(result.warnings),
+    }
+
+
+def cmd_solve(args: argparse.Namespace) -> int:
+    arm = load_arm(args.arm)
+    result = joints_from_tool(arm, target_from_args(arm, args.coords))
+    if args.json:
+        print_json(solve_to_dict(arm, result))
+    else:
+        _print_solve(arm, result)
+    return exit_codes.OK if result.usable else exit_codes.REFUSED
+
+
+def _print_solve(arm: Arm, result: IKResult) -> None:
+    out = Console(highlight=False)
+    names = ["x", "y", "z", "roll"][: len(result.target)]
+    units = ["mm", "mm", "mm", "deg"]
+    target = ", ".join(f"{n} {v:.3f} {u}" for n, v, u in
+                       zip(names, display_target(arm, result.target), units))
+    out.print(f"[bold]{arm.name}[/bold] ({arm.geometry}) target: {target}")
+    if result.solutions:
+        table = Table(show_header=True, header_style="bold")
+        table.add_column("branch")
+        for joint in arm.joints:
+            table.add_column(f"{joint.name} ({joint.unit})", justify="right")
+        table.add_column("usable")
+        for sol in result.solutions:
+            table.add_row(sol.branch.value, *(f"{v:.3f}" for v in display_joints(arm, sol.joints)),
+                          "yes" if sol.usable else "[red]no[/red]")
+        out.print(table)
+        for sol in result.solutions:
+            for problem in sol.problems:
+                out.print(f"[red]{sol.branch.value}:[/red] {problem}")
+    for warning in result.warnings:
+        out.print(f"[yellow]warning:[/yellow] {warning}")
+
+
+def cmd_fk(args: argparse.Namespace) -> int:
+    arm = load_arm(args.arm)
+    names = [j.name for j in arm.joints]
+    least = 2
+    if not least <= len(args.values) <= arm.n_joints:
+        raise UsageError(f"a {arm.geometry} arm takes {arm.n_joints} joint values "
+                         f"({' '.join(names)}), got {len(args.values)}")
+    shown = [parse_number(text, name) for text, name in zip(args.values, names)]
+    values = [j.from_display(v) for j, v in zip(arm.joints, shown)]
+    values += list(arm.home_joints[len(values):])  # SCARA: quill and roll default to home
+    values = tuple(values)
+    tool = list(tool_from_joints(arm, values))
+    tool[-1] = math.degrees(wrap_pi(tool[-1]))
+    warnings = pose_warnings(arm, values)
+    if args.json:
+        print_json({"joints": display_joints(arm, values), "tool": [round_out(v) for v in tool],
+                    "warnings": warnings})
+        return exit_codes.OK
+    out = Console(highlight=False)
+    joints = ", ".join(f"{j.name} {j.to_display(v):.3f} {j.unit}" for j, v in zip(arm.joints, values))
+    labels = ("x", "y", "z", "roll") if arm.is_scara else ("x", "y", "heading")
+    units = ("mm", "mm", "mm", "deg") if arm.is_scara else ("mm", "mm", "deg")
+    out.print(f"[bold]{arm.name}[/bold] joints: {joints}")
+    out.print("tool: " + ", ".join(f"{n} {v:.3f} {u}" for n, v, u in zip(labels, tool, units)))
+    for warning in warnings:
+        out.print(f"[yellow]warning:[/yellow] {warning}")
+    return exit_codes.OK
