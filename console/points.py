@@ -1,0 +1,547 @@
+"""Taught points and user frames, and the points file (TOML) that holds them.
+
+A taught point is the tool pose the arm was at when it was taught, expressed in a
+frame ("base" or a user frame's name), together with the joint values, their IK
+branch, the time (ISO 8601, UTC) and an optional note. Motion goes to the point's
+Cartesian values in its frame on its branch, so a point taught in a user frame moves
+with the frame when the frame is taught again.
+
+In memory: mm and radians. In the file: mm and degrees (CONTRACT.md).
+
+The points file::
+
+    [file]
+    kind = "benchjog-points"
+    version = 1
+    arm = "planar-bench"               # the arm the points were taught on
+
+    [[frames]]                         # zero or more user frames
+    name = "fixture"
+    origin = [-40.0, 250.0]            # mm, base frame
+    angle_deg = 0.0                    # direction of the frame's +x axis, CCW from base x
+    z_mm = 0.0                         # height of the origin (SCARA)
+    taught = "2026-12-01T09:30:00Z"
+
+    [[points]]
+    name = "pick"
+    frame = "fixture"                  # "base" or a frame above
+    cartesian = [20.0, 10.0]           # in the frame: x, y mm (SCARA: x, y, z mm, roll deg)
+    joints = [58.31, 74.52]            # deg (mm for the quill), as taught
+    branch = "elbow-down"              # or "elbow-up"
+    taught = "2026-12-01T09:31:12Z"
+    note = "tray slot 1"               # optional
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+from console.safe_files import FileError, FileLock, read_text, toml_text, write_atomic
+from kinematics.frames import FrameError, UserFrame, base_from_frame, frame_from_base, \
+    frame_from_two_points
+from kinematics.model import Arm, Branch
+from kinematics.solve import joints_from_tool, tool_from_joints
+
+FILE_KIND = "benchjog-points"
+FILE_VERSION = 1
+BASE = "base"
+CONSISTENCY_MM = 0.05  # stored joints and Cartesian values further apart than this: a warning
+POINT_KEYS = ("name", "frame", "cartesian", "joints", "branch", "taught", "note")
+FRAME_KEYS = ("name", "origin", "angle_deg", "z_mm", "taught")
+
+
+class PointError(ValueError):
+    """An edit that cannot be made (unknown or duplicate name, frame in use...)."""
+
+
+def utc_now_iso() -> str:
+    """Now, ISO 8601 UTC to the second: ``2026-12-01T09:31:12Z``."""
+    return datetime.now(timezone.utc).isoformat(timespec="seconds").replace("+00:00", "Z")
+
+
+def branch_of(arm: Arm, joints: Sequence[float]) -> Branch:
+    """The IK branch of a joint pose: elbow-down when the elbow's DH theta has
+    sin > 0, elbow-up when sin < 0; a stretched or folded elbow (sin = 0) counts as
+    elbow-down when theta >= 0 (the convention of kinematics.solve)."""
+    t2 = joints[1] + arm.joints[1].offset_rad
+    s = math.sin(t2)
+    if abs(s) < 1e-12:
+        return Branch.ELBOW_DOWN if math.remainder(t2, 2 * math.pi) >= 0 else Branch.ELBOW_UP
+    return Branch.ELBOW_DOWN if s > 0 else Branch.ELBOW_UP
+
+
+def target_from_pose(arm: Arm, pose: Sequence[float]) -> tuple[float, ...]:
+    """The target part of a tool pose: planar (x, y) (the heading follows from the
+    joints), SCARA (x, y, z, roll)."""
+    return tuple(pose[:4]) if arm.is_scara else tuple(pose[:2])
+
+
+def check_name(name: str, what: str = "point") -> str:
+    name = name.strip() if isinstance(name, str) else ""
+    if not name:
+        raise PointError(f"a {what} needs a non-empty name")
+    if any(ord(ch) < 0x20 or ord(ch) == 0x7F for ch in name):
+        raise PointError(f"{what} name {name!r}: no control characters")
+    if len(name) > 64:
+        raise PointError(f"{what} name {name[:20]!r}...: at most 64 characters")
+    return name
+
+
+@dataclass(frozen=True)
+class TaughtPoint:
+    """A taught point. ``cartesian`` is in ``frame`` (mm, rad); ``joints`` (rad, mm)
+    are the values it was taught (or last recomputed) at, on ``branch``."""
+
+    name: str
+    cartesian: tuple[float, ...]
+    joints: tuple[float, ...]
+    branch: Branch
+    frame: str = BASE
+    taught: str = ""
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class FrameChange:
+    """What teaching a frame again did to the points taught in it."""
+
+    frame: UserFrame
+    moved: tuple[str, ...]
+    unreachable: tuple[tuple[str, str], ...]  # (point name, reason)
+
+    def lines(self) -> list[str]:
+        out = [f"frame {self.frame.name}: {len(self.moved)} point(s) moved with it"]
+        out += [f"point {name} is now unreachable: {why} (kept, frame coordinates unchanged)"
+                for name, why in self.unreachable]
+        return out
+
+
+@dataclass
+class PointBook:
+    """The points and user frames of one points file.
+
+    ``load`` reads for checking; ``open`` reads (or starts an empty book) and holds
+    the file's lock until ``close``, for editing. Every edit changes memory only;
+    ``save`` writes the file atomically with one backup.
+    """
+
+    arm: Arm
+    points: list[TaughtPoint] = field(default_factory=list)
+    frames: dict[str, UserFrame] = field(default_factory=dict)
+    frame_taught: dict[str, str] = field(default_factory=dict)
+    path: Path | None = None
+    warnings: list[str] = field(default_factory=list)
+    _lock: FileLock | None = field(default=None, repr=False)
+
+    # --- files ---------------------------------------------------------------------
+
+    @classmethod
+    def load(cls, path: str | Path, arm: Arm) -> "PointBook":
+        """Read and validate a points file (no lock).
+
+        Raises:
+            FileError: one line naming the file, the key and the problem.
+        """
+        path = Path(path)
+        book = book_from_mapping(_parse(path), arm, str(path))
+        book.path = path
+        return book
+
+    @classmethod
+    def open(cls, path: str | Path, arm: Arm) -> "PointBook":
+        """The book for editing: takes the file's lock (FileLocked if another console
+        holds it), then reads the file, or starts an empty book when there is none."""
+        path = Path(path)
+        lock = FileLock(path).acquire()
+        try:
+            book = cls.load(path, arm) if path.exists() else cls(arm, path=path)
+        except BaseException:
+            lock.release()
+            raise
+        book._lock = lock
+        return book
+
+    def close(self) -> None:
+        if self._lock is not None:
+            self._lock.release()
+            self._lock = None
+
+    def __enter__(self) -> "PointBook":
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def save(self, path: str | Path | None = None) -> Path:
+        """Write the book atomically (temp file, fsync, ``.bak`` of the old one,
+        ``os.replace``). Without the book's own lock (``open``) the target's lock is
+        taken for the write, so a file another console holds is never written."""
+        target = Path(path) if path is not None else self.path
+        if target is None:
+            raise PointError("the book has no file yet: give a path")
+        text = self.to_text()
+        if self._lock is not None and target == self.path:
+            write_atomic(target, text)
+        else:
+            with FileLock(target):
+                write_atomic(target, text)
+        return target
+
+    def to_text(self) -> str:
+        return toml_text(self.to_mapping(), header=(
+            "benchjog points file: taught points and user frames (mm and degrees).\n"
+            "Written by benchjog; edit with care: motion goes to cartesian, in frame,\n"
+            "on branch."))
+
+    def to_mapping(self) -> dict[str, Any]:
+        doc: dict[str, Any] = {"file": {"kind": FILE_KIND, "version": FILE_VERSION,
+                                        "arm": self.arm.name}}
+        doc["frames"] = [{
+            "name": f.name, "origin": [_r(f.origin_x), _r(f.origin_y)],
+            "angle_deg": _r(math.degrees(f.angle_rad)), "z_mm": _r(f.z_mm),
+            "taught": self.frame_taught.get(f.name) or None,
+        } for f in self.frames.values()]
+        doc["points"] = [{
+            "name": p.name, "frame": p.frame,
+            "cartesian": [_r(v) for v in _display_cartesian(self.arm, p.cartesian)],
+            "joints": [_r(j.to_display(v)) for j, v in zip(self.arm.joints, p.joints)],
+            "branch": p.branch.value, "taught": p.taught or None, "note": p.note or None,
+        } for p in self.points]
+        return doc
+
+    # --- lookups -------------------------------------------------------------------
+
+    @property
+    def names(self) -> list[str]:
+        return [p.name for p in self.points]
+
+    def has(self, name: str) -> bool:
+        return any(p.name == name for p in self.points)
+
+    def point(self, name: str) -> TaughtPoint:
+        for p in self.points:
+            if p.name == name:
+                return p
+        raise PointError(f"no point named {name!r}" + (
+            f" (points: {', '.join(self.names)})" if self.points else " (the book is empty)"))
+
+    def frame(self, name: str) -> UserFrame | None:
+        """The user frame of that name; None for "base"."""
+        if name == BASE:
+            return None
+        if name not in self.frames:
+            raise PointError(f"no frame named {name!r} (frames: "
+                             f"{', '.join([BASE, *self.frames]) })")
+        return self.frames[name]
+
+    def base_target(self, point: TaughtPoint | str) -> tuple[float, ...]:
+        """The point's target in the base frame (mm, rad), what motion goes to."""
+        if isinstance(point, str):
+            point = self.point(point)
+        frame = self.frame(point.frame)
+        return tuple(point.cartesian) if frame is None else base_from_frame(frame, point.cartesian)
+
+    def cartesian_in(self, frame_name: str, joints: Sequence[float]) -> tuple[float, ...]:
+        """The tool target of a joint pose, expressed in a frame."""
+        base = target_from_pose(self.arm, tool_from_joints(self.arm, joints))
+        frame = self.frame(frame_name)
+        return base if frame is None else frame_from_base(frame, base)
+
+    # --- edits ---------------------------------------------------------------------
+
+    def teach(self, name: str, joints: Sequence[float], *, frame: str = BASE, note: str = "",
+              taught: str | None = None) -> TaughtPoint:
+        """A new point at the pose of ``joints`` (rad, mm), expressed in ``frame``."""
+        name = check_name(name)
+        if self.has(name):
+            raise PointError(f"a point named {name!r} exists already (update or rename it)")
+        point = self._make(name, joints, frame, note, taught)
+        self.points.append(point)
+        return point
+
+    def teach_current(self, interlock: Any, name: str, *, frame: str = BASE,
+                      note: str = "") -> TaughtPoint:
+        """Teach the arm's current pose (``interlock.state().joints``)."""
+        return self.teach(name, interlock.state().joints, frame=frame, note=note)
+
+    def update(self, name: str, joints: Sequence[float], *, frame: str | None = None,
+               note: str | None = None) -> TaughtPoint:
+        """Teach an existing point again at ``joints`` (keeps its name, and its frame
+        and note unless given)."""
+        old = self.point(name)
+        new = self._make(old.name, joints, old.frame if frame is None else frame,
+                         old.note if note is None else note, None)
+        self.points[self._index(name)] = new
+        return new
+
+    def rename(self, old: str, new: str) -> TaughtPoint:
+        new = check_name(new)
+        point = self.point(old)
+        if new != old and self.has(new):
+            raise PointError(f"a point named {new!r} exists already")
+        renamed = replace(point, name=new)
+        self.points[self._index(old)] = renamed
+        return renamed
+
+    def set_note(self, name: str, note: str) -> TaughtPoint:
+        point = replace(self.point(name), note=note)
+        self.points[self._index(name)] = point
+        return point
+
+    def delete(self, name: str) -> TaughtPoint:
+        point = self.point(name)
+        del self.points[self._index(name)]
+        return point
+
+    def define_frame(self, name: str, origin_joints: Sequence[float],
+                     x_joints: Sequence[float]) -> FrameChange:
+        """Define (or teach again) a user frame from two taught poses: the origin and
+        a point on its +x axis, both as joint values; its height is the origin's z."""
+        name = check_name(name, "frame")
+        if name == BASE:
+            raise PointError("'base' is the arm's own frame; choose another name")
+        origin = tool_from_joints(self.arm, origin_joints)
+        x_point = tool_from_joints(self.arm, x_joints)
+        z = origin[2] if self.arm.is_scara else 0.0
+        try:
+            frame = frame_from_two_points(name, origin, x_point, z)
+        except FrameError as exc:
+            raise PointError(str(exc)) from None
+        return self.set_frame(frame)
+
+    def set_frame(self, frame: UserFrame, taught: str | None = None) -> FrameChange:
+        """Put ``frame`` in the book. When it replaces a frame of the same name, the
+        points taught in it keep their frame coordinates; their joints are recomputed
+        by IK on their branch. A point that becomes unreachable there is kept and
+        reported (its joints are left as they were)."""
+        self.frames[frame.name] = frame
+        self.frame_taught[frame.name] = taught or utc_now_iso()
+        moved, unreachable = [], []
+        for i, point in enumerate(self.points):
+            if point.frame != frame.name:
+                continue
+            base = base_from_frame(frame, point.cartesian)
+            result = joints_from_tool(self.arm, base)
+            sol = result.solution(point.branch) if result.reachable else None
+            if sol is None:
+                why = result.warnings[0] if result.warnings else f"no {point.branch} solution"
+                unreachable.append((point.name, why))
+                continue
+            if not sol.usable:
+                unreachable.append((point.name, "; ".join(sol.problems)))
+                continue
+            self.points[i] = replace(point, joints=sol.joints)
+            moved.append(point.name)
+        return FrameChange(frame, tuple(moved), tuple(unreachable))
+
+    def delete_frame(self, name: str) -> UserFrame:
+        frame = self.frame(name)
+        if frame is None:
+            raise PointError("the base frame cannot be deleted")
+        users = [p.name for p in self.points if p.frame == name]
+        if users:
+            raise PointError(f"frame {name!r} holds {len(users)} point(s) ({', '.join(users)}): "
+                             "delete or re-teach them first")
+        del self.frames[name]
+        self.frame_taught.pop(name, None)
+        return frame
+
+    def _index(self, name: str) -> int:
+        return self.names.index(name)
+
+    def _make(self, name: str, joints: Sequence[float], frame: str, note: str,
+              taught: str | None) -> TaughtPoint:
+        self.frame(frame)  # raises for an unknown frame
+        joints = tuple(float(v) for v in joints)
+        if len(joints) != self.arm.n_joints or not all(math.isfinite(v) for v in joints):
+            raise PointError(f"a {self.arm.geometry} arm has {self.arm.n_joints} finite "
+                             f"joint values, got {joints}")
+        return TaughtPoint(name, self.cartesian_in(frame, joints), joints,
+                           branch_of(self.arm, joints), frame, taught or utc_now_iso(),
+                           note.strip() if note else "")
+
+
+def _r(value: float, digits: int = 6) -> float:
+    value = round(value, digits)
+    return 0.0 if value == 0 else value
+
+
+def _display_cartesian(arm: Arm, values: Sequence[float]) -> list[float]:
+    out = list(values)
+    if arm.is_scara:
+        out[3] = math.degrees(out[3])
+    return out
+
+
+# --- reading ---------------------------------------------------------------------------
+
+def _parse(path: Path) -> Mapping[str, Any]:
+    text = read_text(path)
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise FileError(str(path), "toml", str(exc).splitlines()[0]) from None
+
+
+class _Reader:
+    def __init__(self, source: str):
+        self.source = source
+
+    def fail(self, key: str, problem: str) -> FileError:
+        return FileError(self.source, key, problem)
+
+    def text(self, data: Mapping[str, Any], key: str, where: str, *, required: bool = True,
+             default: str = "") -> str:
+        if key not in data:
+            if required:
+                raise self.fail(f"{where}: {key}", "missing")
+            return default
+        value = data[key]
+        if not isinstance(value, str):
+            raise self.fail(f"{where}: {key}", f"must be a string ({value!r})")
+        return value
+
+    def number(self, data: Mapping[str, Any], key: str, where: str,
+               default: float | None = None) -> float:
+        if key not in data:
+            if default is None:
+                raise self.fail(f"{where}: {key}", "missing")
+            return default
+        return self.as_number(data[key], f"{where}: {key}")
+
+    def as_number(self, value: Any, key: str) -> float:
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise self.fail(key, f"not a number ({value!r})")
+        if not math.isfinite(value):
+            raise self.fail(key, f"not a finite number ({value})")
+        return float(value)
+
+    def numbers(self, data: Mapping[str, Any], key: str, where: str, count: int,
+                what: str) -> list[float]:
+        if key not in data:
+            raise self.fail(f"{where}: {key}", "missing")
+        value = data[key]
+        if not isinstance(value, list) or len(value) != count:
+            raise self.fail(f"{where}: {key}", f"must be {count} numbers ({what})")
+        return [self.as_number(v, f"{where}: {key}[{i}]") for i, v in enumerate(value)]
+
+    def timestamp(self, data: Mapping[str, Any], where: str) -> str:
+        stamp = self.text(data, "taught", where, required=False)
+        if stamp:
+            try:
+                datetime.fromisoformat(stamp)
+            except ValueError:
+                raise self.fail(f"{where}: taught", f"not an ISO 8601 time ({stamp!r})") from None
+        return stamp
+
+    def unknown(self, data: Mapping[str, Any], allowed: Iterable[str], where: str) -> None:
+        extra = [k for k in data if k not in allowed]
+        if extra:
+            raise self.fail(f"{where}: {extra[0]}", "unknown key")
+
+    def table_list(self, data: Mapping[str, Any], key: str) -> list[Mapping[str, Any]]:
+        value = data.get(key, [])
+        if not isinstance(value, list) or not all(isinstance(v, Mapping) for v in value):
+            raise self.fail(key, f"must be an array of tables ([[{key}]])")
+        return value
+
+
+def book_from_mapping(data: Mapping[str, Any], arm: Arm, source: str = "<points>") -> PointBook:
+    """Validate a parsed points file into a :class:`PointBook`.
+
+    Raises:
+        FileError: naming the file, the key (``point 'pick': joints``) and the problem.
+    """
+    r = _Reader(source)
+    head = data.get("file")
+    if not isinstance(head, Mapping):
+        raise r.fail("file", "missing table [file] (is this a points file?)")
+    r.unknown(data, ("file", "frames", "points"), "top level")
+    r.unknown(head, ("kind", "version", "arm"), "file")
+    if head.get("kind") != FILE_KIND:
+        raise r.fail("file: kind", f"must be {FILE_KIND!r} ({head.get('kind')!r})")
+    version = head.get("version")
+    if version != FILE_VERSION:
+        raise r.fail("file: version", f"version {version!r} is not supported (only {FILE_VERSION})")
+    book = PointBook(arm)
+    taught_on = r.text(head, "arm", "file", required=False)
+    if taught_on and taught_on != arm.name:
+        book.warnings.append(f"{source}: points taught on arm {taught_on!r}, used with {arm.name!r}")
+
+    for i, raw in enumerate(r.table_list(data, "frames")):
+        where = f"frame {i + 1}"
+        name = r.text(raw, "name", where)
+        where = f"frame {name!r}"
+        r.unknown(raw, FRAME_KEYS, where)
+        try:
+            check_name(name, "frame")
+        except PointError as exc:
+            raise r.fail(f"{where}: name", str(exc)) from None
+        if name == BASE or name in book.frames:
+            raise r.fail(f"{where}: name", "reserved" if name == BASE else "duplicate frame name")
+        ox, oy = r.numbers(raw, "origin", where, 2, "x, y mm")
+        angle = math.radians(r.number(raw, "angle_deg", where))
+        z = r.number(raw, "z_mm", where, default=0.0)
+        book.frames[name] = UserFrame(name, ox, oy, angle, z)
+        book.frame_taught[name] = r.timestamp(raw, where)
+
+    n_cart = 4 if arm.is_scara else 2
+    cart_words = "x, y, z mm, roll deg" if arm.is_scara else "x, y mm"
+    joint_words = ", ".join(f"{j.name} {j.unit}" for j in arm.joints)
+    for i, raw in enumerate(r.table_list(data, "points")):
+        where = f"point {i + 1}"
+        name = r.text(raw, "name", where)
+        where = f"point {name!r}"
+        r.unknown(raw, POINT_KEYS, where)
+        try:
+            check_name(name)
+        except PointError as exc:
+            raise r.fail(f"{where}: name", str(exc)) from None
+        if book.has(name):
+            raise r.fail(f"{where}: name", "duplicate point name")
+        frame = r.text(raw, "frame", where, required=False, default=BASE)
+        if frame != BASE and frame not in book.frames:
+            raise r.fail(f"{where}: frame", f"no frame named {frame!r} in this file")
+        cart = r.numbers(raw, "cartesian", where, n_cart, cart_words)
+        if arm.is_scara:
+            cart[3] = math.radians(cart[3])
+        joints = r.numbers(raw, "joints", where, arm.n_joints, joint_words)
+        joints = [j.from_display(v) for j, v in zip(arm.joints, joints)]
+        branch_text = r.text(raw, "branch", where)
+        try:
+            branch = Branch(branch_text)
+        except ValueError:
+            raise r.fail(f"{where}: branch", f"must be 'elbow-up' or 'elbow-down' "
+                         f"({branch_text!r})") from None
+        point = TaughtPoint(name, tuple(cart), tuple(joints), branch, frame,
+                            r.timestamp(raw, where), r.text(raw, "note", where, required=False))
+        book.points.append(point)
+        book.warnings += _consistency(book, point, source)
+    return book
+
+
+def _consistency(book: PointBook, point: TaughtPoint, source: str) -> list[str]:
+    """Warnings when the stored joints do not give the stored Cartesian values (a hand
+    edit, or a frame taught again that the point could not follow)."""
+    out = []
+    tool = book.cartesian_in(point.frame, point.joints)
+    gap = math.hypot(tool[0] - point.cartesian[0], tool[1] - point.cartesian[1])
+    if book.arm.is_scara:
+        gap = math.hypot(gap, tool[2] - point.cartesian[2])
+    if gap > CONSISTENCY_MM:
+        out.append(f"{source}: point {point.name!r}: its joints put the tool {gap:.2f} mm from "
+                   f"its cartesian values (motion goes to the cartesian values)")
+    if branch_of(book.arm, point.joints) != point.branch and gap <= CONSISTENCY_MM:
+        out.append(f"{source}: point {point.name!r}: its joints are {branch_of(book.arm, point.joints)}"
+                   f", its branch says {point.branch}")
+    return out
+
+
+__all__ = ["TaughtPoint", "PointBook", "PointError", "FrameChange", "book_from_mapping",
+           "branch_of", "utc_now_iso", "BASE"]
