@@ -7,6 +7,8 @@ exit codes of CONTRACT.md, so ``main`` can print one line instead of a traceback
 from __future__ import annotations
 
 from console import exit_codes
+from drivers.base import DriverError, LinkError
+from drivers.journal import JournalError
 from kinematics.armspec import ArmSpecError
 from kinematics.solve import TargetError
 
@@ -24,6 +26,9 @@ _CODES: list[tuple[type[BaseException], int]] = [
     (TargetError, exit_codes.BAD_INPUT),
     (UsageError, exit_codes.BAD_INPUT),
     (Refused, exit_codes.REFUSED),
+    (JournalError, exit_codes.BAD_INPUT),
+    (LinkError, exit_codes.LINK_FAILED),
+    (DriverError, exit_codes.LINK_FAILED),
 ]
 
 

@@ -1,0 +1,97 @@
+"""``benchjog move`` and ``benchjog home``: one motion from the command line, through
+the interlock and the confirmation prompt (console/confirm_cli.py)."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from console import exit_codes
+from console.armfile import load_arm
+from console.cli_common import add_arm_option, add_port_options
+from console.cmd_kinematics import target_from_args
+from console.confirm_cli import PromptConfirmer
+from drivers.interlock import Interlock, RunResult
+from kinematics.model import Arm, Branch
+from kinematics.planner import JOINT, LINE
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    move = sub.add_parser("move", help="plan one move, print it, ask, move",
+                          description="Plan one move from the current position, print the plan, "
+                          "ask for confirmation, execute it (the simulated arm when no port). "
+                          "It never homes: on an unhomed controller it refuses.")
+    move.add_argument("coords", nargs="+", metavar="X Y [Z [ROLL]]",
+                      help="tool target: mm, and degrees for ROLL")
+    move.add_argument("--branch", choices=[b.value for b in Branch],
+                      help="IK branch (default: the usable one nearest the current joints)")
+    move.add_argument("--path", choices=[JOINT, LINE], default=JOINT,
+                      help="joint-interpolated (default) or a straight tool line")
+    move.add_argument("--speed", type=float, default=100.0, metavar="PCT",
+                      help="speed override in percent (default 100)")
+    add_arm_option(move)
+    add_port_options(move)
+    add_journal_option(move)
+    move.set_defaults(func=cmd_move)
+
+    home = sub.add_parser("home", help="run the controller's homing cycle after confirmation")
+    add_arm_option(home)
+    add_port_options(home)
+    add_journal_option(home)
+    home.set_defaults(func=cmd_home)
+
+
+def add_journal_option(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--journal", metavar="FILE", default=None,
+                        help="append the motion journal here (default: a new file in "
+                        "~/.local/share/benchjog/journal)")
+
+
+def open_interlock(arm: Arm, args: argparse.Namespace) -> Interlock:
+    """The simulated arm without ``--port``, the serial driver with one."""
+    journal = args.journal if getattr(args, "journal", None) else None
+    if args.port:
+        return Interlock.open(arm, "serial", journal=journal, port=args.port, baud=args.baud)
+    return Interlock.open(arm, "sim", journal=journal)
+
+
+def exit_code_of(result: RunResult) -> int:
+    if result.completed:
+        return exit_codes.OK
+    if result.outcome == "halted":
+        return exit_codes.LINK_FAILED
+    return exit_codes.REFUSED
+
+
+def _report(result: RunResult) -> int:
+    print(f"benchjog: {result.detail}", file=sys.stderr)
+    return exit_code_of(result)
+
+
+def cmd_move(args: argparse.Namespace) -> int:
+    arm = load_arm(args.arm)
+    target = target_from_args(arm, args.coords)
+    if not 0 < args.speed <= 100:
+        from console.errors import UsageError
+        raise UsageError(f"--speed: must be in (0, 100] ({args.speed:g})")
+    branch = Branch(args.branch) if args.branch else None
+    with open_interlock(arm, args) as gate:
+        gate.enable()
+        try:
+            proposal = gate.propose_move(target, branch=branch, path=args.path,
+                                         speed_pct=args.speed)
+            result = gate.execute(proposal, PromptConfirmer(arm, question="Move?"))
+        finally:
+            gate.disable()
+    return _report(result)
+
+
+def cmd_home(args: argparse.Namespace) -> int:
+    arm = load_arm(args.arm)
+    with open_interlock(arm, args) as gate:
+        gate.enable()
+        try:
+            result = gate.home(PromptConfirmer(arm, question="Home?"))
+        finally:
+            gate.disable()
+    return _report(result)
