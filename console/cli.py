@@ -50,10 +50,10 @@ def build_parser() -> argparse.ArgumentParser:
     for name in COMMAND_MODULES:
         try:
             module = importlib.import_module(name)
-        except ModuleNotFoundError as exc:
-            if exc.name != name:
+        except ModuleNotFoundError as exc:  # TEMP during parallel build-out
+            if not (exc.name or "").startswith(("console.", "kinematics.", "drivers.")):
                 raise
-            continue  # a command family not built yet
+            continue
         module.register(sub)
     return parser
 
