@@ -1,0 +1,339 @@
+"""Programs: ordered steps over the taught points of one points file, in TOML.
+
+A step is a move to a taught point (joint or straight-line path, a speed in percent of
+the arm's caps), a dwell (seconds) or a digital output (channel 0..7, on or off). The
+program names its points file, relative to the program file's own directory.
+
+The program file::
+
+    [program]
+    kind = "benchjog-program"
+    version = 1
+    name = "pick-and-place"
+    points = "points.toml"        # the points file, relative to this file
+    note = "..."                  # optional
+
+    [[steps]]
+    action = "move"
+    point = "clear"               # a point of the points file
+    path = "joint"                # "joint" (default) or "line"
+    speed_pct = 80.0              # 1..100, default 100
+
+    [[steps]]
+    action = "dwell"
+    seconds = 0.5                 # > 0, at most 600
+
+    [[steps]]
+    action = "output"
+    channel = 0                   # 0..7
+    on = true
+
+Every step may carry an optional ``note``. Steps are numbered from 1 for people
+(``step 4``), in error messages, reports and the console.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Union
+
+from console.safe_files import FileError, FileLock, read_text, toml_text, write_atomic
+
+FILE_KIND = "benchjog-program"
+FILE_VERSION = 1
+PATHS = ("joint", "line")
+N_OUTPUTS = 8
+DWELL_MAX_S = 600.0
+SPEED_MIN_PCT = 1.0
+
+
+class ProgramError(ValueError):
+    """An edit that cannot be made (step number out of range, bad value)."""
+
+
+@dataclass(frozen=True)
+class MoveStep:
+    point: str
+    path: str = "joint"
+    speed_pct: float = 100.0
+    note: str = ""
+
+    def describe(self) -> str:
+        return f"move to {self.point} ({self.path} path, {self.speed_pct:g} %)"
+
+
+@dataclass(frozen=True)
+class DwellStep:
+    seconds: float
+    note: str = ""
+
+    def describe(self) -> str:
+        return f"dwell {self.seconds:g} s"
+
+
+@dataclass(frozen=True)
+class OutputStep:
+    channel: int
+    on: bool
+    note: str = ""
+
+    def describe(self) -> str:
+        return f"output {self.channel} {'on' if self.on else 'off'}"
+
+
+Step = Union[MoveStep, DwellStep, OutputStep]
+
+
+def check_step(step: Step) -> Step:
+    """The step if its values are valid, else a ProgramError in words."""
+    if isinstance(step, MoveStep):
+        if not step.point or not step.point.strip():
+            raise ProgramError("a move needs a point name")
+        if step.path not in PATHS:
+            raise ProgramError(f"path must be 'joint' or 'line' ({step.path!r})")
+        if not (math.isfinite(step.speed_pct) and SPEED_MIN_PCT <= step.speed_pct <= 100.0):
+            raise ProgramError(f"speed must be {SPEED_MIN_PCT:g}..100 % ({step.speed_pct:g})")
+    elif isinstance(step, DwellStep):
+        if not (math.isfinite(step.seconds) and 0 < step.seconds <= DWELL_MAX_S):
+            raise ProgramError(f"a dwell lasts more than 0 and at most {DWELL_MAX_S:g} s "
+                               f"({step.seconds:g})")
+    elif isinstance(step, OutputStep):
+        if isinstance(step.channel, bool) or not isinstance(step.channel, int) \
+                or not 0 <= step.channel < N_OUTPUTS:
+            raise ProgramError(f"output channel must be 0..{N_OUTPUTS - 1} ({step.channel!r})")
+        if not isinstance(step.on, bool):
+            raise ProgramError(f"output state must be true or false ({step.on!r})")
+    else:
+        raise ProgramError(f"not a program step: {step!r}")
+    return step
+
+
+@dataclass
+class Program:
+    """A program in memory. ``points`` is the points file as written in the program
+    (relative to the program file); ``points_path`` resolves it."""
+
+    name: str
+    points: str
+    steps: list[Step] = field(default_factory=list)
+    note: str = ""
+    path: Path | None = None
+
+    @property
+    def points_path(self) -> Path:
+        base = self.path.parent if self.path is not None else Path(".")
+        return base / self.points
+
+    # --- edits (memory only; ``save`` writes) ---------------------------------------
+
+    def _index(self, number: int) -> int:
+        if not 1 <= number <= len(self.steps):
+            raise ProgramError(f"no step {number} (the program has {len(self.steps)} steps)")
+        return number - 1
+
+    def add_step(self, step: Step, number: int | None = None) -> int:
+        """Insert ``step`` as step ``number`` (1-based; at the end by default).
+        Returns its number."""
+        check_step(step)
+        if number is None:
+            self.steps.append(step)
+            return len(self.steps)
+        if not 1 <= number <= len(self.steps) + 1:
+            raise ProgramError(f"cannot insert as step {number} "
+                               f"(1..{len(self.steps) + 1})")
+        self.steps.insert(number - 1, step)
+        return number
+
+    def replace_step(self, number: int, step: Step) -> None:
+        check_step(step)
+        self.steps[self._index(number)] = step
+
+    def move_step(self, number: int, delta: int) -> int:
+        """Move step ``number`` up (delta -1) or down (+1); returns its new number.
+        At either end it stays put."""
+        i = self._index(number)
+        j = max(0, min(len(self.steps) - 1, i + delta))
+        self.steps.insert(j, self.steps.pop(i))
+        return j + 1
+
+    def delete_step(self, number: int) -> Step:
+        return self.steps.pop(self._index(number))
+
+    def uses_point(self, name: str) -> list[int]:
+        return [i + 1 for i, s in enumerate(self.steps)
+                if isinstance(s, MoveStep) and s.point == name]
+
+    def rename_point(self, old: str, new: str) -> int:
+        """Follow a point's rename in every move step; returns how many changed."""
+        count = 0
+        for i, step in enumerate(self.steps):
+            if isinstance(step, MoveStep) and step.point == old:
+                self.steps[i] = MoveStep(new, step.path, step.speed_pct, step.note)
+                count += 1
+        return count
+
+    # --- files ---------------------------------------------------------------------
+
+    def to_mapping(self) -> dict[str, Any]:
+        steps = []
+        for step in self.steps:
+            if isinstance(step, MoveStep):
+                item = {"action": "move", "point": step.point, "path": step.path,
+                        "speed_pct": float(step.speed_pct)}
+            elif isinstance(step, DwellStep):
+                item = {"action": "dwell", "seconds": float(step.seconds)}
+            else:
+                item = {"action": "output", "channel": step.channel, "on": step.on}
+            item["note"] = step.note or None
+            steps.append(item)
+        return {"program": {"kind": FILE_KIND, "version": FILE_VERSION, "name": self.name,
+                            "points": self.points, "note": self.note or None},
+                "steps": steps}
+
+    def to_text(self) -> str:
+        return toml_text(self.to_mapping(), header=(
+            "benchjog program: steps run in order; moves go to points of the points file."))
+
+    def save(self, path: str | Path | None = None, lock: FileLock | None = None) -> Path:
+        """Write atomically with one ``.bak``; takes the file's lock for the write
+        unless the caller holds it (``lock``)."""
+        target = Path(path) if path is not None else self.path
+        if target is None:
+            raise ProgramError("the program has no file yet: give a path")
+        if lock is not None and lock.held and lock.path == target:
+            write_atomic(target, self.to_text())
+        else:
+            with FileLock(target):
+                write_atomic(target, self.to_text())
+        self.path = target
+        return target
+
+    @classmethod
+    def load(cls, path: str | Path) -> "Program":
+        """Read and validate a program file.
+
+        Raises:
+            FileError: one line naming the file, the step or key, and the problem.
+        """
+        path = Path(path)
+        text = read_text(path)
+        try:
+            data = tomllib.loads(text)
+        except tomllib.TOMLDecodeError as exc:
+            raise FileError(str(path), "toml", str(exc).splitlines()[0]) from None
+        program = program_from_mapping(data, str(path))
+        program.path = path
+        return program
+
+
+_STEP_KEYS = {"move": ("action", "point", "path", "speed_pct", "note"),
+              "dwell": ("action", "seconds", "note"),
+              "output": ("action", "channel", "on", "note")}
+
+
+def _number(source: str, where: str, data: Mapping[str, Any], key: str,
+            default: float | None = None) -> float:
+    if key not in data:
+        if default is None:
+            raise FileError(source, f"{where}: {key}", "missing")
+        return default
+    value = data[key]
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise FileError(source, f"{where}: {key}", f"not a number ({value!r})")
+    if not math.isfinite(value):
+        raise FileError(source, f"{where}: {key}", f"not a finite number ({value})")
+    return float(value)
+
+
+def _text(source: str, where: str, data: Mapping[str, Any], key: str,
+          default: str | None = None) -> str:
+    if key not in data:
+        if default is None:
+            raise FileError(source, f"{where}: {key}", "missing")
+        return default
+    value = data[key]
+    if not isinstance(value, str):
+        raise FileError(source, f"{where}: {key}", f"must be a string ({value!r})")
+    return value
+
+
+def step_from_mapping(raw: Any, source: str, number: int) -> Step:
+    where = f"step {number}"
+    if not isinstance(raw, Mapping):
+        raise FileError(source, where, "must be a table ([[steps]])")
+    action = raw.get("action")
+    if action not in _STEP_KEYS:
+        raise FileError(source, f"{where}: action",
+                        f"must be 'move', 'dwell' or 'output' ({action!r})" if action is not None
+                        else "missing ('move', 'dwell' or 'output')")
+    extra = [k for k in raw if k not in _STEP_KEYS[action]]
+    if extra:
+        raise FileError(source, f"{where}: {extra[0]}", f"unknown key for a {action} step")
+    note = _text(source, where, raw, "note", "")
+    if action == "move":
+        point = _text(source, where, raw, "point")
+        if not point.strip():
+            raise FileError(source, f"{where}: point", "must name a point")
+        path = _text(source, where, raw, "path", "joint")
+        if path not in PATHS:
+            raise FileError(source, f"{where}: path", f"must be 'joint' or 'line' ({path!r})")
+        speed = _number(source, where, raw, "speed_pct", 100.0)
+        if not SPEED_MIN_PCT <= speed <= 100.0:
+            raise FileError(source, f"{where}: speed_pct",
+                            f"must be {SPEED_MIN_PCT:g}..100 ({speed:g})")
+        return MoveStep(point, path, speed, note)
+    if action == "dwell":
+        seconds = _number(source, where, raw, "seconds")
+        if not 0 < seconds <= DWELL_MAX_S:
+            raise FileError(source, f"{where}: seconds",
+                            f"must be more than 0 and at most {DWELL_MAX_S:g} ({seconds:g})")
+        return DwellStep(seconds, note)
+    if "channel" not in raw:
+        raise FileError(source, f"{where}: channel", "missing")
+    channel = raw["channel"]
+    if isinstance(channel, bool) or not isinstance(channel, int) or not 0 <= channel < N_OUTPUTS:
+        raise FileError(source, f"{where}: channel",
+                        f"must be a whole number 0..{N_OUTPUTS - 1} ({channel!r})")
+    if "on" not in raw:
+        raise FileError(source, f"{where}: on", "missing (true or false)")
+    if not isinstance(raw["on"], bool):
+        raise FileError(source, f"{where}: on", f"must be true or false ({raw['on']!r})")
+    return OutputStep(channel, raw["on"], note)
+
+
+def program_from_mapping(data: Mapping[str, Any], source: str = "<program>") -> Program:
+    head = data.get("program")
+    if not isinstance(head, Mapping):
+        raise FileError(source, "program", "missing table [program] (is this a program file?)")
+    extra = [k for k in data if k not in ("program", "steps")]
+    if extra:
+        raise FileError(source, extra[0], "unknown key")
+    extra = [k for k in head if k not in ("kind", "version", "name", "points", "note")]
+    if extra:
+        raise FileError(source, f"program: {extra[0]}", "unknown key")
+    if head.get("kind") != FILE_KIND:
+        raise FileError(source, "program: kind", f"must be {FILE_KIND!r} ({head.get('kind')!r})")
+    if head.get("version") != FILE_VERSION:
+        raise FileError(source, "program: version",
+                        f"version {head.get('version')!r} is not supported (only {FILE_VERSION})")
+    name = _text(source, "program", head, "name")
+    points = _text(source, "program", head, "points")
+    if not points.strip():
+        raise FileError(source, "program: points", "must name the points file")
+    raw_steps = data.get("steps", [])
+    if not isinstance(raw_steps, list):
+        raise FileError(source, "steps", "must be an array of tables ([[steps]])")
+    steps = [step_from_mapping(raw, source, i + 1) for i, raw in enumerate(raw_steps)]
+    return Program(name, points, steps, _text(source, "program", head, "note", ""))
+
+
+def new_program(name: str, points: str) -> Program:
+    return Program(name, points)
+
+
+__all__ = ["Program", "MoveStep", "DwellStep", "OutputStep", "Step", "ProgramError",
+           "check_step", "program_from_mapping", "step_from_mapping", "new_program"]
