@@ -1,0 +1,524 @@
+"""The serial driver: PROTOCOL.md over pyserial.
+
+Options: ``port`` (a device path or any pyserial URL: ``loop://``, ``socket://``,
+``spy://``...), ``baud`` (115200), ``timeout_s`` (reply timeout, 0.3), ``retries``
+(re-sends of an unanswered line before the link is declared lost, 3), ``trace`` (a
+file path: every line sent and received, timestamped, flushed per line) and
+``heartbeat_s`` (the STATE period, 0.2; 0 turns the heartbeat off, for tests only).
+
+One line is in flight at a time (a reply is matched by its seq, so a late duplicate is
+never taken for the next line's reply); segments are streamed without waiting for
+their DONE, up to the controller's ``queue`` depth. A background reader dispatches
+replies, DONE and EVT lines; a heartbeat thread sends STATE while the port is open.
+After an e-stop, a fault or a lost link nothing but STOP/STATE/RESET goes out until
+:meth:`SerialDriver.reset`.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from collections import OrderedDict, deque
+from collections.abc import Callable
+
+import serial
+
+from drivers import protocol as P
+from drivers.base import ControllerError, Driver, DriverError, DriverEvent, DriverState, LinkError, Mode
+from drivers.calibration import counts_from_joints, joints_from_counts
+from kinematics.model import Arm, Segment
+
+READ_POLL_S = 0.05
+MAX_EVENTS = 256
+
+
+class SerialDriver(Driver):
+    """A controller on a serial link (see the module docstring for the options)."""
+
+    name = "serial"
+
+    def __init__(self, arm: Arm, **options) -> None:
+        super().__init__(arm, **options)
+        port = options.get("port")
+        if not port:
+            raise LinkError("the serial driver needs a port (a device path or pyserial URL)")
+        self.port = str(port)
+        self.baud = int(options.get("baud", 115200))
+        self.timeout_s = float(options.get("timeout_s", 0.3))
+        self.retries = int(options.get("retries", 3))
+        self.heartbeat_s = float(options.get("heartbeat_s", 0.2) or 0.0)
+        self.trace_path = options.get("trace")
+        self._lock = threading.RLock()
+        self._cond = threading.Condition(self._lock)
+        self._txn_lock = threading.Lock()
+        self._write_lock = threading.Lock()
+        self._ser = None
+        self._trace = None
+        self._threads: list[threading.Thread] = []
+        self._running = False
+        self._is_open = False
+        self._t0 = time.monotonic()
+        self._seq = 0
+        self._waiting: int | None = None
+        self._waiting_verb = ""
+        self._reply: P.Reply | None = None
+        self._outstanding: OrderedDict[int, tuple[int, ...]] = OrderedDict()  # MOVE seq -> target
+        self._home_seq: int | None = None
+        self._home_done = False
+        self._stop_gen = 0
+        self._mode = Mode.DISABLED
+        self._pos: tuple[int, ...] = (0,) * arm.n_joints
+        self._outputs = 0
+        self._t_state: float | None = None
+        self._t_state_sent = 0.0
+        self._homed = False
+        self._latched: str | None = None
+        self._events: deque[DriverEvent] = deque(maxlen=MAX_EVENTS)
+        self.queue_depth = 1
+        self.controller_name: str | None = None
+
+    # -- plumbing -------------------------------------------------------------------
+    def _now(self) -> float:
+        return time.monotonic()
+
+    def _event(self, kind: str, detail: str) -> None:
+        self._events.append(DriverEvent(kind, detail, self._now()))
+
+    def _trace_line(self, direction: str, data: bytes) -> None:
+        if self._trace is None:
+            return
+        text = data.decode("ascii", errors="backslashreplace").rstrip("\n")
+        try:
+            self._trace.write(f"{self._now() - self._t0:11.6f} {direction} {text}\n")
+            self._trace.flush()
+        except (OSError, ValueError):
+            pass
+
+    def _write(self, line: bytes) -> None:
+        with self._write_lock:
+            ser = self._ser
+            if ser is None:
+                raise LinkError(f"{self.port}: the port is not open")
+            try:
+                ser.write(line)
+            except Exception as exc:  # noqa: BLE001 - any port failure is a lost link
+                self._lose_link(f"port error: {exc}")
+                raise LinkError(f"{self.port}: link lost: port error: {exc}") from None
+            self._trace_line(">", line)
+
+    def _lose_link(self, reason: str) -> None:
+        with self._cond:
+            if self._latched is not None and self._latched.startswith("link lost"):
+                return
+            self._latched = f"link lost: {reason}"
+            self._event("link-lost", f"{self.port}: link lost: {reason}")
+            self._cond.notify_all()
+
+    def _link_lost(self) -> bool:
+        return self._latched is not None and self._latched.startswith("link lost")
+
+    def _transact(self, verb: str, *args: int | str,
+                  guard: Callable[[], None] | None = None, hello: bool = False) -> P.Reply:
+        """Send one line and wait for its reply, re-sending the same line (same seq) on
+        a timeout or ``ERR 0 BAD_CRC``. ``guard`` runs under the state lock before every
+        (re)send and may raise to keep the line from going out."""
+        with self._txn_lock:
+            with self._cond:
+                if self._link_lost() and not hello:
+                    raise LinkError(f"{self.port}: {self._latched}")
+                if guard is not None:
+                    guard()
+                seq = 1 if hello else P.next_seq(self._seq)
+                self._seq = seq
+                line = P.host_line(seq, verb, *args)
+                if verb == "MOVE":
+                    self._outstanding[seq] = tuple(int(a) for a in args[1:])
+                self._waiting, self._waiting_verb, self._reply = seq, verb, None
+            reply: P.Reply | None = None
+            tries = 0
+            try:
+                while True:
+                    tries += 1
+                    if tries > 1 and guard is not None:
+                        with self._cond:
+                            guard()
+                    if verb == "STATE":
+                        self._t_state_sent = self._now()
+                    self._write(line)
+                    deadline = self._now() + self.timeout_s
+                    with self._cond:
+                        while self._reply is None and not self._link_lost():
+                            remaining = deadline - self._now()
+                            if remaining <= 0:
+                                break
+                            self._cond.wait(remaining)
+                        reply, self._reply = self._reply, None
+                        if self._link_lost() and not hello:
+                            raise LinkError(f"{self.port}: {self._latched}")
+                    if reply is not None and not (reply.kind == "ERR" and reply.code == "BAD_CRC"):
+                        return reply
+                    if tries > self.retries:
+                        what = "no reply" if reply is None else "BAD_CRC"
+                        self._lose_link(f"{what} after {tries} tries")
+                        raise LinkError(f"{self.port}: link lost: {what} to {verb} after {tries} tries")
+            finally:
+                with self._cond:
+                    self._waiting = None
+                    if verb == "MOVE" and (reply is None or reply.kind != "OK"):
+                        self._outstanding.pop(seq, None)
+                        self._cond.notify_all()
+
+    # -- reader ---------------------------------------------------------------------
+    def _reader(self) -> None:
+        buf = b""
+        while self._running:
+            ser = self._ser
+            try:
+                if ser is None:
+                    return
+                data = ser.read(max(1, ser.in_waiting))
+            except Exception as exc:  # noqa: BLE001 - the port went away
+                if self._running:
+                    self._lose_link(f"port error: {exc}")
+                return
+            if not data:
+                continue
+            buf += data
+            while b"\n" in buf:
+                line, buf = buf.split(b"\n", 1)
+                self._dispatch(line + b"\n")
+            if len(buf) > P.MAX_LINE_BYTES:
+                self._trace_line("<", buf + b"  (dropped: too long)")
+                buf = b""
+
+    def _dispatch(self, line: bytes) -> None:
+        self._trace_line("<", line)
+        body = P.parse_line(line)
+        msg = P.parse_reply(body) if body is not None else None
+        if msg is None:
+            return  # garbage or a bad CRC: the sender's timeout deals with it
+        with self._cond:
+            if isinstance(msg, P.Event):
+                self._on_event(msg)
+            elif msg.kind == "DONE":
+                self._on_done(msg.seq)
+            elif self._waiting is not None and (
+                    msg.seq == self._waiting or (msg.seq == 0 and msg.code == "BAD_CRC")):
+                if msg.kind == "OK" and self._waiting_verb == "STATE":
+                    self._on_state(msg)
+                self._reply = msg
+            else:
+                return  # a duplicate or late reply to an earlier line: not ours now
+            self._cond.notify_all()
+
+    def _on_event(self, evt: P.Event) -> None:
+        if evt.name == "ESTOP":
+            if not self._link_lost():
+                self._latched = "estop"
+            self._after_halt(Mode.ESTOP)
+            self._event("estop", "e-stop pressed: motion halted, drives off")
+        elif evt.name == "ESTOP_CLEAR":
+            self._event("estop-clear", "e-stop released: reset, then enable")
+        elif evt.name == "FAULT":
+            code, axis = evt.get("code", "?"), evt.get("axis", "0")
+            if not self._link_lost() and self._latched != "estop":
+                self._latched = f"fault: {code} axis={axis}"
+            self._after_halt(Mode.FAULT)
+            self._event("fault", f"controller fault {code} on axis {axis}")
+        else:
+            self._event("info", f"controller event {evt.name}")
+
+    def _after_halt(self, mode: Mode) -> None:
+        self._outstanding.clear()
+        self._home_seq = None
+        self._mode = mode
+
+    def _on_done(self, seq: int) -> None:
+        if seq == self._home_seq:
+            self._home_seq = None
+            self._home_done = True
+            self._homed = True
+            self._pos = (0,) * self.arm.n_joints
+            self._event("done", "homing done")
+        elif seq in self._outstanding:
+            self._pos = self._outstanding.pop(seq)  # that segment's end is where the axes are
+            self._t_state = self._now()
+            self._event("done", f"segment {seq} done")
+            if not self._outstanding and self._mode is Mode.MOVING:
+                self._mode = Mode.IDLE
+
+    def _on_state(self, reply: P.Reply) -> None:
+        try:
+            mode = Mode(reply.get("mode", ""))
+        except ValueError:
+            return
+        pos = P.parse_counts(reply.get("pos", ""), self.arm.n_joints)
+        queued = reply.int_field("queued")
+        out = reply.int_field("out")
+        if pos is None or queued is None or out is None:
+            return
+        self._mode, self._pos, self._outputs = mode, pos, out
+        self._t_state = self._now()
+        # Every DONE sent before this reply has been read by now: the controller's
+        # queue is the newest ``queued`` of ours (a DONE lost on the wire is made good).
+        while len(self._outstanding) > queued:
+            self._outstanding.popitem(last=False)
+        if self._home_seq is None:
+            if mode in (Mode.IDLE, Mode.MOVING):
+                self._homed = True
+            elif mode is Mode.UNHOMED:
+                self._homed = False
+        if not self._link_lost():
+            if mode is Mode.ESTOP and self._latched != "estop":
+                self._latched = "estop"
+                self._event("estop", "e-stop reported by the controller")
+            elif mode is Mode.FAULT and self._latched is None:
+                self._latched = "fault: reported by the controller"
+                self._event("fault", "controller reports a fault")
+
+    # -- heartbeat ------------------------------------------------------------------
+    def _heartbeat(self) -> None:
+        while self._running:
+            time.sleep(min(0.02, self.heartbeat_s / 4))
+            if not self._running or self._link_lost():
+                continue
+            if self._now() - self._t_state_sent < self.heartbeat_s:
+                continue
+            try:
+                self._transact("STATE")
+            except DriverError:
+                pass
+
+    # -- life cycle -----------------------------------------------------------------
+    def open(self) -> None:
+        if self._is_open:
+            return
+        if self.trace_path:
+            try:
+                self._trace = open(self.trace_path, "a", encoding="ascii")
+            except OSError as exc:
+                raise LinkError(f"{self.trace_path}: cannot write the trace: {exc.strerror}") from None
+        self._connect()
+        self._is_open = True
+
+    def _connect(self) -> None:
+        try:
+            self._ser = serial.serial_for_url(self.port, baudrate=self.baud, timeout=READ_POLL_S)
+        except (serial.SerialException, ValueError, OSError) as exc:
+            raise LinkError(f"{self.port}: cannot open: {exc}") from None
+        try:
+            self._ser.reset_input_buffer()
+        except Exception:  # noqa: BLE001 - not every URL handler has a buffer to reset
+            pass
+        self._running = True
+        reader = threading.Thread(target=self._reader, name="serial-reader", daemon=True)
+        reader.start()
+        self._threads = [reader]
+        try:
+            self._hello()
+            self._transact("STATE")
+        except DriverError:
+            self._disconnect()
+            raise
+        if self.heartbeat_s > 0:
+            hb = threading.Thread(target=self._heartbeat, name="serial-heartbeat", daemon=True)
+            hb.start()
+            self._threads.append(hb)
+
+    def _hello(self) -> None:
+        with self._cond:
+            self._latched = None if self._link_lost() else self._latched
+        reply = self._transact("HELLO", hello=True)
+        if reply.kind != "OK":
+            raise ControllerError(f"{self.port}: controller refused HELLO: {reply.describe()}")
+        axes, depth = reply.int_field("axes"), reply.int_field("queue")
+        if reply.get("proto") != str(P.PROTO_VERSION) or axes is None or depth is None or depth < 1:
+            raise ControllerError(f"{self.port}: not a protocol {P.PROTO_VERSION} controller "
+                                  f"(HELLO reply: {reply.describe()})")
+        if axes != self.arm.n_joints:
+            raise ControllerError(f"{self.port}: the controller has {axes} axes, "
+                                  f"the arm {self.arm.name} has {self.arm.n_joints} joints")
+        self.queue_depth = depth
+        self.controller_name = reply.get("name")
+
+    def _disconnect(self) -> None:
+        self._running = False
+        ser, self._ser = self._ser, None
+        if ser is not None:
+            try:
+                ser.close()
+            except Exception:  # noqa: BLE001
+                pass
+        for t in self._threads:
+            if t is not threading.current_thread():
+                t.join(timeout=1.0)
+        self._threads = []
+
+    def _close(self) -> None:
+        if self._is_open and not self._link_lost():
+            try:
+                self._transact("DISABLE")
+            except DriverError:
+                pass
+        self._disconnect()
+        self._is_open = False
+        if self._trace is not None:
+            self._trace.close()
+            self._trace = None
+
+    # -- commands -------------------------------------------------------------------
+    def _require_open(self) -> None:
+        if not self._is_open:
+            raise LinkError(f"{self.port}: the driver is not open")
+
+    def _command(self, verb: str, *args: int | str) -> P.Reply:
+        self._require_open()
+        reply = self._transact(verb, *args)
+        if reply.kind != "OK":
+            if reply.code in ("ESTOP", "FAULT"):
+                self._transact_quiet("STATE")
+            raise ControllerError(f"controller refused {verb}: {reply.describe()}")
+        return reply
+
+    def _transact_quiet(self, verb: str) -> None:
+        try:
+            self._transact(verb)
+        except DriverError:
+            pass
+
+    def enable(self) -> None:
+        self._command("ENABLE")
+        self._transact("STATE")
+
+    def disable(self) -> None:
+        self._command("DISABLE")
+        with self._cond:
+            self._outstanding.clear()
+            self._cond.notify_all()
+        self._transact("STATE")
+
+    def home(self, timeout_s: float = 60.0) -> None:
+        self._require_open()
+        with self._cond:
+            if self._outstanding:
+                raise ControllerError("refused HOME: segments are still queued (stop first)")
+            self._home_done = False
+        reply = self._command("HOME")
+        with self._cond:
+            self._home_seq = reply.seq
+            self._homed = False
+            deadline = self._now() + timeout_s
+            while not self._home_done:
+                if self._link_lost():
+                    raise LinkError(f"{self.port}: {self._latched}")
+                if self._home_seq is None:
+                    raise ControllerError(f"homing did not finish: {self._latched or 'stopped'}")
+                remaining = deadline - self._now()
+                if remaining <= 0:
+                    break
+                self._cond.wait(min(remaining, 0.05))
+        if not self._home_done:
+            self.stop()
+            raise ControllerError(f"homing did not finish within {timeout_s:g} s")
+        self._transact("STATE")
+
+    def _queue(self, segment: Segment, timeout_s: float) -> None:
+        self._require_open()
+        counts = counts_from_joints(self.arm, segment.joints)
+        ms = max(1, round(segment.duration_s * 1000.0))
+        gen = self._stop_gen
+        deadline = self._now() + max(0.0, timeout_s)
+
+        def guard() -> None:  # under the state lock, before the MOVE (re)goes out
+            if self._stop_gen != gen:
+                raise ControllerError("refused MOVE: stop() was called while it waited")
+            self._require_motion_allowed(self._state_locked())
+
+        while True:
+            with self._cond:
+                while True:
+                    guard()
+                    if len(self._outstanding) < self.queue_depth:
+                        break
+                    remaining = deadline - self._now()
+                    if remaining <= 0:
+                        raise ControllerError(f"queue full: no segment finished within {timeout_s:g} s")
+                    self._cond.wait(min(remaining, 0.05))
+            reply = self._transact("MOVE", ms, *counts, guard=guard)
+            if reply.kind == "OK":
+                with self._cond:
+                    if reply.seq in self._outstanding and self._mode in (Mode.IDLE, Mode.MOVING):
+                        self._mode = Mode.MOVING
+                return
+            if reply.code == "QUEUE_FULL" and self._now() < deadline:
+                time.sleep(0.005)
+                continue
+            if reply.code in ("ESTOP", "FAULT"):
+                self._transact_quiet("STATE")
+            raise ControllerError(f"controller refused MOVE: {reply.describe()}")
+
+    def stop(self) -> None:
+        with self._cond:
+            self._stop_gen += 1
+            self._outstanding.clear()
+            self._home_seq = None
+            if self._mode is Mode.MOVING:
+                self._mode = Mode.IDLE
+            self._cond.notify_all()
+            usable = self._is_open and self._ser is not None and not self._link_lost()
+        if not usable:
+            return
+        try:
+            reply = self._transact("STOP")
+            if reply.kind == "OK":
+                with self._cond:
+                    self._outstanding.clear()
+                    self._cond.notify_all()
+        except Exception:  # noqa: BLE001 - stop never raises for a dead link
+            pass
+
+    def _state_locked(self) -> DriverState:
+        enabled = self._mode in (Mode.UNHOMED, Mode.IDLE, Mode.MOVING)
+        return DriverState(
+            mode=self._mode,
+            joints=joints_from_counts(self.arm, self._pos),
+            queued=len(self._outstanding),
+            outputs=self._outputs,
+            age_s=(self._now() - self._t_state) if self._t_state is not None else float("inf"),
+            is_open=self._is_open,
+            enabled=enabled and self._latched is None,
+            homed=self._homed,
+            latched=self._latched,
+            link=f"{self.port} @ {self.baud}",
+        )
+
+    def state(self) -> DriverState:
+        with self._lock:
+            return self._state_locked()
+
+    def _set_output(self, channel: int, on: bool) -> None:
+        self._command("OUT", channel, int(on))
+        with self._cond:
+            self._outputs = (self._outputs | (1 << channel)) if on else (self._outputs & ~(1 << channel))
+
+    def reset(self) -> None:
+        """Clear a latched e-stop (once released) or fault; after a lost link, open the
+        port again and greet the controller."""
+        self._require_open()
+        if self._link_lost():
+            self._disconnect()
+            self._connect()
+            return
+        reply = self._transact("RESET")
+        if reply.kind != "OK":
+            raise ControllerError(f"controller refused RESET: {reply.describe()}"
+                                  + (" (the e-stop input is still active)" if reply.code == "ESTOP" else ""))
+        with self._cond:
+            self._latched = None
+        self._transact("STATE")
+
+    def poll_events(self) -> list[DriverEvent]:
+        with self._lock:
+            events = list(self._events)
+            self._events.clear()
+            return events
