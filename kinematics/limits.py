@@ -35,6 +35,8 @@ def wrap_into_limits(angle_rad: float, lo: float, hi: float) -> float:
     >>> round(math.degrees(wrap_into_limits(math.radians(170.0), math.radians(-90.0), 0.0)), 9)
     170.0
     """
+    if not math.isfinite(angle_rad):
+        return angle_rad
     base = wrap_pi(angle_rad)
     if lo - LIMIT_TOL <= base <= hi + LIMIT_TOL:
         return base
@@ -46,16 +48,65 @@ def wrap_into_limits(angle_rad: float, lo: float, hi: float) -> float:
     return base + k * TWO_PI
 
 
+def _wrap_pi_into(a: np.ndarray, mask: np.ndarray) -> np.ndarray:
+    """(-pi, pi] representatives of ``a`` (a new array), ``mask`` a bool scratch.
+
+    base = a - 2 pi n with n = rint(a / 2 pi) in {0, +-1, +-2}: 2 pi n is exact and so
+    is the subtraction (Sterbenz's lemma), so this is math.remainder's exact result;
+    two exact +-2 pi steps then fix a rounded tie. Wider angles go through ``fmod``
+    (exact, but slower) first.
+    """
+    if not (a.size and float(a.max()) < 4.9 * math.pi and float(a.min()) > -4.9 * math.pi):
+        a = np.fmod(a, TWO_PI)  # exact; NaN stays NaN
+    base = np.multiply(a, 1.0 / TWO_PI)
+    np.rint(base, out=base)
+    base *= TWO_PI
+    np.subtract(a, base, out=base)
+    np.greater(base, math.pi, out=mask)
+    base -= mask * TWO_PI
+    np.less_equal(base, -math.pi, out=mask)
+    base += mask * TWO_PI
+    return base
+
+
+def wrap_pi_array(angle_rad: np.ndarray) -> np.ndarray:
+    """Vectorised :func:`wrap_pi`, equal to it bit for bit.
+
+    Exact, like math.remainder: see :func:`_wrap_pi_into`.
+
+    >>> np.degrees(wrap_pi_array(np.radians([270.0, -180.0, 540.0, 10.0]))).round(9).tolist()
+    [-90.0, 180.0, 180.0, 10.0]
+    """
+    a = np.asarray(angle_rad, dtype=np.float64)
+    return _wrap_pi_into(a, np.empty(a.shape, dtype=bool))
+
+
 def wrap_into_limits_array(angle_rad: np.ndarray, lo: float, hi: float) -> np.ndarray:
-    """Vectorised :func:`wrap_into_limits` (same rule, element by element)."""
-    base = np.remainder(angle_rad, TWO_PI)  # [0, 2pi)
-    base = np.where(base > math.pi, base - TWO_PI, base)  # (-pi, pi]
-    k_lo = np.ceil((lo - LIMIT_TOL - base) / TWO_PI)
-    k_hi = np.floor((hi + LIMIT_TOL - base) / TWO_PI)
-    inside = (base >= lo - LIMIT_TOL) & (base <= hi + LIMIT_TOL)
-    k = np.where(np.abs(k_lo) <= np.abs(k_hi), k_lo, k_hi)
-    shifted = np.where(k_lo <= k_hi, base + k * TWO_PI, base)
-    return np.where(inside, base, shifted)
+    """Vectorised :func:`wrap_into_limits` (same rule, element by element, bit for bit).
+
+    With k_lo, k_hi the least and greatest k that put base + 2 pi k within
+    [lo, hi], the k nearest 0 is clip(0, k_lo, k_hi); when k_lo > k_hi there is none
+    and k = 0.
+
+    >>> np.degrees(wrap_into_limits_array(np.radians([-170.0, 170.0]), 0.0,
+    ...                                   math.radians(200.0))).round(9).tolist()
+    [190.0, 170.0]
+    """
+    a = np.asarray(angle_rad, dtype=np.float64)
+    mask = np.empty(a.shape, dtype=bool)
+    base = _wrap_pi_into(a, mask)
+    k_lo = np.subtract(lo - LIMIT_TOL, base)
+    k_lo /= TWO_PI
+    np.ceil(k_lo, out=k_lo)
+    k_hi = np.subtract(hi + LIMIT_TOL, base)
+    k_hi /= TWO_PI
+    np.floor(k_hi, out=k_hi)
+    np.less_equal(k_lo, k_hi, out=mask)  # some equivalent angle is within limits
+    np.minimum(k_hi, 0.0, out=k_hi)
+    k = np.maximum(k_lo, k_hi, out=k_lo)
+    k *= mask
+    k *= TWO_PI
+    return np.add(base, k, out=k)
 
 
 def within(joint: Joint, value: float) -> bool:

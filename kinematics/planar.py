@@ -10,7 +10,8 @@ import math
 
 import numpy as np
 
-REACH_REL_TOL = 1e-12  # a target this close (relative to the reach) to a boundary is on it
+REACH_REL_TOL = 1e-13  # a target this close (relative to the reach) to a boundary is on it
+BATCH_CHUNK = 16384  # targets per block in the batch IK: the temporaries stay in cache
 
 
 def tool_xy_from_thetas(a1_mm: float, a2_mm: float, t1_rad: float, t2_rad: float,
@@ -29,14 +30,24 @@ def tool_xy_from_thetas(a1_mm: float, a2_mm: float, t1_rad: float, t2_rad: float
 
 
 def reach_tolerance_mm(a1_mm: float, a2_mm: float) -> float:
-    """The band around the reach boundaries that counts as on the boundary: far below
-    1e-9 mm for any bench arm, far above the rounding error of the formulas."""
+    """The band around the reach boundaries that counts as on the boundary: below
+    1e-9 mm for any arm shorter than 10 m (a target in the band is put on the
+    boundary, so this bounds the FK error there), far above the rounding error of the
+    formulas (a few units in the last place of r)."""
     return REACH_REL_TOL * max(1.0, a1_mm + a2_mm)
+
+
+def radius_mm(x_mm: float, y_mm: float) -> float:
+    """Distance of (x, y) from the shoulder axis, as sqrt(x*x + y*y): every step is
+    one correctly rounded IEEE operation, so the batch path gets the very same r
+    (math.hypot and numpy.hypot differ in the last place, which the elbow angle
+    amplifies next to a reach boundary)."""
+    return math.sqrt(x_mm * x_mm + y_mm * y_mm)
 
 
 def is_reachable(a1_mm: float, a2_mm: float, x_mm: float, y_mm: float) -> bool:
     """True when |a1 - a2| <= r <= a1 + a2 (within :func:`reach_tolerance_mm`)."""
-    r = math.hypot(x_mm, y_mm)
+    r = radius_mm(x_mm, y_mm)
     tol = reach_tolerance_mm(a1_mm, a2_mm)
     return abs(a1_mm - a2_mm) - tol <= r <= a1_mm + a2_mm + tol
 
@@ -86,7 +97,7 @@ def thetas_from_tool_xy(a1_mm: float, a2_mm: float, x_mm: float, y_mm: float,
     ...  for sol in thetas_from_tool_xy(300.0, 200.0, 300.0, 200.0)]
     [(0.0, 90.0), (67.380135, -90.0)]
     """
-    r = math.hypot(x_mm, y_mm)
+    r = radius_mm(x_mm, y_mm)
     tol = reach_tolerance_mm(a1_mm, a2_mm)
     if r > a1_mm + a2_mm + tol or r < abs(a1_mm - a2_mm) - tol:
         return []
@@ -104,38 +115,99 @@ def thetas_from_tool_xy(a1_mm: float, a2_mm: float, x_mm: float, y_mm: float,
     return solutions
 
 
+def thetas_from_tool_xy_block(a1_mm: float, a2_mm: float, x: np.ndarray, y: np.ndarray,
+                 t1: np.ndarray, t2: np.ndarray, reachable: np.ndarray,
+                 on_boundary: np.ndarray) -> None:
+    """One block of :func:`thetas_from_tool_xy_batch`, written into the given output
+    arrays (x, y, reachable, on_boundary of shape (n,), t1, t2 of shape (2, n)). The same operations, in the same order, as
+    :func:`thetas_from_tool_xy` and :func:`elbow_sin_cos`, with in-place ufuncs."""
+    tol = reach_tolerance_mm(a1_mm, a2_mm)
+    top, diff = a1_mm + a2_mm, abs(a1_mm - a2_mm)
+    two_a1a2 = 2.0 * a1_mm * a2_mm
+    r = np.multiply(x, x)
+    tmp = np.multiply(y, y)
+    r += tmp
+    np.sqrt(r, out=r)
+    np.less_equal(r, top + tol, out=reachable)
+    reachable &= r >= diff - tol
+    np.greater_equal(r, top - tol, out=on_boundary)
+    on_boundary |= r <= diff + tol
+    on_boundary &= reachable
+    one_minus = np.subtract(top, r)
+    np.add(r, top, out=tmp)
+    one_minus *= tmp
+    one_minus /= two_a1a2
+    np.maximum(one_minus, 0.0, out=one_minus)
+    np.add(r, diff, out=tmp)
+    one_plus = np.subtract(r, diff, out=r)  # r is not needed past this point
+    one_plus *= tmp
+    one_plus /= two_a1a2
+    np.maximum(one_plus, 0.0, out=one_plus)
+    s2 = np.multiply(one_minus, one_plus, out=tmp)
+    np.sqrt(s2, out=s2)
+    np.minimum(s2, 1.0, out=s2)
+    c2 = np.subtract(one_plus, one_minus, out=one_plus)
+    c2 *= 0.5
+    np.clip(c2, -1.0, 1.0, out=c2)
+    if on_boundary.any():
+        s2[on_boundary] = 0.0
+        c2[on_boundary] = np.where(c2[on_boundary] > 0, 1.0, -1.0)
+    gamma = np.arctan2(y, x, out=one_minus)
+    np.arctan2(s2, c2, out=t2[0])
+    np.negative(t2[0], out=t2[1])
+    c2 *= a2_mm
+    c2 += a1_mm
+    s2 *= a2_mm
+    beta = np.arctan2(s2, c2, out=s2)
+    np.subtract(gamma, beta, out=t1[0])
+    np.add(gamma, beta, out=t1[1])
+    if on_boundary.any():
+        t1[1][on_boundary] = t1[0][on_boundary]
+        t2[1][on_boundary] = t2[0][on_boundary]
+    if not reachable.all():
+        unreachable = ~reachable
+        t1[:, unreachable] = np.nan
+        t2[:, unreachable] = np.nan
+
+
+def run_blocks(n: int, block, chunk: int = BATCH_CHUNK) -> None:
+    """Call ``block(start, stop)`` over [0, n) in chunks of ``chunk`` (one thread:
+    on a 2-core machine a second one bought nothing measurable)."""
+    for start in range(0, n, chunk):
+        block(start, min(n, start + chunk))
+
+
 def thetas_from_tool_xy_batch(a1_mm: float, a2_mm: float, x_mm: np.ndarray, y_mm: np.ndarray,
                               ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Vectorised :func:`thetas_from_tool_xy` over arrays of targets.
 
     Returns (t1, t2) of shape (2, N) each (row 0 elbow-down, row 1 elbow-up; on a
     boundary both rows hold the one solution), ``reachable`` (N,) and
-    ``on_boundary`` (N,). Unreachable entries hold NaN.
+    ``on_boundary`` (N,). Unreachable entries hold NaN. ``x_mm`` and ``y_mm``
+    broadcast together; N is their flattened size (shapes are kept: (2, *shape)).
+
+    >>> t1, t2, ok, edge = thetas_from_tool_xy_batch(300.0, 200.0, [300.0, 500.0, 0.0],
+    ...                                              [200.0, 0.0, 0.0])
+    >>> np.degrees(t2).round(6).tolist(), ok.tolist(), edge.tolist()
+    ([[90.0, 0.0, nan], [-90.0, 0.0, nan]], [True, True, False], [False, True, False])
     """
-    x = np.asarray(x_mm, dtype=float)
-    y = np.asarray(y_mm, dtype=float)
-    r = np.hypot(x, y)
-    tol = reach_tolerance_mm(a1_mm, a2_mm)
-    top, diff = a1_mm + a2_mm, abs(a1_mm - a2_mm)
-    reachable = (r <= top + tol) & (r >= diff - tol)
-    two_a1a2 = 2.0 * a1_mm * a2_mm
-    one_minus = np.maximum(0.0, (top - r) * (top + r) / two_a1a2)
-    one_plus = np.maximum(0.0, (r - diff) * (r + diff) / two_a1a2)
-    on_boundary = reachable & ((r >= top - tol) | (r <= diff + tol))
-    s2 = np.where(on_boundary, 0.0, np.sqrt(one_minus * one_plus))
-    c2 = np.clip((one_plus - one_minus) * 0.5, -1.0, 1.0)
-    c2 = np.where(on_boundary, np.where(c2 > 0, 1.0, -1.0), c2)
-    gamma = np.arctan2(y, x)
-    t2_down = np.arctan2(s2, c2)
-    beta = np.arctan2(a2_mm * s2, a1_mm + a2_mm * c2)
-    t1 = np.stack([gamma - beta, gamma + beta])
-    t2 = np.stack([t2_down, -t2_down])
-    t2[1] = np.where(on_boundary, t2_down, t2[1])
-    t1[1] = np.where(on_boundary, t1[0], t1[1])
-    nan = ~reachable
-    t1[:, nan] = np.nan
-    t2[:, nan] = np.nan
-    return t1, t2, reachable, on_boundary
+    x, y = np.broadcast_arrays(np.asarray(x_mm, dtype=np.float64),
+                               np.asarray(y_mm, dtype=np.float64))
+    shape = x.shape
+    x, y = np.ascontiguousarray(x).reshape(-1), np.ascontiguousarray(y).reshape(-1)
+    n = x.size
+    t1 = np.empty((2, n))
+    t2 = np.empty((2, n))
+    reachable = np.empty(n, dtype=bool)
+    on_boundary = np.empty(n, dtype=bool)
+
+    def block(start: int, stop: int) -> None:
+        thetas_from_tool_xy_block(a1_mm, a2_mm, x[start:stop], y[start:stop], t1[:, start:stop],
+                     t2[:, start:stop], reachable[start:stop], on_boundary[start:stop])
+
+    run_blocks(n, block)
+    return (t1.reshape((2,) + shape), t2.reshape((2,) + shape), reachable.reshape(shape),
+            on_boundary.reshape(shape))
 
 
 def jacobian(a1_mm: float, a2_mm: float, t1_rad: float, t2_rad: float) -> np.ndarray:

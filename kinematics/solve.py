@@ -14,7 +14,8 @@ import numpy as np
 
 from kinematics import planar, scara
 from kinematics.dh import pose_from_transform, tool_transform
-from kinematics.limits import limit_problems, wrap_into_limits, wrap_into_limits_array, wrap_joints
+from kinematics.limits import (LIMIT_TOL, limit_problems, wrap_into_limits, wrap_into_limits_array,
+                               wrap_joints)
 from kinematics.model import Arm, Branch
 from kinematics.zones import zone_problems
 
@@ -55,25 +56,48 @@ class TargetError(ValueError):
     """A target the arm cannot take (wrong number of coordinates, not finite)."""
 
 
+def _number(name: str, value: object) -> float:
+    """A finite float from a number or numeric text, else a TargetError naming it."""
+    if isinstance(value, bool):
+        raise TargetError(f"{name} is not a number ({value!r})")
+    try:
+        number = float(value)  # type: ignore[arg-type]
+    except (TypeError, ValueError, OverflowError):
+        raise TargetError(f"{name} is not a number ({value!r})") from None
+    if not math.isfinite(number):
+        raise TargetError(f"{name} is not a finite number ({value!r})")
+    return number
+
+
+def _values(what: str, values: object, count: int) -> list:
+    if isinstance(values, (str, bytes)) or not hasattr(values, "__len__"):
+        raise TargetError(f"{what} must be a sequence of {count} numbers, not {values!r}")
+    if len(values) != count:  # type: ignore[arg-type]
+        return []
+    return list(values)  # type: ignore[call-overload]
+
+
 def check_target(arm: Arm, target: Sequence[float]) -> tuple[float, ...]:
+    """The target as finite floats, or :class:`TargetError` with a one-line message.
+
+    >>> from console.armfile import builtin_arm
+    >>> check_target(builtin_arm("planar-bench"), ("12.5", 3))
+    (12.5, 3.0)
+    """
     want = "x, y, z, roll" if arm.is_scara else "x, y"
-    if len(target) != (4 if arm.is_scara else 2):
+    names = want.split(", ")
+    values = _values("the target", target, len(names))
+    if not values:
         raise TargetError(f"a {arm.geometry} arm takes a target of {want}, got {len(target)} values")
-    values = tuple(float(v) for v in target)
-    for name, value in zip(want.split(", "), values):
-        if not math.isfinite(value):
-            raise TargetError(f"{name} is not a finite number ({value})")
-    return values
+    return tuple(_number(name, value) for name, value in zip(names, values))
 
 
 def check_joints(arm: Arm, values: Sequence[float]) -> tuple[float, ...]:
-    if len(values) != arm.n_joints:
+    """Joint values as finite floats, or :class:`TargetError` with a one-line message."""
+    out = _values("the joint values", values, arm.n_joints)
+    if not out:
         raise TargetError(f"a {arm.geometry} arm has {arm.n_joints} joints, got {len(values)} values")
-    out = tuple(float(v) for v in values)
-    for joint, value in zip(arm.joints, out):
-        if not math.isfinite(value):
-            raise TargetError(f"{joint.name} is not a finite number ({value})")
-    return out
+    return tuple(_number(joint.name, value) for joint, value in zip(arm.joints, out))
 
 
 def singularity_words(arm: Arm, t2_rad: float) -> str | None:
@@ -93,6 +117,11 @@ def pose_problems(arm: Arm, values: Sequence[float]) -> list[str]:
     return limit_problems(arm, values) + zone_problems(arm, values)
 
 
+def _mm(distance: float) -> str:
+    """A distance for people; tiny ones keep their digits ('1e-09 mm', not '0.000 mm')."""
+    return f"{distance:.3f} mm" if distance >= 0.001 else f"{distance:.1e} mm"
+
+
 def joints_from_tool(arm: Arm, target: Sequence[float]) -> IKResult:
     """Every IK branch for a tool target, each with its problems.
 
@@ -103,13 +132,13 @@ def joints_from_tool(arm: Arm, target: Sequence[float]) -> IKResult:
     j1, j2 = arm.joints[0], arm.joints[1]
     raw = planar.thetas_from_tool_xy(j1.a_mm, j2.a_mm, target[0], target[1])
     if not raw:
-        r = math.hypot(target[0], target[1])
-        where = (f"{r - arm.max_reach_mm:.3f} mm beyond the max reach {arm.max_reach_mm:g} mm"
+        r = planar.radius_mm(target[0], target[1])
+        where = (f"{_mm(r - arm.max_reach_mm)} beyond the max reach {arm.max_reach_mm:g} mm"
                  if r > arm.max_reach_mm else
-                 f"{arm.min_reach_mm - r:.3f} mm inside the min reach {arm.min_reach_mm:g} mm")
+                 f"{_mm(arm.min_reach_mm - r)} inside the min reach {arm.min_reach_mm:g} mm")
         return IKResult(target, False, (), (f"out of reach: the target is {where}",))
     warnings: list[str] = []
-    if len(raw) == 1 and math.hypot(target[0], target[1]) <= planar.reach_tolerance_mm(
+    if len(raw) == 1 and planar.radius_mm(target[0], target[1]) <= planar.reach_tolerance_mm(
             j1.a_mm, j2.a_mm):
         warnings.append("target on the shoulder axis: the shoulder angle is arbitrary, 0 is used")
     solutions = []
@@ -189,24 +218,51 @@ def joints_from_tool_batch(arm: Arm, targets: np.ndarray) -> BatchIK:
 
     Gives the same joint values as :func:`joints_from_tool` (limits and wrapping
     included; keep-out zones are the planner's business). On a singular target both
-    branch rows hold the one solution.
+    branch rows hold the one solution; an unreachable (or non-finite) one holds NaN.
+    Works through the targets in blocks that stay in cache.
+
+    Raises:
+        TargetError: ``targets`` is not an (N, 2) or (N, 4) array of numbers.
     """
-    targets = np.asarray(targets, dtype=float)
+    width = 4 if arm.is_scara else 2
+    try:
+        targets = np.asarray(targets, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise TargetError(f"targets must be an (N, {width}) array of numbers") from None
+    if targets.ndim != 2 or targets.shape[1] != width:
+        raise TargetError(f"a {arm.geometry} arm takes targets of shape (N, {width}), "
+                          f"got {targets.shape}")
+    n = targets.shape[0]
     j1, j2 = arm.joints[0], arm.joints[1]
-    t1, t2, reachable, singular = planar.thetas_from_tool_xy_batch(
-        j1.a_mm, j2.a_mm, targets[:, 0], targets[:, 1])
-    cols = [t1 - j1.offset_rad, t2 - j2.offset_rad]
-    if arm.is_scara:
-        q3 = scara.quill_from_z(arm, targets[:, 2])
-        cols += [np.broadcast_to(q3, t1.shape),
-                 scara.roll_joint_from_heading(arm, t1, t2, targets[:, 3])]
-    out = np.empty((2, targets.shape[0], arm.n_joints))
-    ok = np.ones((2, targets.shape[0]), dtype=bool)
-    for i, (joint, col) in enumerate(zip(arm.joints, cols)):
-        value = wrap_into_limits_array(col, joint.min, joint.max) if joint.is_revolute else col
-        out[:, :, i] = value
-        ok &= (value >= joint.min - 1e-9) & (value <= joint.max + 1e-9)
-    return BatchIK(out, reachable, singular, ok & reachable)
+    columns = [np.ascontiguousarray(targets[:, i]) for i in range(width)]
+    out = np.empty((2, n, arm.n_joints))
+    ok = np.empty((2, n), dtype=bool)
+    reachable = np.empty(n, dtype=bool)
+    singular = np.empty(n, dtype=bool)
+
+    def block(start: int, stop: int) -> None:
+        t1 = np.empty((2, stop - start))
+        t2 = np.empty((2, stop - start))
+        planar.thetas_from_tool_xy_block(j1.a_mm, j2.a_mm, columns[0][start:stop],
+                                         columns[1][start:stop], t1, t2,
+                                         reachable[start:stop], singular[start:stop])
+        cols = [t1 - j1.offset_rad if j1.offset_rad else t1,
+                t2 - j2.offset_rad if j2.offset_rad else t2]
+        if arm.is_scara:
+            q3 = np.where(reachable[start:stop], scara.quill_from_z(arm, columns[2][start:stop]),
+                          np.nan)
+            cols += [np.broadcast_to(q3, t1.shape),
+                     scara.roll_joint_from_heading(arm, t1, t2, columns[3][start:stop])]
+        good = ok[:, start:stop]
+        good[:] = reachable[start:stop]
+        for i, (joint, col) in enumerate(zip(arm.joints, cols)):
+            value = wrap_into_limits_array(col, joint.min, joint.max) if joint.is_revolute else col
+            out[:, start:stop, i] = value
+            good &= value >= joint.min - LIMIT_TOL
+            good &= value <= joint.max + LIMIT_TOL
+
+    planar.run_blocks(n, block)
+    return BatchIK(out, reachable, singular, ok)
 
 
 __all__ = ["Solution", "IKResult", "TargetError", "joints_from_tool", "tool_from_joints",
