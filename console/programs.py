@@ -272,7 +272,7 @@ def step_from_mapping(raw: Any, source: str, number: int) -> Step:
                         else "missing ('move', 'dwell' or 'output')")
     extra = [k for k in raw if k not in _STEP_KEYS[action]]
     if extra:
-        raise FileError(source, f"{where}: {extra[0]}", f"unknown key for a {action} step")
+        raise FileError(source, f"{where}: {extra[0]}", f"unknown key for {'an' if action == 'output' else 'a'} {action} step")
     note = _text(source, where, raw, "note", "")
     if action == "move":
         point = _text(source, where, raw, "point")

@@ -97,6 +97,8 @@ def write_atomic(path: str | Path, text: str, *, backup: bool = True) -> None:
 def _keep_backup(path: Path) -> None:
     bak = backup_path(path)
     tmp_bak = bak.with_name(f".{bak.name}.{os.getpid()}.tmp")
+    if tmp_bak.exists():
+        tmp_bak.unlink()
     try:
         os.link(path, tmp_bak)
     except OSError:  # no hard links here (some file systems): copy instead
@@ -105,7 +107,14 @@ def _keep_backup(path: Path) -> None:
             handle.write(data)
             handle.flush()
             os.fsync(handle.fileno())
-    os.replace(tmp_bak, bak)
+    try:
+        os.replace(tmp_bak, bak)
+    except OSError:
+        try:
+            os.unlink(tmp_bak)
+        except OSError:
+            pass
+        raise
 
 
 def read_text(path: str | Path) -> str:
