@@ -31,7 +31,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from kinematics import profile, solve, sweep
+from kinematics import planar, profile, scara, solve, sweep
 from kinematics.limits import TWO_PI, limit_clearance, limit_problem
 from kinematics.model import Arm, Branch, Segment
 from kinematics.solve import TargetError
@@ -44,7 +44,7 @@ DENSE_STEP_MM = 0.5                  # refusal checks along a line: one IK pose 
 DENSE_MIN, DENSE_MAX = 65, 20001
 DEVIATION_SAMPLES = 17               # FK samples per candidate chord
 DEVIATION_SAFETY = 0.99              # accept a chord when its sampled deviation <= 0.99 tol
-CANDIDATE_FACTORS = np.geomspace(0.6, 1.6, 25)  # step lengths tried at once (4 % apart)
+CANDIDATE_FACTORS = np.geomspace(0.8, 1.25, 15)  # step lengths tried at once (3.2 % apart)
 NO_MOTION = 1e-12
 
 
@@ -216,8 +216,8 @@ def _path_findings(arm: Arm, knots: np.ndarray, where) -> tuple[list[str], list[
             else:
                 k = int(bad[bad > 0][0]) if (bad > 0).any() else k
                 problems.append(f"joint limit {where(k)}: {limit_problem(joint, float(knots[k, i]))}")
-        elif c.min() < _near_limit(arm, i):
-            k = int(np.argmin(c))
+        elif c[1:].min() < min(_near_limit(arm, i), c[0] - 1e-9):  # the move approaches it
+            k = 1 + int(np.argmin(c[1:]))
             warnings.append(f"near limit: {joint.name} comes within {_fmt_joint(arm, i, c.min())} "
                             f"of its soft limit {where(k)}")
     t2 = knots[:, 1] + arm.joints[1].offset_rad
@@ -358,7 +358,18 @@ class _Line:
         return pts[:, :2]
 
     def raw_joints(self, u: np.ndarray) -> np.ndarray:
-        return solve.joints_from_tool_batch(self.arm, self.targets(u)).joints[self.branch_row]
+        """IK on the branch (kinematics.planar.thetas_from_tool_xy_batch and the SCARA
+        quill and roll rows of kinematics.scara), not yet made continuous."""
+        arm = self.arm
+        pts = self.p0 + u[:, None] * (self.p1 - self.p0)
+        t1, t2, _, _ = planar.thetas_from_tool_xy_batch(arm.link1_mm, arm.link2_mm,
+                                                        pts[:, 0], pts[:, 1])
+        t1, t2 = t1[self.branch_row], t2[self.branch_row]
+        cols = [t1 - arm.joints[0].offset_rad, t2 - arm.joints[1].offset_rad]
+        if arm.is_scara:
+            cols += [np.full(u.shape, scara.quill_from_z(arm, 0.0)) - pts[:, 2],
+                     scara.roll_joint_from_heading(arm, t1, t2, self.roll0 + u * self.droll)]
+        return np.column_stack(cols)
 
     def joints(self, u: np.ndarray) -> np.ndarray:
         """IK on the branch, each revolute value made continuous with the table."""
@@ -379,16 +390,25 @@ class _Line:
         """Max distance of the FK of each joint chord qa -> qb[c] from the line
         segment, sampled at DEVIATION_SAMPLES points and refined by a parabola
         through the largest sample and its neighbours."""
-        tau = np.linspace(0.0, 1.0, DEVIATION_SAMPLES)
-        q = qa[None, None, :] + tau[None, :, None] * (qb - qa)[:, None, :]
-        _, pts = sweep.points_from_joints(self.arm, q)
+        arm = self.arm
+        tau = _TAU[None, :]
+        o1, o2 = arm.joints[0].offset_rad, arm.joints[1].offset_rad
+        t1 = (qa[0] + o1) + tau * (qb[:, 0, None] - qa[0])
+        t12 = t1 + (qa[1] + o2) + tau * (qb[:, 1, None] - qa[1])
+        rx = arm.link1_mm * np.cos(t1) + arm.link2_mm * np.cos(t12) - self.p0[0]
+        ry = arm.link1_mm * np.sin(t1) + arm.link2_mm * np.sin(t12) - self.p0[1]
         d = self.p1 - self.p0
-        rel = pts - self.p0
+        if arm.is_scara:
+            rz = -(tau * (qb[:, 2, None] - qa[2]) + (qa[2] - q3_at(arm, self.p0[2])))
+        else:
+            rz = 0.0
         dd = float(d @ d)
         if dd > 0:
-            s = np.clip(rel @ d / dd, 0.0, 1.0)
-            rel = rel - s[..., None] * d
-        dist = np.sqrt((rel * rel).sum(axis=-1))
+            s = np.clip((rx * d[0] + ry * d[1] + rz * d[2]) / dd, 0.0, 1.0)
+            rx = rx - s * d[0]
+            ry = ry - s * d[1]
+            rz = rz - s * d[2]
+        dist = np.sqrt(rx * rx + ry * ry + rz * rz)
         k = np.clip(dist.argmax(axis=1), 1, DEVIATION_SAMPLES - 2)
         rows = np.arange(len(k))
         ym, y0, yp = dist[rows, k - 1], dist[rows, k], dist[rows, k + 1]
@@ -397,6 +417,14 @@ class _Line:
             vertex = np.where(curv > 0, y0 + (yp - ym) ** 2 / (8 * curv), y0)
         vertex = np.minimum(vertex, y0 + np.abs(yp - ym))
         return np.maximum(dist.max(axis=1), vertex)
+
+
+_TAU = np.linspace(0.0, 1.0, DEVIATION_SAMPLES)
+
+
+def q3_at(arm: Arm, z_mm: float) -> float:
+    """The quill value at tool height z (kinematics.scara.quill_from_z)."""
+    return scara.quill_from_z(arm, z_mm)
 
 
 def _line_setup(arm: Arm, q0: np.ndarray, target: tuple[float, ...], branch: Branch
@@ -503,7 +531,7 @@ def _table_limit_problems(arm: Arm, line: _Line) -> list[str]:
 
 def _greedy_knots(line: _Line, q0: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
     """From each knot, the longest step of the line parameter whose joint chord stays
-    within ``tol`` of the line: 25 candidate steps 4 % apart around a predicted step
+    within ``tol`` of the line: 15 candidate steps 3.2 % apart around a predicted step
     are evaluated at once, and the largest whose candidates all pass is taken (a
     deviation of a short chord grows as the square of its length, the sagitta law, so
     the prediction is the last step scaled by sqrt(tol / deviation))."""
@@ -528,7 +556,7 @@ def _greedy_knots(line: _Line, q0: np.ndarray, tol: float) -> tuple[np.ndarray, 
             accepted = (cand[best], qb[best], dev[best])
             if prefix == len(ok) and cand[-1] < 1.0:
                 grow = math.sqrt(limit / dev[-1]) if dev[-1] > 0 else 4.0
-                h = (cand[-1] - ua) * min(4.0, max(1.05, grow)) / CANDIDATE_FACTORS[12]
+                h = (cand[-1] - ua) * min(4.0, max(1.05, grow)) / CANDIDATE_FACTORS[10]
                 continue
             break
         ub, qb_best, dev_best = accepted

@@ -50,9 +50,13 @@ def trapezoid_segments(v_max: float, a_max: float) -> list[tuple[float, float]]:
     Args:
         v_max: max rate of s (1/s); a_max: max acceleration of s (1/s^2).
 
-    >>> segs = trapezoid_segments(2.0, 8.0)       # V/A = 0.25 s ramps, 0.25 s cruise
+    With V = 2/s and A = 8/s^2 the continuous trapezoid has 0.25 s ramps and a
+    0.25 s cruise (0.75 s); here 8 + 1 + 8 segments, each ramp segment 32 ms (31.25
+    rounded up), 0.756 s in all:
+
+    >>> segs = trapezoid_segments(2.0, 8.0)
     >>> len(segs), round(sum(t for _, t in segs), 3), segs[-1][0]
-    (21, 0.75, 1.0)
+    (17, 0.756, 1.0)
     """
     if v_max * v_max <= a_max:
         ramp = v_max / a_max
@@ -110,7 +114,7 @@ def segment_rates(start: np.ndarray, joints: np.ndarray, durations: np.ndarray
 
     >>> w, a = segment_rates(np.zeros(1), np.array([[1.0], [3.0]]), np.array([1.0, 1.0]))
     >>> w.ravel().tolist(), a.ravel().tolist()
-    [[1.0, 2.0], [2.0, 1.0, -4.0]]
+    ([1.0, 2.0], [2.0, 1.0, -4.0])
     """
     q = np.vstack([start, joints])
     w = np.diff(q, axis=0) / durations[:, None]

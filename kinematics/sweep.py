@@ -26,7 +26,8 @@ from kinematics.model import Arm
 from kinematics.scara import flange_z_mm
 
 ZONE_STEP_MIN_MM = 1e-3   # the sweep stops refining once samples are this close in motion
-ZONE_REPORT_MM = 0.25     # closest approaches are reported to within this much
+ZONE_REPORT_MM = 0.25     # closest approaches are reported to within this much ...
+ZONE_REPORT_REL = 0.05    # ... or 5 % of the clearance, whichever is larger
 
 
 # --------------------------------------------------------------------------- points
@@ -238,7 +239,7 @@ class Contact:
 
 @dataclass(frozen=True)
 class SweepResult:
-    clearance_mm: dict[str, float]   # closest approach per zone (part_gaps sense; inf: never level)
+    clearance_mm: dict[str, float]   # closest approach per zone: the combined gap (zone_gaps)
     contact: Contact | None          # first entry into a zone along the path, or None
     samples: int                     # poses evaluated
 
@@ -254,8 +255,8 @@ def sweep_zones(arm: Arm, knots: np.ndarray) -> SweepResult:
     Intervals that are not are bisected (vectorised) until certified, a sample with
     g < 0 is found (contact), or K_j h < ZONE_STEP_MIN_MM (a contact within 1 um of
     the grown zone: treated as contact). Intervals are also refined while their bound
-    is more than ZONE_REPORT_MM below the closest sampled gap of that zone, so the
-    reported clearance is the true closest approach to within ZONE_REPORT_MM.
+    is more than max(ZONE_REPORT_MM, ZONE_REPORT_REL * gap) below the closest sampled gap
+    of that zone, so the reported clearance is the true closest approach to within that.
     """
     knots = np.atleast_2d(np.asarray(knots, dtype=float))
     names = [z.name for z in arm.zones]
@@ -265,7 +266,7 @@ def sweep_zones(arm: Arm, knots: np.ndarray) -> SweepResult:
     rate = np.maximum(lever_mm(arm, dq), z_step_mm(arm, dq))
     comb, rep, part_names = zone_gaps(arm, knots)
     c = comb.min(axis=2)  # (N, Z) per zone
-    best = rep.min(axis=2).min(axis=0)
+    best = c.min(axis=0)
     samples = knots.shape[0]
     contacts: list[Contact] = []
 
@@ -287,7 +288,8 @@ def sweep_zones(arm: Arm, knots: np.ndarray) -> SweepResult:
         step = rate[seg] * h
         lower = (ca + cb - step[:, None]) / 2.0
         free = (ca >= 0) & (cb >= 0)
-        need = ((lower < 0) | (lower < best[None, :] - ZONE_REPORT_MM)) & free[:, :]
+        slack = np.maximum(ZONE_REPORT_MM, ZONE_REPORT_REL * np.abs(best))[None, :]
+        need = ((lower < 0) | (lower < best[None, :] - slack)) & free[:, :]
         unresolved = need.any(axis=1) & (step >= ZONE_STEP_MIN_MM)
         tiny = (lower < 0).any(axis=1) & free.all(axis=1) & (step < ZONE_STEP_MIN_MM)
         for k in np.flatnonzero(tiny):
@@ -302,7 +304,7 @@ def sweep_zones(arm: Arm, knots: np.ndarray) -> SweepResult:
         comb_m, rep_m, _ = zone_gaps(arm, qm)
         cm = comb_m.min(axis=2)
         samples += len(tm)
-        best = np.minimum(best, rep_m.min(axis=2).min(axis=0))
+        best = np.minimum(best, cm.min(axis=0))
         note_contacts(seg, tm, cm, comb_m)
         seg = np.concatenate([seg, seg])
         ta, tb = np.concatenate([ta, tm]), np.concatenate([tm, tb])
