@@ -1,0 +1,527 @@
+"""The Textual console: BenchjogApp, the ``make_app`` factory and ``run_console``.
+
+The app owns the interlock (never a raw driver) and the global keys: stop, reset,
+drives on/off, home, teach, quit. Every motion is a Proposal from the interlock,
+executed by ``Interlock.execute(proposal, confirmer)`` in a worker thread; the
+confirmer shows ConfirmMoveScreen on the UI thread and waits for the answer. Driver
+I/O never runs on the UI thread except ``stop()``, which returns at once.
+
+A timer (POLL_S) reads ``state()`` and ``poll_events()`` in a thread worker and posts
+StateUpdated; it keeps running while a modal is open.
+"""
+
+from __future__ import annotations
+
+import importlib
+import importlib.util
+import math
+import threading
+from dataclasses import dataclass
+from pathlib import Path
+
+from textual import work
+from textual.app import App
+from textual.binding import Binding
+
+from console.messages import ControlDone, MotionDone, StateUpdated
+from console.screens.confirm import ConfirmMoveScreen
+from console.screens.jog import JogScreen
+from drivers.interlock import Confirmer, Interlock, Proposal
+from kinematics.model import Arm, Branch
+from kinematics.solve import IKResult, joints_from_tool, pose_warnings, tool_from_joints
+
+POLL_S = 0.15               # the heartbeat / state refresh period
+STEPS = (0.1, 1.0, 10.0)    # jog steps: mm (Cartesian), deg (roll and revolute joints), mm (quill)
+TEACH_MODULE = "console.screens.teach"
+BLOCKING_MODES = ("ESTOP", "FAULT")
+
+
+def one_line(exc: BaseException) -> str:
+    text = str(exc).strip().splitlines()
+    return text[0] if text else type(exc).__name__
+
+
+@dataclass(frozen=True)
+class MotionRequest:
+    """What a person asked for; planned in the worker from the arm's position then."""
+
+    kind: str                                  # "jog", "move", "home"
+    axis: str = ""                             # jog: x, y, z, roll, j1..j4
+    delta: float = 0.0                         # jog: mm or rad
+    target: tuple[float, ...] | None = None    # move: tool target (mm, rad)
+    branch: Branch | None = None               # move
+    path: str = "joint"                        # move
+
+    def words(self, arm: Arm) -> str:
+        if self.kind == "home":
+            return "home"
+        if self.kind == "jog":
+            if self.axis.startswith("j"):
+                joint = arm.joints[int(self.axis[1:]) - 1]
+                return f"jog {joint.name} {joint.to_display(self.delta):+g} {joint.unit}"
+            if self.axis == "roll":
+                return f"jog roll {math.degrees(self.delta):+g} deg"
+            return f"jog {self.axis} {self.delta:+g} mm"
+        return f"move ({self.branch or 'nearest branch'}, {self.path} path)"
+
+
+class ScreenConfirmer(Confirmer):
+    """The console's confirmer: shows ConfirmMoveScreen on the UI thread and blocks the
+    calling worker thread until the person answers (or the app closes: no)."""
+
+    def __init__(self, app: "BenchjogApp"):
+        self.app = app
+
+    def confirm(self, proposal: Proposal) -> bool:
+        if threading.get_ident() == getattr(self.app, "_thread_id", None):
+            return False   # never block the UI thread waiting for itself
+        if self.app.closing:
+            return False
+        answered = threading.Event()
+        box = {"yes": False}
+
+        def on_answer(result: bool | None) -> None:
+            box["yes"] = result is True
+            answered.set()
+
+        screen = ConfirmMoveScreen(proposal.lines(self.app.arm), title=proposal.request)
+        try:
+            self.app.call_from_thread(self.app.show_confirm, screen, on_answer)
+        except RuntimeError:
+            return False   # the app is not running
+        while not answered.wait(0.05):
+            if self.app.closing:
+                return False
+        return box["yes"]
+
+
+class BenchjogApp(App):
+    """The console. Build it with :func:`make_app`."""
+
+    CSS_PATH = "benchjog.tcss"
+    TITLE = "benchjog"
+    ENABLE_COMMAND_PALETTE = False
+
+    BINDINGS = [
+        Binding("space", "stop", "stop", tooltip="Stop the arm at once (never asks)",
+                id="app.stop"),
+        Binding("s", "stop", "stop", show=False, tooltip="Stop the arm at once (never asks)",
+                id="app.stop-s"),
+        Binding("e", "drives", "drives", tooltip="Switch the drives on (enable) or off (disable)",
+                id="app.drives"),
+        Binding("h", "home", "home", tooltip="Run the controller's homing cycle (asks first)",
+                id="app.home"),
+        Binding("r", "reset", "reset", tooltip="Clear a latched e-stop (once released), fault or "
+                "lost link", id="app.reset"),
+        Binding("t", "teach", "teach", tooltip="Teach points and edit programs", id="app.teach"),
+        Binding("ctrl+q", "quit", "quit", tooltip="Stop any motion and quit", priority=True,
+                id="app.quit"),
+    ]
+
+    def __init__(self, arm: Arm, interlock: Interlock, *, points_path: Path | str | None = None,
+                 program_path: Path | str | None = None, driver_name: str | None = None):
+        super().__init__()
+        self.arm = arm
+        self.interlock = interlock
+        self.points_path = Path(points_path) if points_path else None
+        self.program_path = Path(program_path) if program_path else None
+        self.driver_name = driver_name or ("sim" if interlock.sim is not None else "serial")
+        self.confirmer = ScreenConfirmer(self)
+        self.closing = False
+        # what the UI shows, all written on the UI thread only
+        self.state = None
+        self.state_error: str | None = None
+        self.polled_at: float | None = None
+        self.joint_mode = False
+        self.step = 1.0
+        self.path = "joint"
+        self.speed_pct = 100.0
+        self.target: tuple[float, ...] | None = None
+        self.target_ik: IKResult | None = None
+        self.branch: Branch | None = None
+        self.last_end_joints: tuple[float, ...] | None = None
+        self.plan_warnings: list[str] = []
+        self.message = ""
+        self.busy: MotionRequest | None = None
+        self.pending: MotionRequest | None = None
+        self.confirm_screen: ConfirmMoveScreen | None = None
+        self._polling = False
+        self._readiness: tuple | None = None
+        self._has_teach: bool | None = None
+        self.jog_screen = JogScreen(arm)
+
+    # -- life cycle --------------------------------------------------------------------
+    def on_mount(self) -> None:
+        self.push_screen(self.jog_screen)
+        self.set_interval(POLL_S, self._poll_tick)
+        self._poll_tick()
+
+    def on_unmount(self) -> None:
+        self.closing = True
+
+    # -- state refresh (thread worker, never blocks the UI) ------------------------------
+    def _poll_tick(self) -> None:
+        if self._polling or self.closing:
+            return
+        self._polling = True
+        self._poll_worker()
+
+    @work(thread=True, group="poll", exit_on_error=False)
+    def _poll_worker(self) -> None:
+        try:
+            state = self.interlock.state()
+            events = self.interlock.poll_events()
+        except Exception as exc:  # noqa: BLE001 - a dead link is shown, never a crash
+            self.post_message(StateUpdated(None, [], one_line(exc)))
+            return
+        self.post_message(StateUpdated(state, events))
+
+    def on_state_updated(self, message: StateUpdated) -> None:
+        self._polling = False
+        self.state_error = message.error
+        if message.state is not None:
+            self.state = message.state
+            self.polled_at = self._clock()
+        elif message.error:
+            self.state = None
+        for event in message.events:
+            self.jog_screen.log_event(event.kind, event.detail)
+        self.refresh_view()
+
+    @staticmethod
+    def _clock() -> float:
+        import time
+        return time.monotonic()
+
+    # -- what the screen shows -----------------------------------------------------------
+    @property
+    def motion_active(self) -> bool:
+        return self.busy is not None
+
+    @property
+    def actual(self) -> tuple[float, ...] | None:
+        return tuple(self.state.joints) if self.state is not None else None
+
+    def ready(self) -> bool:
+        """True when the driver would take a motion now (connected, drives on, homed,
+        nothing latched)."""
+        s = self.state
+        return (s is not None and not self.state_error and s.is_open and s.enabled and s.homed
+                and not s.latched and getattr(s.mode, "value", "") not in BLOCKING_MODES)
+
+    def latched(self) -> bool:
+        s = self.state
+        return s is not None and (bool(s.latched) or getattr(s.mode, "value", "") in BLOCKING_MODES)
+
+    def current_ik(self) -> tuple[IKResult | None, Branch | None, str]:
+        """The IK of the typed target (or of the tool's present pose when none), the
+        active branch and a title for the branch table."""
+        if self.target is not None:
+            return self.target_ik, self.branch, "branches for the target"
+        joints = self.actual
+        if joints is None:
+            return None, None, "branches"
+        pose = tool_from_joints(self.arm, joints)
+        ik = joints_from_tool(self.arm, pose[:2] if not self.arm.is_scara else pose)
+        return ik, self.branch_of(joints), "branches here (no target typed)"
+
+    def branch_of(self, joints) -> Branch:
+        t2 = joints[1] + self.arm.joints[1].offset_rad
+        return Branch.ELBOW_DOWN if math.sin(t2) >= 0 else Branch.ELBOW_UP
+
+    def warnings(self) -> list[str]:
+        out: list[str] = []
+        if self.target_ik is not None and self.target is not None:
+            out += list(self.target_ik.warnings)
+            sol = self.target_ik.solution(self.branch) if self.branch else None
+            if sol is not None and not sol.usable:
+                out += [f"{sol.branch}: {p}" for p in sol.problems]
+        if self.actual is not None:
+            out += [f"now: {w}" for w in pose_warnings(self.arm, self.actual)]
+        out += self.plan_warnings
+        return out
+
+    def reach_warning(self) -> str | None:
+        if self.target_ik is not None and not self.target_ik.reachable:
+            return self.target_ik.warnings[0] if self.target_ik.warnings else "out of reach"
+        return None
+
+    def refresh_view(self) -> None:
+        if self.jog_screen.is_mounted:
+            self.jog_screen.refresh_view()
+        readiness = (self.ready(), self.latched(), self.busy is not None, self.joint_mode,
+                     self.target is not None, self.branch, self._state_bits())
+        if readiness != self._readiness:
+            self._readiness = readiness
+            self.refresh_bindings()
+            if self.jog_screen.is_mounted:
+                self.jog_screen.refresh_bindings()
+
+    def _state_bits(self) -> tuple:
+        s = self.state
+        return (None,) if s is None else (s.is_open, s.enabled, s.homed)
+
+    def set_message(self, words: str, *, error: bool = False) -> None:
+        self.message = words
+        if self.jog_screen.is_mounted:
+            self.jog_screen.show_message(words, error=error)
+
+    # -- target and branch -------------------------------------------------------------
+    def set_target(self, target: tuple[float, ...]) -> None:
+        """A typed target: its IK, and the usable branch nearest the present joints."""
+        self.target = tuple(target)
+        self.target_ik = joints_from_tool(self.arm, self.target)
+        self.plan_warnings = []
+        ik = self.target_ik
+        if not ik.reachable:
+            self.branch = None
+            self.set_message(f"target out of reach: {ik.warnings[0] if ik.warnings else ''}"
+                             " (nothing moves)", error=True)
+        else:
+            here = self.actual or self.arm.home_joints
+            choices = ik.usable or ik.solutions
+            best = min(choices, key=lambda s: sum((a - b) ** 2 for a, b in zip(s.joints, here)))
+            self.branch = best.branch
+            if ik.usable:
+                self.set_message(f"target set: {best.branch} chosen; m moves, b picks the other "
+                                 "branch")
+            else:
+                self.set_message("no usable branch for this target (see branches); nothing "
+                                 "moves", error=True)
+        self.refresh_view()
+
+    def clear_target(self) -> None:
+        self.target = None
+        self.target_ik = None
+        self.branch = None
+        self.set_message("target cleared")
+        self.refresh_view()
+
+    def choose_branch(self, branch: Branch) -> None:
+        if self.target is None:
+            joints = self.actual
+            if joints is None:
+                return
+            pose = tool_from_joints(self.arm, joints)
+            self.target = tuple(pose[:2]) if not self.arm.is_scara else tuple(pose)
+            self.target_ik = joints_from_tool(self.arm, self.target)
+        self.branch = Branch(branch)
+        sol = self.target_ik.solution(self.branch) if self.target_ik else None
+        if sol is not None and sol.usable:
+            self.set_message(f"{self.branch} chosen; m moves there")
+        else:
+            self.set_message(f"{self.branch} chosen but not usable: "
+                             f"{'; '.join(sol.problems) if sol else 'no solution'}", error=True)
+        self.refresh_view()
+
+    def planned_joints(self) -> tuple[float, ...] | None:
+        if self.target_ik is None or self.branch is None:
+            return None
+        sol = self.target_ik.solution(self.branch)
+        return sol.joints if sol is not None else None
+
+    def other_joints(self) -> tuple[float, ...] | None:
+        ik, active, _ = self.current_ik()
+        if ik is None or not ik.reachable or len(ik.solutions) < 2 or active is None:
+            return None
+        sol = ik.solution(active.other())
+        return sol.joints if sol is not None else None
+
+    def commanded_joints(self) -> tuple[float, ...] | None:
+        return self.planned_joints() if self.target is not None else self.last_end_joints
+
+    # -- motion ------------------------------------------------------------------------
+    def jog(self, axis: str, sign: int) -> None:
+        if axis.startswith("j"):
+            joint = self.arm.joints[int(axis[1:]) - 1]
+            delta = joint.from_display(sign * self.step)
+        elif axis == "roll":
+            delta = math.radians(sign * self.step)
+        else:
+            delta = sign * self.step
+        self.request_motion(MotionRequest("jog", axis=axis, delta=delta))
+
+    def move_to_target(self) -> None:
+        if self.target is None:
+            self.set_message("type a target first (g)", error=True)
+            return
+        self.request_motion(MotionRequest("move", target=self.target, branch=self.branch,
+                                          path=self.path))
+
+    def request_motion(self, request: MotionRequest) -> None:
+        """Start a motion, or keep it in the one pending slot while a jog runs (a newer
+        jog replaces the pending one: holding a key never piles up moves)."""
+        if self.busy is not None:
+            if request.kind == "jog" and self.busy.kind == "jog":
+                self.pending = request
+                self.jog_screen.refresh_view()
+            else:
+                self.set_message(f"busy with {self.busy.words(self.arm)}: wait, or stop (space)",
+                                 error=True)
+            return
+        self.busy = request
+        self.plan_warnings = []
+        self.refresh_view()
+        self._motion_worker(request)
+
+    @work(thread=True, exclusive=True, group="motion", exit_on_error=False)
+    def _motion_worker(self, request: MotionRequest) -> None:
+        done: MotionDone | None = None
+        try:
+            done = self._run_motion(request)
+        except Exception as exc:  # noqa: BLE001 - one line in the UI, never a crash
+            done = MotionDone(request, request.words(self.arm), "error", f"error: {one_line(exc)}")
+        finally:
+            self.post_message(done or MotionDone(request, request.words(self.arm), "error",
+                                                 "error: the motion ended without a result"))
+
+    def _run_motion(self, request: MotionRequest) -> MotionDone:
+        """Runs in the worker thread: plan (interlock), refuse or execute (interlock)."""
+        gate = self.interlock
+        if request.kind == "home":
+            result = gate.home(self.confirmer)
+            return MotionDone(request, "home", result.outcome, result.detail)
+        if request.kind == "jog":
+            proposal = gate.propose_jog(request.axis, request.delta, speed_pct=self.speed_pct)
+        else:
+            proposal = gate.propose_move(request.target, branch=request.branch, path=request.path,
+                                         speed_pct=self.speed_pct)
+        warnings = tuple(w for plan in proposal.plans
+                         for w in getattr(plan.summary, "warnings", ()) or ())
+        if not proposal.ok:
+            return MotionDone(request, proposal.request, "refused",
+                              "refused: " + "; ".join(proposal.verdict.reasons),
+                              proposal.verdict.reasons, warnings=warnings)
+        ends = [p.segments[-1].joints for p in proposal.plans if p.segments]
+        result = gate.execute(proposal, self.confirmer)
+        return MotionDone(request, proposal.request, result.outcome, result.detail,
+                          end_joints=tuple(ends[-1]) if ends and result.completed else None,
+                          warnings=warnings)
+
+    def on_motion_done(self, message: MotionDone) -> None:
+        self.busy = None
+        self.plan_warnings = [f"last plan: {w}" for w in message.warnings]
+        self.plan_warnings += [f"refused: {r}" for r in message.reasons]
+        self.jog_screen.log_event(message.outcome, f"{message.words}: {message.detail}")
+        if message.end_joints is not None:
+            self.last_end_joints = message.end_joints
+        ok = message.outcome == "done"
+        self.set_message(f"{message.words}: {message.detail}", error=not ok)
+        pending, self.pending = self.pending, None
+        self.refresh_view()
+        if pending is not None and ok:
+            self.request_motion(pending)
+
+    def show_confirm(self, screen: ConfirmMoveScreen, callback) -> None:
+        """On the UI thread: push the confirmation; remember it so stop can answer no."""
+        self.confirm_screen = screen
+
+        def answered(result: bool | None) -> None:
+            self.confirm_screen = None
+            callback(result)
+
+        self.push_screen(screen, answered)
+
+    # -- controls (driver I/O in a worker, stop at once) ----------------------------------
+    def action_stop(self) -> None:
+        self.pending = None
+        self.interlock.stop()            # returns at once, from the UI thread
+        if self.confirm_screen is not None and self.confirm_screen.is_attached:
+            self.confirm_screen.action_answer(False)
+        self.jog_screen.log_event("stop", "stop sent")
+        self.set_message("stop sent", error=True)
+
+    def action_drives(self) -> None:
+        on = self.state is not None and self.state.enabled
+        self._control_worker("disable" if on else "enable")
+
+    def action_reset(self) -> None:
+        self._control_worker("reset")
+
+    @work(thread=True, group="control", exit_on_error=False)
+    def _control_worker(self, what: str) -> None:
+        try:
+            getattr(self.interlock, what)()
+        except Exception as exc:  # noqa: BLE001 - one line in the UI
+            self.post_message(ControlDone(what, one_line(exc)))
+            return
+        self.post_message(ControlDone(what))
+
+    def on_control_done(self, message: ControlDone) -> None:
+        if message.error:
+            self.jog_screen.log_event(message.what, f"failed: {message.error}")
+            self.set_message(f"{message.what} failed: {message.error}", error=True)
+        else:
+            self.jog_screen.log_event(message.what, "done")
+            self.set_message(f"{message.what}: done")
+        self._poll_tick()
+
+    def action_home(self) -> None:
+        self.request_motion(MotionRequest("home"))
+
+    def has_teach(self) -> bool:
+        if self._has_teach is None:
+            try:
+                self._has_teach = importlib.util.find_spec(TEACH_MODULE) is not None
+            except (ImportError, ValueError):
+                self._has_teach = False
+        return self._has_teach
+
+    def action_teach(self) -> None:
+        try:
+            module = importlib.import_module(TEACH_MODULE)
+            screen = module.TeachScreen(self.interlock, self.arm, self.points_path,
+                                        self.program_path)
+        except Exception as exc:  # noqa: BLE001 - a broken plug-in screen is one line
+            self.set_message(f"teach screen unavailable: {one_line(exc)}", error=True)
+            return
+        self.push_screen(screen)
+
+    async def action_quit(self) -> None:
+        try:
+            self.interlock.stop()
+        finally:
+            self.closing = True
+            self.exit(0)
+
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        if action == "drives":
+            s = self.state
+            if s is None or not s.is_open:
+                return None
+            return True if s.enabled else (None if self.latched() else True)
+        if action == "home":
+            s = self.state
+            ok = (s is not None and s.is_open and s.enabled and not self.latched()
+                  and self.busy is None)
+            return True if ok else None
+        if action == "reset":
+            return True if self.latched() else None
+        if action == "teach":
+            return True if (self.has_teach() and self.busy is None) else None
+        return True
+
+
+def make_app(arm: Arm, interlock: Interlock, *, points_path: Path | str | None = None,
+             program_path: Path | str | None = None) -> BenchjogApp:
+    """The console on an open interlock (shared by the CLI and the tests). The caller
+    closes the interlock."""
+    return BenchjogApp(arm, interlock, points_path=points_path, program_path=program_path)
+
+
+def run_console(args) -> int:
+    """``benchjog`` with no subcommand: the console on the simulated arm, or on a
+    controller over serial when ``--port`` is given."""
+    from console.armfile import load_arm
+
+    arm = load_arm(args.arm)
+    port = getattr(args, "port", None)
+    if port:
+        gate = Interlock.open(arm, "serial", port=port, baud=getattr(args, "baud", 115200))
+    else:
+        gate = Interlock.open(arm, "sim")
+    try:
+        make_app(arm, gate).run()
+    finally:
+        gate.close()
+    return 0

@@ -1,0 +1,1 @@
+"""The console's screens: JogScreen (the main one) and ConfirmMoveScreen (the modal)."""

@@ -1,0 +1,55 @@
+"""ConfirmMoveScreen: the yes/no question before anything moves."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Vertical, VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import Footer, Static
+
+
+class ConfirmMoveScreen(ModalScreen[bool]):
+    """Shows a proposal's lines (Proposal.lines(arm)); y -> True, n or escape -> False.
+
+    Lines starting with ``REFUSED:`` or ``warning`` are highlighted. The app's stop key
+    still works while this is open (it answers False)."""
+
+    BINDINGS = [
+        Binding("y", "answer(True)", "yes, move", tooltip="Confirm: send this motion to the arm",
+                id="confirm.yes"),
+        Binding("n", "answer(False)", "no", tooltip="Cancel: nothing moves", id="confirm.no"),
+        Binding("escape", "answer(False)", "cancel", tooltip="Cancel: nothing moves",
+                id="confirm.cancel"),
+    ]
+
+    def __init__(self, lines: Sequence[str], *, title: str = "confirm motion"):
+        super().__init__()
+        self.lines = list(lines)
+        self.title_words = title
+        self.answered = False
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="confirm-box"):
+            yield Static(Text(self.title_words, style="bold"), id="confirm-title")
+            with VerticalScroll(id="confirm-body"):
+                text = Text()
+                for n, line in enumerate(self.lines):
+                    if n:
+                        text.append("\n")
+                    low = line.lower()
+                    style = ("bold red" if line.startswith("REFUSED") else
+                             "yellow" if ("warning" in low or "near" in low) else "")
+                    text.append(line, style=style)
+                yield Static(text, id="confirm-lines")
+            yield Static(Text("y: move now    n / escape: cancel (nothing moves)",
+                              style="bold"), id="confirm-keys")
+        yield Footer()
+
+    def action_answer(self, yes: bool) -> None:
+        if not self.answered:
+            self.answered = True
+            self.dismiss(bool(yes))

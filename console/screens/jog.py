@@ -1,0 +1,221 @@
+"""JogScreen: the main screen. Jog keys, the target field, the pose sketch, both IK
+branches, the pose readout, warnings, the link state and recent events.
+
+The screen only shows what the app holds and turns keys into app calls; the app owns
+the interlock, the workers and the state.
+"""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical
+from textual.css.query import NoMatches
+from textual.screen import Screen
+from textual.widgets import Footer, Static
+
+from console.widgets.branch_table import BranchTable
+from console.widgets.joint_readout import JointReadout
+from console.widgets.sketch import PoseSketch
+from console.widgets.status import (Banner, EventLog, JogStatus, LinkStatus, WarningsPanel,
+                                    banner_lines, link_words)
+from console.widgets.target_input import TargetInput
+from kinematics.model import Arm
+
+CARTESIAN_AXES = ("x", "y", "z", "roll")
+SCARA_ONLY = ("z", "roll", "j3", "j4")
+
+
+def _jog_pair(minus_key: str, plus_key: str, axis: str, label: str, what: str,
+              group: Binding.Group) -> list[Binding]:
+    return [
+        Binding(minus_key, f"jog('{axis}', -1)", f"{label}-", tooltip=f"Jog {what} minus one step",
+                id=f"jog.{axis}-minus", group=group),
+        Binding(plus_key, f"jog('{axis}', 1)", f"{label}+", tooltip=f"Jog {what} plus one step",
+                id=f"jog.{axis}-plus", group=group),
+    ]
+
+
+def jog_bindings() -> list[Binding]:
+    """The jog keys: the same keys jog the tool (Cartesian mode) or single joints
+    (joint mode); check_action hides the set that is not in use."""
+    keys = (("left", "right"), ("down", "up"), ("pagedown", "pageup"),
+            ("left_square_bracket", "right_square_bracket"))
+    out: list[Binding] = []
+    for (minus, plus), axis in zip(keys, CARTESIAN_AXES):
+        what = "the tool roll" if axis == "roll" else f"the tool along {axis}"
+        out += _jog_pair(minus, plus, axis, axis, what, Binding.Group(axis, compact=True))
+    for n, (minus, plus) in enumerate(keys, 1):
+        out += _jog_pair(minus, plus, f"j{n}", f"j{n}", f"joint {n}",
+                         Binding.Group(f"j{n}", compact=True))
+    return out
+
+
+STEP_GROUP = Binding.Group("step", compact=True)
+
+
+class JogScreen(Screen):
+    AUTO_FOCUS = ""   # nothing focused: keys go to the screen; g focuses the target field
+
+    BINDINGS = jog_bindings() + [
+        Binding("1", "step(0.1)", "0.1", tooltip="Jog step 0.1 mm / 0.1 deg", id="jog.step-fine",
+                group=STEP_GROUP),
+        Binding("2", "step(1.0)", "1", tooltip="Jog step 1 mm / 1 deg", id="jog.step-1",
+                group=STEP_GROUP),
+        Binding("3", "step(10.0)", "10", tooltip="Jog step 10 mm / 10 deg", id="jog.step-10",
+                group=STEP_GROUP),
+        Binding("j", "joint_mode", "joint/cart", tooltip="Switch between jogging the tool "
+                "(Cartesian) and single joints", id="jog.joint-mode"),
+        Binding("g", "focus_target", "target", tooltip="Type an exact target (enter previews it)",
+                id="jog.target"),
+        Binding("m", "move", "move", tooltip="Move to the target on the chosen branch (asks first)",
+                id="jog.move"),
+        Binding("b", "branch", "branch", tooltip="Choose the other IK branch (elbow-up / "
+                "elbow-down)", id="jog.branch"),
+        Binding("p", "path", "path", tooltip="Move path: joint interpolation or a straight line",
+                id="jog.path"),
+        Binding("escape", "clear_target", "clear", show=False, tooltip="Forget the typed target",
+                id="jog.clear"),
+    ]
+
+    def __init__(self, arm: Arm):
+        super().__init__()
+        self.arm = arm
+
+    def compose(self) -> ComposeResult:
+        yield Banner(id="banner")
+        with Horizontal(id="main"):
+            with Vertical(id="left"):
+                yield PoseSketch(self.arm, id="sketch")
+            with Vertical(id="right"):
+                yield LinkStatus(id="link")
+                yield JointReadout(self.arm, id="readout")
+                yield BranchTable(self.arm, id="branches")
+                yield WarningsPanel(id="warnings")
+        with Horizontal(id="bottom"):
+            with Vertical(id="entry"):
+                yield TargetInput(self.arm, id="target")
+                yield JogStatus(id="jogstatus")
+                yield Static("", id="message")
+            yield EventLog(id="events")
+        yield Footer(compact=True)
+
+    def on_mount(self) -> None:
+        self.query_one("#sketch").border_title = f"{self.arm.name}: seen from above" + (
+            " and from the side" if self.arm.is_scara else "")
+        self.set_focus(None)
+        self.refresh_view()
+
+    # -- showing the app's state ---------------------------------------------------------
+    def refresh_view(self) -> None:
+        if not self.is_mounted:
+            return
+        try:
+            self._refresh_view()
+        except NoMatches:
+            pass   # the screen is being taken down
+
+    def _refresh_view(self) -> None:
+        app = self.app
+        self.query_one(Banner).show(banner_lines(app.state, app.state_error, app.reach_warning()))
+        polled = None if app.polled_at is None else max(0.0, app._clock() - app.polled_at)
+        self.query_one(LinkStatus).show(link_words(app.state, app.driver_name, app.state_error,
+                                                   polled))
+        actual = app.actual
+        self.query_one(JointReadout).show(actual, app.commanded_joints())
+        ik, active, title = app.current_ik()
+        self.query_one(BranchTable).show(ik, active, title)
+        self.query_one(WarningsPanel).show(app.warnings())
+        self.query_one(PoseSketch).show(actual, target=app.target,
+                                        other_joints=app.other_joints(),
+                                        planned_joints=app.planned_joints())
+        self.query_one(JogStatus).show(self.jog_words())
+
+    def jog_words(self) -> str:
+        app = self.app
+        mode = "joints" if app.joint_mode else "tool (Cartesian)"
+        unit = "mm / deg" if (app.joint_mode or self.arm.is_scara) else "mm"
+        state = ("moving: " + app.busy.words(self.arm)) if app.busy is not None else "idle"
+        if app.pending is not None:
+            state += f"; next: {app.pending.words(self.arm)}"
+        return (f"jog {mode}   step {app.step:g} {unit}   path {app.path}   "
+                f"speed {app.speed_pct:g} %   {state}")
+
+    def show_message(self, words: str, *, error: bool = False) -> None:
+        try:
+            self.query_one("#message", Static).update(
+                Text(words, style="bold red" if error else "green", no_wrap=True,
+                     overflow="ellipsis"))
+        except NoMatches:
+            pass
+
+    def log_event(self, kind: str, detail: str) -> None:
+        try:
+            self.query_one(EventLog).add(kind, detail)
+        except NoMatches:
+            pass
+
+    # -- messages from the widgets -------------------------------------------------------
+    def on_target_input_target_chosen(self, message: TargetInput.TargetChosen) -> None:
+        self.app.set_target(message.target)
+
+    def on_target_input_rejected(self, message: TargetInput.Rejected) -> None:
+        self.app.set_message(f"bad target: {message.reason} (nothing moves)", error=True)
+
+    def on_branch_table_branch_chosen(self, message: BranchTable.BranchChosen) -> None:
+        self.app.choose_branch(message.branch)
+
+    # -- keys --------------------------------------------------------------------------
+    def action_jog(self, axis: str, sign: int) -> None:
+        self.app.jog(axis, int(sign))
+
+    def action_step(self, step: float) -> None:
+        self.app.step = float(step)
+        self.refresh_view()
+
+    def action_joint_mode(self) -> None:
+        self.app.joint_mode = not self.app.joint_mode
+        self.app.refresh_view()
+
+    def action_focus_target(self) -> None:
+        self.query_one(TargetInput).focus()
+
+    def action_move(self) -> None:
+        self.app.move_to_target()
+
+    def action_branch(self) -> None:
+        table = self.query_one(BranchTable)
+        other = table.other_branch()
+        if other is not None:
+            table.choose_other()
+
+    def action_path(self) -> None:
+        self.app.path = "line" if self.app.path == "joint" else "joint"
+        self.refresh_view()
+
+    def action_clear_target(self) -> None:
+        if self.app.target is not None:
+            self.app.clear_target()
+
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        app = self.app
+        if action == "jog":
+            axis = str(parameters[0])
+            if axis in SCARA_ONLY and not self.arm.is_scara:
+                return False
+            if (axis in CARTESIAN_AXES) == app.joint_mode:
+                return False
+            if not app.ready():
+                return None
+            if app.busy is not None and app.busy.kind != "jog":
+                return None
+            return True
+        if action == "move":
+            sol = app.target_ik.solution(app.branch) if (app.target_ik and app.branch) else None
+            ok = sol is not None and sol.usable and app.ready() and app.busy is None
+            return True if ok else None
+        if action == "branch":
+            ik, _active, _ = app.current_ik()
+            return True if (ik is not None and ik.reachable and len(ik.solutions) > 1) else None
+        return True

@@ -1,0 +1,99 @@
+"""BranchTable: both IK branches of the current target, side by side."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from rich.table import Table
+from rich.text import Text
+from textual.message import Message
+from textual.widgets import Static
+
+from kinematics.model import Arm, Branch
+from kinematics.solve import IKResult
+
+ACTIVE_MARK = ">"
+BRANCH_ORDER = (Branch.ELBOW_UP, Branch.ELBOW_DOWN)
+
+
+def branch_rows(arm: Arm, ik: IKResult | None, active: Branch | None) -> list[tuple[str, ...]]:
+    """The table as plain text rows: a header row, one row per joint (display units),
+    and a status row (``usable`` or the problems in words). Used by the widget and
+    the tests.
+
+    >>> from console.armfile import builtin_arm
+    >>> from kinematics.solve import joints_from_tool
+    >>> arm = builtin_arm("planar-bench")
+    >>> rows = branch_rows(arm, joints_from_tool(arm, (220.0, 160.0)), Branch.ELBOW_DOWN)
+    >>> rows[0], rows[2]
+    (('', '  elbow-up', '> elbow-down'), ('elbow', '-90.00 deg', '90.00 deg'))
+    """
+    header = ("",) + tuple(f"{ACTIVE_MARK if b == active else ' '} {b.value}" for b in BRANCH_ORDER)
+    rows: list[tuple[str, ...]] = [header]
+    sols = {b: (ik.solution(b) if ik is not None and ik.reachable else None) for b in BRANCH_ORDER}
+    for index, joint in enumerate(arm.joints):
+        cells = [joint.name]
+        for b in BRANCH_ORDER:
+            sol = sols[b]
+            cells.append(f"{joint.to_display(sol.joints[index]):.2f} {joint.unit}" if sol else "-")
+        rows.append(tuple(cells))
+    status = ["status"]
+    for b in BRANCH_ORDER:
+        sol = sols[b]
+        if ik is None:
+            status.append("-")
+        elif not ik.reachable:
+            status.append("out of reach")
+        elif sol is None:
+            status.append("no solution")
+        else:
+            status.append("usable" if sol.usable else "; ".join(sol.problems))
+    rows.append(tuple(status))
+    return rows
+
+
+class BranchTable(Static):
+    """Shows :func:`branch_rows`; :meth:`choose_other` posts :class:`BranchChosen`."""
+
+    @dataclass
+    class BranchChosen(Message):
+        branch: Branch
+
+    def __init__(self, arm: Arm, *, id: str | None = None):
+        super().__init__(id=id)
+        self.arm = arm
+        self.ik: IKResult | None = None
+        self.active: Branch | None = None
+        self.title = "branches"
+        self.rows: list[tuple[str, ...]] = []
+
+    def show(self, ik: IKResult | None, active: Branch | None, title: str) -> None:
+        rows = branch_rows(self.arm, ik, active)
+        if rows == self.rows and title == self.title:
+            return
+        self.ik, self.active, self.title, self.rows = ik, active, title, rows
+        self.border_title = title
+        table = Table(box=None, expand=True, show_edge=False, pad_edge=False)
+        for i, head in enumerate(rows[0]):
+            style = "bold reverse" if head.startswith(ACTIVE_MARK) else "bold"
+            table.add_column(Text(head, style=style), ratio=1 if i == 0 else 2)
+        for row in rows[1:]:
+            cells = []
+            for i, cell in enumerate(row):
+                style = ""
+                if row[0] == "status" and i > 0:
+                    style = "green" if cell == "usable" else "yellow"
+                cells.append(Text(cell, style=style))
+            table.add_row(*cells)
+        self.update(table)
+
+    def other_branch(self) -> Branch | None:
+        """The branch one would switch to, when the target has two solutions."""
+        if self.ik is None or not self.ik.reachable or len(self.ik.solutions) < 2:
+            return None
+        return (self.active or Branch.ELBOW_DOWN).other()
+
+    def choose_other(self) -> None:
+        other = self.other_branch()
+        if other is not None:
+            self.post_message(self.BranchChosen(other))

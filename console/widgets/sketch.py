@@ -1,0 +1,380 @@
+"""The ASCII pose sketch: the arm seen from above (and, on a SCARA, from the side).
+
+:func:`render_sketch` is pure (arm and joint values in, lines of text out) so the tests
+can check it cell by cell; :class:`PoseSketch` is the widget that calls it with its own
+size on every change and every resize.
+
+Geometry of the picture (top view): world x to the right, world y up. A terminal cell
+is about twice as tall as it is wide (CELL_ASPECT), so one row spans twice the
+millimetres of one column: y is scaled by 0.5 against x, and a circle comes out round.
+The view is fitted so the circle of max reach (and every keep-out zone and the target)
+fills the panel: with ``s`` the millimetres per column,
+
+    s   = max((x_max - x_min) / (width - 1), (y_max - y_min) / (CELL_ASPECT * (height - 1)))
+    col = floor((width - 1) / 2 + (x - x_mid) / s + 0.5)
+    row = floor((height - 1) / 2 - (y - y_mid) / (CELL_ASPECT * s) + 0.5)
+
+Units in: mm and radians (kinematics/ conventions).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+from rich.text import Text
+from textual.widget import Widget
+
+from kinematics.model import Arm, Zone
+from kinematics.scara import flange_z_mm
+from kinematics.solve import tool_from_joints
+
+CELL_ASPECT = 2.0   # a terminal cell is about twice as tall as wide (common fonts, from memory)
+
+BASE = "@"
+ELBOW = "o"
+TOOL = "T"
+TARGET = "X"
+OTHER = ":"        # the inactive IK branch (dotted)
+PLANNED = "+"      # the active branch at the target (where a move would take the arm)
+HATCH = "#"        # keep-out zones
+REACH = "."        # reach boundaries (max, and min when > 0)
+GROUND = "="       # the table (side view)
+
+LEGEND = (f"{BASE} base  {ELBOW} joint  {TOOL} tool  {TARGET} target  {PLANNED} chosen branch  "
+          f"{OTHER} other branch  {HATCH} keep-out  {REACH} reach")
+
+SIDE_MIN_WIDTH = 40   # below this a SCARA gets the top view only
+
+
+@dataclass(frozen=True)
+class View:
+    """A fitted window onto a plane: world (u, v) in mm to (col, row) cells."""
+
+    cols: int
+    rows: int
+    u_mid: float
+    v_mid: float
+    mm_per_col: float
+
+    @staticmethod
+    def fit(u_min: float, u_max: float, v_min: float, v_max: float, cols: int, rows: int,
+            ) -> "View":
+        """The view that shows the box [u_min, u_max] x [v_min, v_max] whole, centred,
+        with a row spanning CELL_ASPECT times the millimetres of a column.
+
+        >>> View.fit(-380.0, 380.0, -380.0, 380.0, 41, 21).mm_per_col
+        19.0
+        """
+        span_u = max(u_max - u_min, 1e-6)
+        span_v = max(v_max - v_min, 1e-6)
+        s = max(span_u / max(cols - 1, 1), span_v / (CELL_ASPECT * max(rows - 1, 1)))
+        return View(cols, rows, (u_min + u_max) / 2, (v_min + v_max) / 2, s)
+
+    def cell_float(self, u: float, v: float) -> tuple[float, float]:
+        col = (self.cols - 1) / 2 + (u - self.u_mid) / self.mm_per_col
+        row = (self.rows - 1) / 2 - (v - self.v_mid) / (CELL_ASPECT * self.mm_per_col)
+        return col, row
+
+    def cell(self, u: float, v: float) -> tuple[int, int]:
+        """The cell (col, row) whose centre is nearest the point (u, v).
+
+        >>> View.fit(-380.0, 380.0, -380.0, 380.0, 41, 21).cell(220.0, 160.0)
+        (32, 6)
+        """
+        col, row = self.cell_float(u, v)
+        return math.floor(col + 0.5), math.floor(row + 0.5)
+
+    def world(self, col: int, row: int) -> tuple[float, float]:
+        """The world point at the centre of a cell."""
+        u = self.u_mid + (col - (self.cols - 1) / 2) * self.mm_per_col
+        v = self.v_mid - (row - (self.rows - 1) / 2) * CELL_ASPECT * self.mm_per_col
+        return u, v
+
+
+class Canvas:
+    """A grid of characters; writes outside it are dropped."""
+
+    def __init__(self, cols: int, rows: int):
+        self.cols, self.rows = cols, rows
+        self.cells = [[" "] * cols for _ in range(rows)]
+
+    def put(self, col: int, row: int, char: str) -> None:
+        if 0 <= col < self.cols and 0 <= row < self.rows:
+            self.cells[row][col] = char
+
+    def text(self, col: int, row: int, words: str) -> None:
+        for i, char in enumerate(words):
+            self.put(col + i, row, char)
+
+    def lines(self) -> list[str]:
+        return ["".join(row) for row in self.cells]
+
+
+def slope_char(dcol: float, drow: float) -> str:
+    """The line character for a link running (dcol, drow) cells on screen, judged by
+    its visual angle (a row is CELL_ASPECT columns tall).
+
+    >>> slope_char(10, 0), slope_char(0, -3), slope_char(4, -2), slope_char(4, 2)
+    ('-', '|', '/', '\\\\')
+    """
+    angle = math.degrees(math.atan2(-drow * CELL_ASPECT, dcol)) % 180.0
+    if angle < 22.5 or angle >= 157.5:
+        return "-"
+    if angle < 67.5:
+        return "/"
+    if angle < 112.5:
+        return "|"
+    return "\\"
+
+
+def draw_line(canvas: Canvas, view: View, a: tuple[float, float], b: tuple[float, float],
+              char: str | None) -> None:
+    """A straight line from a to b (world mm); ``char`` None picks by slope."""
+    ca, ra = view.cell_float(*a)
+    cb, rb = view.cell_float(*b)
+    if not all(math.isfinite(v) for v in (ca, ra, cb, rb)):
+        return
+    glyph = char or slope_char(cb - ca, rb - ra)
+    steps = max(1, int(math.ceil(max(abs(cb - ca), abs(rb - ra)) * 2)))
+    steps = min(steps, 4 * (canvas.cols + canvas.rows))
+    for k in range(steps + 1):
+        f = k / steps
+        canvas.put(math.floor(ca + (cb - ca) * f + 0.5), math.floor(ra + (rb - ra) * f + 0.5), glyph)
+
+
+def draw_circle(canvas: Canvas, view: View, radius_mm: float, char: str) -> None:
+    """A circle about the origin, sampled finely enough to leave no gaps."""
+    if radius_mm <= 0:
+        return
+    cells_round = 2 * math.pi * radius_mm / view.mm_per_col
+    n = max(16, int(cells_round * 2))
+    for k in range(n):
+        t = 2 * math.pi * k / n
+        canvas.put(*view.cell(radius_mm * math.cos(t), radius_mm * math.sin(t)), char)
+
+
+def in_zone(zone: Zone, x: float, y: float) -> bool:
+    if zone.kind == "circle":
+        return math.hypot(x - zone.cx, y - zone.cy) <= zone.r
+    return zone.x_min <= x <= zone.x_max and zone.y_min <= y <= zone.y_max
+
+
+def zone_bounds(zone: Zone) -> tuple[float, float, float, float]:
+    """(x_min, x_max, y_min, y_max) of a zone's footprint."""
+    if zone.kind == "circle":
+        return zone.cx - zone.r, zone.cx + zone.r, zone.cy - zone.r, zone.cy + zone.r
+    return zone.x_min, zone.x_max, zone.y_min, zone.y_max
+
+
+def hatch_zone(canvas: Canvas, view: View, zone: Zone) -> None:
+    """Fill every cell whose centre lies in the zone, and always the zone's centre cell
+    (so a zone smaller than a cell still shows)."""
+    x0, x1, y0, y1 = zone_bounds(zone)
+    c0, r1 = view.cell(x0, y0)
+    c1, r0 = view.cell(x1, y1)
+    for row in range(max(r0 - 1, 0), min(r1 + 2, canvas.rows)):
+        for col in range(max(c0 - 1, 0), min(c1 + 2, canvas.cols)):
+            if in_zone(zone, *view.world(col, row)):
+                canvas.put(col, row, HATCH)
+    canvas.put(*view.cell((x0 + x1) / 2, (y0 + y1) / 2), HATCH)
+
+
+def arm_points(arm: Arm, joints: Sequence[float]) -> tuple[tuple[float, float], tuple[float, float]]:
+    """The elbow and tool points in the base plane (mm) for joint values (rad, mm)."""
+    j1, j2 = arm.joints[0], arm.joints[1]
+    t1 = joints[0] + j1.offset_rad
+    elbow = (j1.a_mm * math.cos(t1), j1.a_mm * math.sin(t1))
+    tool = tool_from_joints(arm, tuple(joints))
+    return elbow, (tool[0], tool[1])
+
+
+def _finite(values: Sequence[float] | None) -> bool:
+    return values is not None and all(math.isfinite(v) for v in values)
+
+
+def _draw_pose(canvas: Canvas, view: View, arm: Arm, joints: Sequence[float], link: str | None,
+               joint_char: str, tool_char: str | None) -> None:
+    elbow, tool = arm_points(arm, joints)
+    draw_line(canvas, view, (0.0, 0.0), elbow, link)
+    draw_line(canvas, view, elbow, tool, link)
+    canvas.put(*view.cell(*elbow), joint_char)
+    if tool_char:
+        canvas.put(*view.cell(*tool), tool_char)
+
+
+def render_top(arm: Arm, joints: Sequence[float], *, width: int, height: int,
+               target: Sequence[float] | None = None,
+               other_joints: Sequence[float] | None = None,
+               planned_joints: Sequence[float] | None = None,
+               label: str | None = None) -> list[str]:
+    """The top view alone (see :func:`render_sketch`)."""
+    canvas = Canvas(width, height)
+    reach = arm.max_reach_mm
+    x0, x1, y0, y1 = -reach, reach, -reach, reach
+    for zone in arm.zones:
+        zx0, zx1, zy0, zy1 = zone_bounds(zone)
+        x0, x1, y0, y1 = min(x0, zx0), max(x1, zx1), min(y0, zy0), max(y1, zy1)
+    if _finite(target):
+        x0, x1 = min(x0, target[0]), max(x1, target[0])
+        y0, y1 = min(y0, target[1]), max(y1, target[1])
+    view = View.fit(x0, x1, y0, y1, width, height)
+    draw_circle(canvas, view, arm.max_reach_mm, REACH)
+    if arm.min_reach_mm > 0:
+        draw_circle(canvas, view, arm.min_reach_mm, REACH)
+    for zone in arm.zones:
+        hatch_zone(canvas, view, zone)
+    if _finite(other_joints):
+        _draw_pose(canvas, view, arm, other_joints, OTHER, OTHER, None)
+    if _finite(planned_joints):
+        _draw_pose(canvas, view, arm, planned_joints, PLANNED, PLANNED, None)
+    if _finite(joints):
+        _draw_pose(canvas, view, arm, joints, None, ELBOW, None)
+    canvas.put(*view.cell(0.0, 0.0), BASE)
+    if _finite(target):
+        canvas.put(*view.cell(target[0], target[1]), TARGET)
+    if _finite(joints):
+        canvas.put(*view.cell(*arm_points(arm, joints)[1]), TOOL)
+    if label:
+        canvas.text(0, 0, label)
+    return canvas.lines()
+
+
+def _radial_span(zone: Zone) -> tuple[float, float]:
+    """Nearest and farthest distance of a zone's footprint from the base axis (mm)."""
+    if zone.kind == "circle":
+        d = math.hypot(zone.cx, zone.cy)
+        return max(0.0, d - zone.r), d + zone.r
+    nx = min(max(0.0, zone.x_min), zone.x_max)
+    ny = min(max(0.0, zone.y_min), zone.y_max)
+    far = max(math.hypot(x, y) for x in (zone.x_min, zone.x_max) for y in (zone.y_min, zone.y_max))
+    return math.hypot(nx, ny), far
+
+
+def render_side(arm: Arm, joints: Sequence[float], *, width: int, height: int,
+                target: Sequence[float] | None = None, label: str | None = None) -> list[str]:
+    """The SCARA seen from the side, unrolled about the base axis: distance from the
+    base axis to the right, height z up (both mm, same aspect correction as the top
+    view). Shows the table (z = 0), the base column, the links at the flange height,
+    the quill down to the tool tip, the target's height and each zone's radial span
+    and z range."""
+    canvas = Canvas(width, height)
+    flange = flange_z_mm(arm)
+    base_top = arm.joints[0].d_mm
+    quill = arm.joints[2]
+    tip = tool_from_joints(arm, tuple(joints)) if _finite(joints) else None
+    z_lowest = flange - arm.joints[2].d_mm - quill.max - arm.joints[3].d_mm
+    z0 = min(0.0, z_lowest)
+    z1 = max(flange, base_top) + 0.1 * max(flange, 1.0)
+    r1 = arm.max_reach_mm
+    for zone in arm.zones:
+        r1 = max(r1, _radial_span(zone)[1])
+        if math.isfinite(zone.z_min):
+            z0 = min(z0, zone.z_min)
+    if _finite(target):
+        r1 = max(r1, math.hypot(target[0], target[1]))
+        z0, z1 = min(z0, target[2]), max(z1, target[2])
+    view = View.fit(0.0, r1, z0, z1, width, height)
+    for col in range(width):
+        canvas.put(col, view.cell(0.0, 0.0)[1], GROUND)
+    for zone in arm.zones:
+        zr0, zr1 = _radial_span(zone)
+        zz0 = max(zone.z_min, z0) if math.isfinite(zone.z_min) else z0
+        zz1 = min(zone.z_max, z1) if math.isfinite(zone.z_max) else z1
+        c0, rb = view.cell(zr0, zz0)
+        c1, rt = view.cell(zr1, zz1)
+        for row in range(rt, rb + 1):
+            for col in range(c0, c1 + 1):
+                canvas.put(col, row, HATCH)
+    draw_line(canvas, view, (0.0, 0.0), (0.0, base_top), "|")
+    if tip is not None:
+        r_tool = math.hypot(tip[0], tip[1])
+        a1 = arm.joints[0].a_mm
+        draw_line(canvas, view, (0.0, flange), (max(a1, r_tool), flange), "-")
+        canvas.put(*view.cell(a1, flange), ELBOW)
+        draw_line(canvas, view, (r_tool, flange), (r_tool, tip[2]), "|")
+    canvas.put(*view.cell(0.0, base_top), BASE)
+    if _finite(target):
+        canvas.put(*view.cell(math.hypot(target[0], target[1]), target[2]), TARGET)
+    if tip is not None:
+        canvas.put(*view.cell(math.hypot(tip[0], tip[1]), tip[2]), TOOL)
+    if label:
+        canvas.text(0, 0, label)
+    return canvas.lines()
+
+
+def render_sketch(arm: Arm, joints: Sequence[float], *, width: int, height: int,
+                  target: Sequence[float] | None = None,
+                  other_joints: Sequence[float] | None = None,
+                  planned_joints: Sequence[float] | None = None,
+                  labels: bool = True) -> list[str]:
+    """The pose sketch as exactly ``height`` lines of exactly ``width`` characters.
+
+    Args:
+        arm: the arm (its links, reach and keep-out zones are drawn).
+        joints: the arm's joint values (rad, mm), drawn solid: links by slope
+            (``- | / \\``), the elbow ``o``, the tool ``T``, the base ``@``.
+        width, height: the panel size in terminal cells.
+        target: a tool target (mm, rad: planar x, y; SCARA x, y, z, roll), marked ``X``.
+        other_joints: the inactive IK branch, drawn dotted (``:``).
+        planned_joints: the active branch at the target, drawn ``+``.
+        labels: write "top" / "side" in the corners of the views.
+
+    On a SCARA at least SIDE_MIN_WIDTH wide the right third is a side view for z
+    (:func:`render_side`), after a ``|`` column. Tiny panels give blank lines.
+    """
+    width, height = max(0, int(width)), max(0, int(height))
+    if width < 5 or height < 3:
+        return [" " * width for _ in range(height)]
+    if arm.is_scara and width >= SIDE_MIN_WIDTH:
+        side_w = max(14, width // 3)
+        top_w = width - side_w - 1
+        top = render_top(arm, joints, width=top_w, height=height, target=target,
+                         other_joints=other_joints, planned_joints=planned_joints,
+                         label="top" if labels else None)
+        side = render_side(arm, joints, width=side_w, height=height, target=target,
+                           label="side" if labels else None)
+        return [t + "|" + s for t, s in zip(top, side)]
+    return render_top(arm, joints, width=width, height=height, target=target,
+                      other_joints=other_joints, planned_joints=planned_joints,
+                      label="top" if (labels and arm.is_scara) else None)
+
+
+class PoseSketch(Widget):
+    """The sketch panel: redraws from :func:`render_sketch` at its own size."""
+
+    DEFAULT_CSS = "PoseSketch { height: 1fr; }"
+
+    def __init__(self, arm: Arm, *, id: str | None = None):
+        super().__init__(id=id)
+        self.arm = arm
+        self.joints: tuple[float, ...] | None = None
+        self.target: tuple[float, ...] | None = None
+        self.other_joints: tuple[float, ...] | None = None
+        self.planned_joints: tuple[float, ...] | None = None
+        self.lines: list[str] = []
+
+    def show(self, joints, *, target=None, other_joints=None, planned_joints=None) -> None:
+        """Set what to draw; redraws only when something changed."""
+        new = (tuple(joints) if joints is not None else None,
+               tuple(target) if target is not None else None,
+               tuple(other_joints) if other_joints is not None else None,
+               tuple(planned_joints) if planned_joints is not None else None)
+        old = (self.joints, self.target, self.other_joints, self.planned_joints)
+        if new != old:
+            self.joints, self.target, self.other_joints, self.planned_joints = new
+            self.refresh()
+
+    def render(self) -> Text:
+        width, height = self.content_size
+        if self.joints is None:
+            return Text("waiting for the arm's position...")
+        legend = height >= 8
+        lines = render_sketch(self.arm, self.joints, width=width,
+                              height=height - 1 if legend else height, target=self.target,
+                              other_joints=self.other_joints, planned_joints=self.planned_joints)
+        if legend:
+            lines.append(LEGEND[:width])
+        self.lines = lines
+        return Text("\n".join(lines), no_wrap=True, overflow="crop")

@@ -1,0 +1,162 @@
+"""The small panels: the banner, the link state, warnings, recent events, jog settings."""
+
+from __future__ import annotations
+
+import time
+from collections import deque
+from collections.abc import Sequence
+
+from rich.text import Text
+from textual.widget import Widget
+from textual.widgets import Static
+
+STALE_S = 0.5   # a position report older than this is called stale (the interlock's limit)
+
+LEVEL_STYLE = {"estop": "bold white on red", "warn": "bold black on yellow", "info": ""}
+
+
+def banner_lines(state, error: str | None = None, reach_warning: str | None = None,
+                 ) -> list[tuple[str, str]]:
+    """The conditions that block or endanger motion, most serious first, as
+    (level, text) with level ``estop`` (red) or ``warn`` (yellow). ``state`` is a
+    drivers.base.DriverState or None (never read)."""
+    out: list[tuple[str, str]] = []
+    if error or state is None or not state.is_open:
+        why = error or ("no state read yet" if state is None else "the driver is closed")
+        out.append(("estop", f"NOT CONNECTED: {why}. Check the cable and the port, then "
+                             "restart benchjog."))
+        return out
+    latched = state.latched or ""
+    mode = getattr(state.mode, "value", str(state.mode))
+    if latched.startswith("estop") or mode == "ESTOP":
+        out.append(("estop", f"E-STOP{' LATCHED' if latched else ''}: motion is blocked. "
+                             "Release the e-stop button, then press r to reset."))
+    elif latched.startswith("link lost"):
+        out.append(("estop", f"LINK LOST: {latched}. Check the cable; press r to reset when "
+                             "the controller answers."))
+    elif latched or mode == "FAULT":
+        out.append(("estop", f"FAULT: {latched or 'the controller reports a fault'}. Clear "
+                             "the cause, then press r to reset."))
+    if not state.enabled and not latched:
+        out.append(("warn", "DRIVES OFF: press e to enable them."))
+    if not state.homed:
+        out.append(("warn", "NOT HOMED: press h to run the homing cycle; jogs and moves are "
+                            "refused until then."))
+    if state.age_s > STALE_S:
+        out.append(("warn", f"STALE POSITION: the last report is {state.age_s:.1f} s old; the "
+                            "link may be failing."))
+    if reach_warning:
+        out.append(("warn", f"TARGET OUT OF REACH: {reach_warning}"))
+    return out
+
+
+class Banner(Static):
+    """Full width, hidden when all is well; red for e-stop/fault/link, yellow for
+    conditions the user fixes with a key."""
+
+    def __init__(self, *, id: str | None = None):
+        super().__init__(id=id)
+        self.items: list[tuple[str, str]] = []
+
+    def show(self, items: Sequence[tuple[str, str]]) -> None:
+        items = list(items)
+        if items == self.items:
+            return
+        self.items = items
+        self.set_class(not items, "-hidden")
+        self.set_class(any(level == "estop" for level, _ in items), "-estop")
+        text = Text()
+        for n, (level, words) in enumerate(items):
+            if n:
+                text.append("\n")
+            text.append(f" {words} ", style=LEVEL_STYLE[level])
+        self.update(text)
+
+    @property
+    def text(self) -> str:
+        return "\n".join(words for _, words in self.items)
+
+
+def link_words(state, driver_name: str, error: str | None, polled_age_s: float | None) -> str:
+    """The link state in one or two lines."""
+    if state is None:
+        return f"driver {driver_name}  link -  {error or 'waiting for the first state'}"
+    latched = state.latched or ""
+    estop = "LATCHED" if latched.startswith("estop") else (
+        "pressed" if getattr(state.mode, "value", "") == "ESTOP" else "clear")
+    heart = f"{state.age_s:.2f} s"
+    if polled_age_s is not None:
+        heart += f" (read {polled_age_s:.1f} s ago)"
+    return (f"driver {driver_name}   link {state.link}   "
+            f"mode {getattr(state.mode, 'value', state.mode)}\n"
+            f"e-stop {estop}   drives {'on' if state.enabled else 'off'}   "
+            f"homed {'yes' if state.homed else 'no'}   queued {state.queued}   "
+            f"heartbeat {heart}" + (f"\nlatched: {latched}" if latched else "")
+            + (f"\nerror: {error}" if error else ""))
+
+
+class LinkStatus(Static):
+    def __init__(self, *, id: str | None = None):
+        super().__init__(id=id)
+        self.border_title = "link"
+        self.words = ""
+
+    def show(self, words: str) -> None:
+        if words != self.words:
+            self.words = words
+            self.update(words)
+
+
+class WarningsPanel(Static):
+    """Warnings that are always on screen: reach, limits, singularity, keep-out, speed."""
+
+    def __init__(self, *, id: str | None = None):
+        super().__init__(id=id)
+        self.border_title = "warnings"
+        self.items: list[str] | None = None
+
+    def show(self, items: Sequence[str]) -> None:
+        items = list(dict.fromkeys(items))   # keep order, drop repeats
+        if items == self.items:
+            return
+        self.items = items
+        if not items:
+            self.update(Text("none", style="green"))
+            return
+        text = Text()
+        for n, item in enumerate(items):
+            if n:
+                text.append("\n")
+            text.append("! " + item, style="yellow")
+        self.update(text)
+
+
+class EventLog(Widget):
+    """Recent events, newest at the bottom; as many as fit."""
+
+    def __init__(self, *, id: str | None = None, keep: int = 200):
+        super().__init__(id=id)
+        self.border_title = "events"
+        self.entries: deque[str] = deque(maxlen=keep)
+
+    def add(self, kind: str, detail: str) -> None:
+        stamp = time.strftime("%H:%M:%S")
+        self.entries.append(f"{stamp} {kind:<9} {detail}")
+        self.refresh()
+
+    def render(self) -> Text:
+        height = max(1, self.content_size.height)
+        shown = list(self.entries)[-height:]
+        return Text("\n".join(shown) if shown else "no events yet", no_wrap=True,
+                    overflow="ellipsis")
+
+
+class JogStatus(Static):
+    def __init__(self, *, id: str | None = None):
+        super().__init__(id=id)
+        self.words = ""
+
+    def show(self, words: str) -> None:
+        if words != self.words:
+            self.words = words
+            self.update(words)

@@ -1,0 +1,94 @@
+"""TargetInput: the field where a person types an exact tool target.
+
+Planar: ``x y`` (mm). SCARA: ``x y z roll`` (mm, mm, mm, degrees). Commas may separate
+the numbers too. Bad text gives a one-line message and never a motion.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from textual import events
+from textual.message import Message
+from textual.widgets import Input
+
+from kinematics.model import Arm
+from kinematics.solve import TargetError, check_target
+
+
+def target_hint(arm: Arm) -> str:
+    return "x y z roll (mm, deg)" if arm.is_scara else "x y (mm)"
+
+
+def target_from_text(arm: Arm, text: str) -> tuple[float, ...]:
+    """A typed target to the internal tool target (mm, rad).
+
+    Raises:
+        TargetError: one line saying what is wrong (empty, not a number, wrong count,
+            not finite).
+
+    >>> from console.armfile import builtin_arm
+    >>> target_from_text(builtin_arm("planar-bench"), "120, 80")
+    (120.0, 80.0)
+    >>> [round(v, 6) for v in target_from_text(builtin_arm("scara-bench"), "200 100 90 180")]
+    [200.0, 100.0, 90.0, 3.141593]
+    """
+    parts = text.replace(",", " ").split()
+    if not parts:
+        raise TargetError(f"type a target: {target_hint(arm)}")
+    values = []
+    for part in parts:
+        try:
+            values.append(float(part))
+        except ValueError:
+            raise TargetError(f"{part!r} is not a number (type {target_hint(arm)})") from None
+    if len(values) != (4 if arm.is_scara else 2):
+        raise TargetError(f"a {arm.geometry} arm takes {target_hint(arm)}, got {len(values)} "
+                          f"value{'s' if len(values) != 1 else ''}")
+    target = check_target(arm, values)
+    if arm.is_scara:
+        target = target[:3] + (math.radians(target[3]),)
+    return target
+
+
+class TargetInput(Input):
+    """Enter parses the text: :class:`TargetChosen` or :class:`Rejected` (one line).
+    Escape hands the keys back to the screen. While a motion runs, space stops it
+    (the console's stop key works even here)."""
+
+    @dataclass
+    class TargetChosen(Message):
+        target: tuple[float, ...]   # mm, rad
+        text: str
+
+    @dataclass
+    class Rejected(Message):
+        reason: str
+
+    def __init__(self, arm: Arm, *, id: str | None = None):
+        super().__init__(placeholder=f"target: {target_hint(arm)}   (enter: preview, escape: back)",
+                         id=id)
+        self.arm = arm
+
+    async def action_submit(self) -> None:
+        try:
+            target = target_from_text(self.arm, self.value)
+        except TargetError as exc:
+            self.post_message(self.Rejected(str(exc)))
+            return
+        self.post_message(self.TargetChosen(target, self.value.strip()))
+        self.screen.set_focus(None)
+
+    async def _on_key(self, event: events.Key) -> None:
+        if event.key == "space" and getattr(self.app, "motion_active", False):
+            event.stop()
+            event.prevent_default()
+            self.app.action_stop()
+            return
+        if event.key == "escape":
+            event.stop()
+            event.prevent_default()
+            self.screen.set_focus(None)
+            return
+        await super()._on_key(event)
