@@ -48,6 +48,9 @@ class SerialDriver(Driver):
         self.retries = int(options.get("retries", 3))
         self.heartbeat_s = float(options.get("heartbeat_s", 0.2) or 0.0)
         self.trace_path = options.get("trace")
+        self.first_seq = int(options.get("first_seq", 1))  # HELLO's seq; the count starts there
+        if not 1 <= self.first_seq <= P.MAX_SEQ:
+            raise LinkError(f"first_seq must be 1..{P.MAX_SEQ}, got {self.first_seq}")
         self._lock = threading.RLock()
         self._cond = threading.Condition(self._lock)
         self._txn_lock = threading.Lock()
@@ -128,11 +131,13 @@ class SerialDriver(Driver):
                     raise LinkError(f"{self.port}: {self._latched}")
                 if guard is not None:
                     guard()
-                seq = 1 if hello else P.next_seq(self._seq)
+                seq = self.first_seq if hello else P.next_seq(self._seq)
                 self._seq = seq
                 line = P.host_line(seq, verb, *args)
                 if verb == "MOVE":
                     self._outstanding[seq] = tuple(int(a) for a in args[1:])
+                elif verb == "HOME":  # before it goes out: its DONE may follow the OK at once
+                    self._home_seq, self._home_done, self._homed = seq, False, False
                 self._waiting, self._waiting_verb, self._reply = seq, verb, None
             reply: P.Reply | None = None
             tries = 0
@@ -164,8 +169,11 @@ class SerialDriver(Driver):
             finally:
                 with self._cond:
                     self._waiting = None
-                    if verb == "MOVE" and (reply is None or reply.kind != "OK"):
-                        self._outstanding.pop(seq, None)
+                    if reply is None or reply.kind != "OK":
+                        if verb == "MOVE":
+                            self._outstanding.pop(seq, None)
+                        elif verb == "HOME" and self._home_seq == seq:
+                            self._home_seq = None
                         self._cond.notify_all()
 
     # -- reader ---------------------------------------------------------------------
@@ -402,11 +410,8 @@ class SerialDriver(Driver):
         with self._cond:
             if self._outstanding:
                 raise ControllerError("refused HOME: segments are still queued (stop first)")
-            self._home_done = False
-        reply = self._command("HOME")
+        self._command("HOME")
         with self._cond:
-            self._home_seq = reply.seq
-            self._homed = False
             deadline = self._now() + timeout_s
             while not self._home_done:
                 if self._link_lost():

@@ -57,7 +57,7 @@ class SimDriver(Driver):
         self._enabled = False
         self._homed = True
         self._pos: list[float] = [0.0] * arm.n_joints   # counts, float while moving
-        self._queue: deque[_SimSegment] = deque()
+        self._segs: deque[_SimSegment] = deque()
         self._outputs = 0
         self._estop_input = False
         self._latched: str | None = None
@@ -77,8 +77,8 @@ class SimDriver(Driver):
     def _advance(self) -> None:
         """Run the queue forward to the clock's now (call with the lock held)."""
         now = self._now()
-        while self._queue:
-            seg = self._queue[0]
+        while self._segs:
+            seg = self._segs[0]
             if seg.t0 is None:
                 seg.t0 = now
             t_end = seg.t0 + seg.duration_s
@@ -95,17 +95,17 @@ class SimDriver(Driver):
                 self._set_pos_at(seg, (now - seg.t0) / seg.duration_s)
                 return
             self._pos = [float(c) for c in seg.target]
-            self._queue.popleft()
+            self._segs.popleft()
             self._event("done", f"segment {seg.number} done", t_end)
-            if self._queue:
-                self._queue[0].t0 = t_end
+            if self._segs:
+                self._segs[0].t0 = t_end
 
     def _set_pos_at(self, seg: _SimSegment, fraction: float) -> None:
         f = min(max(fraction, 0.0), 1.0)
         self._pos = [a + (b - a) * f for a, b in zip(seg.start, seg.target)]
 
     def _halt(self) -> None:
-        self._queue.clear()
+        self._segs.clear()
 
     def _latch_fault(self, code: str, axis: int, t: float | None = None) -> None:
         self._enabled = False
@@ -121,7 +121,7 @@ class SimDriver(Driver):
             return Mode.DISABLED
         if not self._homed:
             return Mode.UNHOMED
-        return Mode.MOVING if self._queue else Mode.IDLE
+        return Mode.MOVING if self._segs else Mode.IDLE
 
     def _refuse(self, command: tuple, reason: str) -> ControllerError:
         self.refused.append((command, reason))
@@ -172,7 +172,7 @@ class SimDriver(Driver):
             self._check_latch(command)
             if not self._enabled:
                 raise self._refuse(command, "NOT_ENABLED")
-            if self._queue:
+            if self._segs:
                 raise self._refuse(command, "segments are still queued (stop first)")
             self._pos = [0.0] * self.arm.n_joints
             self._homed = True
@@ -192,11 +192,11 @@ class SimDriver(Driver):
                 axis = range_violation(self.arm, counts)
                 if axis is not None:
                     raise self._refuse(command, f"RANGE axis={axis}")
-                if len(self._queue) < self.queue_depth:
-                    start = tuple(float(c) for c in self._queue[-1].target) if self._queue \
+                if len(self._segs) < self.queue_depth:
+                    start = tuple(float(c) for c in self._segs[-1].target) if self._segs \
                         else tuple(self._pos)
                     self._numbers += 1
-                    self._queue.append(_SimSegment(self._numbers, start, counts, ms / 1000.0))
+                    self._segs.append(_SimSegment(self._numbers, start, counts, ms / 1000.0))
                     self._advance()  # a segment queued on an idle arm starts now
                     self.commands.append(command)
                     return
@@ -215,7 +215,7 @@ class SimDriver(Driver):
         return DriverState(
             mode=self._mode(),
             joints=joints_from_counts(self.arm, [round(p) for p in self._pos]),
-            queued=len(self._queue),
+            queued=len(self._segs),
             outputs=self._outputs,
             age_s=0.0,
             is_open=self._open,

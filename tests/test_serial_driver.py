@@ -1,0 +1,326 @@
+"""SerialDriver: the driver contract against the emulator over a real pty, framing over
+pyserial's ``loop://``, and the link faults PROTOCOL.md makes the host survive:
+corrupted, lost and slow lines, an e-stop mid-move, the watchdog, a port that goes
+away."""
+
+from __future__ import annotations
+
+import threading
+import time
+
+import pytest
+import serial
+
+from console.armfile import builtin_arm
+from driver_contract import DEG, DriverContract, events_of, ready, wait_for
+from drivers import protocol as P
+from drivers.base import ControllerError, LinkError, Mode
+from drivers.emulator import Emulator
+from drivers.serial_link import SerialDriver
+from kinematics.model import Segment
+
+ARM = builtin_arm("planar-bench")
+
+
+class _EmuRig:
+    def __init__(self, emulator: Emulator, driver: SerialDriver):
+        self.emulator, self.driver = emulator, driver
+
+    def press_estop(self):
+        self.emulator.press_estop()
+
+    def release_estop(self):
+        self.emulator.release_estop()
+
+    def fault(self, code, axis):
+        self.emulator.inject_fault(code, axis)
+
+    def moves_accepted(self):
+        return self.emulator.moves_accepted
+
+    def counts(self):
+        return self.emulator.position_counts()
+
+
+def _rig(tmp_path, emu_options=None, **driver_options):
+    opts = {"home_s": 0.05}
+    opts.update(emu_options or {})
+    emu = Emulator(ARM, opts)
+    path = emu.start()
+    driver_options.setdefault("trace", str(tmp_path / "trace.txt"))
+    d = SerialDriver(ARM, port=path, **driver_options)
+    d.open()
+    return _EmuRig(emu, d)
+
+
+@pytest.fixture
+def make_rig(tmp_path):
+    made = []
+
+    def make(emu_options=None, **driver_options):
+        r = _rig(tmp_path, emu_options, **driver_options)
+        made.append(r)
+        return r
+
+    yield make
+    for r in made:
+        r.driver.close()
+        r.emulator.stop()
+
+
+class TestSerialContract(DriverContract):
+    @pytest.fixture
+    def rig(self, make_rig):
+        return make_rig()
+
+
+def _trace(tmp_path) -> list[str]:
+    return (tmp_path / "trace.txt").read_text().splitlines()
+
+
+def _sent_bodies(tmp_path) -> list[str]:
+    return [line.split(" > ", 1)[1] for line in _trace(tmp_path) if " > " in line]
+
+
+def _stream(d, n, step_deg=1.0, duration_s=0.01):
+    for k in range(1, n + 1):
+        d.queue(Segment((DEG(k * step_deg), DEG(90.0)), duration_s))
+    assert d.wait_idle(5.0)
+
+
+# -- framing over loop:// -----------------------------------------------------------------
+
+def test_framing_round_trip_over_loop_url():
+    port = serial.serial_for_url("loop://", timeout=0.2)
+    lines = [P.host_line(7, "MOVE", 1500, 4500, -9000), P.frame("OK 7 free=7"),
+             P.frame("EVT FAULT code=WATCHDOG axis=0")]
+    port.write(b"".join(lines))
+    back = [port.readline() for _ in lines]
+    port.close()
+    assert back == lines
+    assert P.parse_host(P.parse_line(back[0])) == P.HostLine(7, "MOVE", ("1500", "4500", "-9000"))
+    assert P.parse_reply(P.parse_line(back[1])).int_field("free") == 7
+    assert P.parse_reply(P.parse_line(back[2])).get("code") == "WATCHDOG"
+
+
+def test_an_echoing_line_is_not_a_controller():
+    # loop:// echoes the host's own lines; none of them is a reply, so HELLO goes
+    # unanswered and the link is declared lost after 1 + retries tries
+    d = SerialDriver(ARM, port="loop://", timeout_s=0.05, retries=2)
+    with pytest.raises(LinkError, match="after 3 tries"):
+        d.open()
+    d.close()
+
+
+def test_unopenable_port_is_a_link_error():
+    with pytest.raises(LinkError, match="cannot open"):
+        SerialDriver(ARM, port="/dev/no-such-port-benchjog").open()
+    with pytest.raises(LinkError):
+        SerialDriver(ARM)
+
+
+# -- session ------------------------------------------------------------------------------
+
+def test_hello_reads_the_controller_and_it_starts_unhomed(make_rig, tmp_path):
+    r = make_rig({"queue_depth": 5, "name": "bench-a"})
+    d = r.driver
+    assert d.queue_depth == 5 and d.controller_name == "bench-a"
+    assert _sent_bodies(tmp_path)[0].startswith("1 HELLO*")
+    d.enable()
+    st = d.state()
+    # CONTRACT.md: the emulator starts as after power-up, not homed
+    assert st.mode is Mode.UNHOMED and not st.homed
+    with pytest.raises(ControllerError, match="not homed"):
+        d.queue(Segment((DEG(1.0), DEG(90.0)), 0.05))
+    assert r.emulator.moves_accepted == 0
+    d.home(timeout_s=2.0)
+    assert d.state().homed and d.state().mode is Mode.IDLE
+
+
+def test_axes_mismatch_is_refused(tmp_path):
+    emu = Emulator(builtin_arm("scara-bench"))
+    path = emu.start()
+    try:
+        d = SerialDriver(ARM, port=path)
+        with pytest.raises(ControllerError, match="4 axes"):
+            d.open()
+        assert not d.state().is_open
+    finally:
+        emu.stop()
+
+
+def test_trace_has_every_line_both_ways(make_rig, tmp_path):
+    r = make_rig()
+    ready(r.driver)
+    lines = _trace(tmp_path)
+    sent = [ln for ln in lines if " > " in ln]
+    got = [ln for ln in lines if " < " in ln]
+    assert any("ENABLE" in ln for ln in sent) and any(ln.split(" < ")[1].startswith("DONE") for ln in got)
+    assert all(P.parse_line(ln.split(" > ", 1)[1].encode() + b"\n") is not None for ln in sent)
+
+
+def test_seq_wraps_from_65535_to_1(make_rig, tmp_path):
+    r = make_rig(first_seq=65531)   # HELLO 65531 restarts the count there
+    d = r.driver
+    ready(d)
+    _stream(d, 5)
+    seqs = [int(b.split(" ")[0]) for b in _sent_bodies(tmp_path)]
+    i = seqs.index(65535)
+    assert seqs[i + 1] == 1
+    assert r.emulator.moves_accepted == 5
+    assert not any("BAD_SEQ" in ln for ln in _trace(tmp_path))
+
+
+# -- flow control -------------------------------------------------------------------------
+
+def test_never_more_outstanding_than_the_queue(make_rig, tmp_path):
+    r = make_rig({"queue_depth": 2})
+    d = r.driver
+    ready(d)
+    peak = []
+    stop = threading.Event()
+
+    def watch():
+        while not stop.is_set():
+            peak.append(d.state().queued)
+            peak.append(len(r.emulator.segs))
+            time.sleep(0.002)
+
+    t = threading.Thread(target=watch)
+    t.start()
+    _stream(d, 8, duration_s=0.03)
+    stop.set()
+    t.join()
+    assert max(peak) == 2
+    assert r.emulator.moves_accepted == 8
+    assert not any("QUEUE_FULL" in ln for ln in _trace(tmp_path))
+    assert r.counts() == (8 * 40, 0)
+
+
+def test_stop_from_another_thread_releases_a_blocked_queue(make_rig):
+    r = make_rig({"queue_depth": 1})
+    d = r.driver
+    ready(d)
+    d.queue(Segment((DEG(30.0), DEG(90.0)), 1.0))
+    errors = []
+
+    def second():
+        try:
+            d.queue(Segment((DEG(60.0), DEG(90.0)), 1.0))
+        except ControllerError as exc:
+            errors.append(exc)
+
+    t = threading.Thread(target=second)
+    t.start()
+    time.sleep(0.1)
+    d.stop()
+    t.join(2.0)
+    assert errors and "stop" in str(errors[0])
+    assert r.emulator.moves_accepted == 1
+
+
+# -- faults on the line -------------------------------------------------------------------
+
+@pytest.mark.parametrize("switch", [{"corrupt_every": 3}, {"drop_every": 4}, {"garble_every": 5}])
+def test_bad_lines_are_recovered_by_resending(make_rig, tmp_path, switch):
+    r = make_rig(switch, timeout_s=0.05)
+    d = r.driver
+    ready(d)
+    _stream(d, 12)
+    assert r.counts() == (12 * 40, 0)
+    assert r.emulator.moves_accepted == 12           # each exactly once, re-sends not re-run
+    sent = _sent_bodies(tmp_path)
+    assert len(sent) > len(set(sent))                 # the same line (same seq) went out again
+    assert d.state().latched is None
+
+
+def test_slow_replies_within_the_timeout(make_rig, tmp_path):
+    r = make_rig({"slow_ms": 60}, timeout_s=0.3)
+    ready(r.driver)
+    _stream(r.driver, 3)
+    sent = _sent_bodies(tmp_path)
+    assert len(sent) == len(set(sent))                # no re-sends needed
+    assert r.counts() == (120, 0)
+
+
+def test_replies_slower_than_the_timeout_duplicate_oks_are_not_mistaken(make_rig, tmp_path):
+    # each reply comes after 0.15 s, the host gives up after 0.1 s and re-sends: the
+    # controller answers the re-sent line again, so every OK arrives twice; the late
+    # copy must not count as the reply to the next line
+    r = make_rig({"slow_ms": 150}, timeout_s=0.1, retries=3)
+    d = r.driver
+    ready(d)
+    _stream(d, 3, duration_s=0.05)
+    assert r.counts() == (120, 0)
+    assert r.emulator.moves_accepted == 3
+    got = [ln.split(" < ", 1)[1] for ln in _trace(tmp_path) if " < " in ln]
+    oks = [g for g in got if g.startswith("OK ")]
+    assert len(oks) > len(set(oks))                   # duplicates did arrive
+    assert not any("BAD_SEQ" in g for g in got)
+
+
+def test_estop_mid_move_after_n_moves(make_rig):
+    r = make_rig({"estop_after": 3})
+    d = r.driver
+    ready(d)
+    refused = 0
+    for k in range(1, 7):
+        try:
+            d.queue(Segment((DEG(10.0 * k), DEG(90.0)), 0.2))
+        except ControllerError:
+            refused += 1
+    assert refused == 3
+    assert r.emulator.moves_accepted == 3
+    assert events_of(d, "estop")
+    assert d.state().latched == "estop" and d.state().queued == 0
+    assert r.counts()[0] < 400                        # halted short of the first 10 deg
+
+
+def test_watchdog_fires_without_heartbeats(make_rig):
+    r = make_rig(heartbeat_s=0)
+    d = r.driver
+    ready(d)
+    faults = events_of(d, "fault", timeout_s=3.0)    # PROTOCOL.md: 1000 ms without a line
+    assert faults and "WATCHDOG" in faults[0].detail
+    assert d.state().latched == "fault: WATCHDOG axis=0"
+    assert r.emulator.mode == "FAULT"
+
+
+def test_heartbeat_keeps_the_watchdog_quiet(make_rig):
+    r = make_rig()
+    ready(r.driver)
+    time.sleep(1.3)
+    assert r.emulator.mode == "IDLE"
+    assert r.driver.state().age_s < 0.5
+    assert not [e for e in r.driver.poll_events() if e.kind == "fault"]
+
+
+def test_port_gone_mid_move_is_link_lost(make_rig):
+    r = make_rig()
+    d = r.driver
+    ready(d)
+    d.queue(Segment((DEG(90.0), DEG(90.0)), 2.0))
+    time.sleep(0.1)
+    r.emulator.stop()                                  # the cable is pulled
+    assert wait_for(lambda: (d.state().latched or "").startswith("link lost"), 3.0)
+    assert events_of(d, "link-lost")
+    with pytest.raises(LinkError):
+        d.queue(Segment((DEG(10.0), DEG(90.0)), 0.1))
+    d.stop()                                           # never raises for a dead link
+    d.close()
+    d.close()
+
+
+def test_no_reply_at_all_is_link_lost_after_retries():
+    emu = Emulator(ARM, {"home_s": 0.05})
+    path = emu.start()
+    d = SerialDriver(ARM, port=path, timeout_s=0.05, retries=2, heartbeat_s=0)
+    try:
+        d.open()
+        emu.opts.drop_every = 1                        # from now on every line is lost
+        with pytest.raises(LinkError, match="after 3 tries"):
+            d.enable()
+        assert d.state().latched.startswith("link lost: no reply after 3 tries")
+    finally:
+        d.close()
+        emu.stop()
