@@ -336,4 +336,9 @@ def new_program(name: str, points: str) -> Program:
 
 
 __all__ = ["Program", "MoveStep", "DwellStep", "OutputStep", "Step", "ProgramError",
-           "check_step", "program_from_mapping", "step_from_mapping", "new_program"]
+           "check_step", "program_from_mapping", "step_from_mapping", "new_program",
+           "describe_step"]
+
+
+def describe_step(step: Step) -> str:
+    return step.describe()

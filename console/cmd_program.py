@@ -1,0 +1,443 @@
+"""``benchjog check`` and ``benchjog run``: programs of taught points.
+
+``check`` (the dry run) plans every step through the motion planner, each from where
+the step before leaves the arm (the first from the arm's home pose, where the simulated
+arm starts), and runs the interlock's static checks; it reports per step and in total:
+duration, warnings, closest approaches (soft limits, singular pose, keep-out zones),
+branch changes and every problem with its step number. ``run`` plans the same way
+from the arm's current position, shows the whole plan once, asks once, and runs it.
+
+The same functions serve the console's teach screen: :func:`plan_program`,
+:func:`report_lines`, :func:`report_json`, :func:`run_program`.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+import threading
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from console import exit_codes
+from console.armfile import load_arm
+from console.cli_common import add_arm_option, add_port_options, print_json, round_out
+from console.confirm_cli import PromptConfirmer
+from console.points import PointBook, PointError
+from console.programs import DwellStep, MoveStep, OutputStep, Program
+from console.safe_files import FileError
+from drivers.interlock import Confirmer, Dwell, Interlock, Proposal, RunResult, SetOutput
+from kinematics.model import Arm
+from kinematics.planner import Plan, PlanSummary, plan_move
+from kinematics.solve import TargetError
+
+
+@dataclass
+class StepReport:
+    """One step of a dry run. ``number`` counts from 1; ``action`` is what the
+    interlock would run (None when the step could not be planned at all)."""
+
+    number: int
+    step: Any
+    action: Any = None
+    duration_s: float = 0.0
+    summary: PlanSummary | None = None
+    target: tuple[float, ...] | None = None
+    warnings: list[str] = field(default_factory=list)
+    problems: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems
+
+
+@dataclass
+class ProgramReport:
+    """The dry run of a whole program."""
+
+    arm: Arm
+    program: Program
+    start_joints: tuple[float, ...]
+    end_joints: tuple[float, ...]
+    steps: list[StepReport]
+    warnings: list[str] = field(default_factory=list)   # not tied to one step (the points file)
+
+    @property
+    def problems(self) -> list[str]:
+        return [f"step {s.number}: {p}" for s in self.steps for p in s.problems]
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems and bool(self.steps)
+
+    @property
+    def actions(self) -> list[Any]:
+        return [s.action for s in self.steps]
+
+    @property
+    def duration_s(self) -> float:
+        return sum(s.duration_s for s in self.steps)
+
+    @property
+    def branch_changes(self) -> list[int]:
+        return [s.number for s in self.steps if s.summary is not None and s.summary.branch_change]
+
+    def closest(self) -> dict[str, Any]:
+        """The closest approaches over the whole program, each with its step number:
+        ``limits`` {joint name: (clearance, step)}, ``singular`` (rad, step),
+        ``zones`` {zone name: (mm, step)}."""
+        limits: dict[str, tuple[float, int]] = {}
+        singular: tuple[float, int] | None = None
+        zones: dict[str, tuple[float, int]] = {}
+        for s in self.steps:
+            if s.summary is None or not s.summary.segment_count:
+                continue
+            for joint, gap in zip(self.arm.joints, s.summary.limit_clearance):
+                if joint.name not in limits or gap < limits[joint.name][0]:
+                    limits[joint.name] = (gap, s.number)
+            if singular is None or s.summary.singular_distance_rad < singular[0]:
+                singular = (s.summary.singular_distance_rad, s.number)
+            for name, gap in s.summary.zone_clearance_mm.items():
+                if name not in zones or gap < zones[name][0]:
+                    zones[name] = (gap, s.number)
+        return {"limits": limits, "singular": singular, "zones": zones}
+
+
+def _step_target(book: PointBook, step: MoveStep) -> tuple[Any, tuple[float, ...]]:
+    point = book.point(step.point)
+    return point, book.base_target(point)
+
+
+def plan_program(arm: Arm, program: Program, book: PointBook,
+                 start_joints: tuple[float, ...] | None = None,
+                 gate: Interlock | None = None) -> ProgramReport:
+    """Plan every step (no motion). ``start_joints`` default: the arm's home pose.
+    ``gate``: the interlock whose static checks to apply; a simulated one is opened
+    (and closed) when none is given."""
+    start = tuple(start_joints) if start_joints is not None else arm.home_joints
+    own_gate = gate is None
+    if own_gate:
+        gate = Interlock.open(arm, "sim", journal=False)
+    try:
+        here = start
+        reports: list[StepReport] = []
+        for number, step in enumerate(program.steps, 1):
+            report = StepReport(number, step)
+            reports.append(report)
+            if isinstance(step, MoveStep):
+                try:
+                    point, target = _step_target(book, step)
+                except PointError as exc:
+                    report.problems.append(str(exc))
+                    continue
+                report.target = target
+                try:
+                    plan = plan_move(arm, here, target, branch=point.branch, path=step.path,
+                                     speed_pct=step.speed_pct)
+                except TargetError as exc:
+                    report.problems.append(str(exc))
+                    continue
+                report.action, report.summary = plan, plan.summary
+                report.duration_s = plan.summary.duration_s
+                report.warnings += list(plan.summary.warnings)
+                if plan.ok and plan.segments:
+                    here = plan.segments[-1].joints
+            elif isinstance(step, DwellStep):
+                report.action = Dwell(step.seconds)
+                report.duration_s = step.seconds
+            elif isinstance(step, OutputStep):
+                report.action = SetOutput(step.channel, step.on)
+            if report.action is not None:
+                # the interlock's static checks for this one action (no driver state);
+                # a plan's own problems come back among them
+                begin = report.summary.start_joints if report.summary is not None else None
+                verdict = gate.check_actions([report.action], begin)
+                report.problems += [r for r in verdict.reasons if r not in report.problems]
+        return ProgramReport(arm, program, start, here, reports, list(book.warnings))
+    finally:
+        if own_gate:
+            gate.close()
+
+
+# --- reports ---------------------------------------------------------------------------
+
+def _clearance_words(arm: Arm, summary: PlanSummary) -> str:
+    parts = [f"{j.name} {j.to_display(v):.2f} {j.unit}"
+             for j, v in zip(arm.joints, summary.limit_clearance)]
+    words = "limits " + ", ".join(parts)
+    words += f"; singular {math.degrees(summary.singular_distance_rad):.2f} deg"
+    for name, gap in summary.zone_clearance_mm.items():
+        words += f"; {name} " + (f"{gap:.1f} mm" if math.isfinite(gap) else "clear (other height)")
+    return words
+
+
+def report_lines(report: ProgramReport) -> list[str]:
+    """The dry run for people: one block per step, then the totals."""
+    arm, program = report.arm, report.program
+    where = f" ({program.path})" if program.path else ""
+    out = [f"program {program.name!r}{where}: {len(program.steps)} steps on arm {arm.name}"]
+    out += [f"warning: {w}" for w in report.warnings]
+    for s in report.steps:
+        head = f"step {s.number:>2}: {s.step.describe()}"
+        if s.summary is not None and s.summary.segment_count:
+            branch = str(s.summary.branch) if s.summary.branch else "no branch"
+            if s.summary.branch_change:
+                branch += ", BRANCH CHANGE"
+            head += f": {s.duration_s:.3f} s, {branch}, {s.summary.segment_count} segments"
+            out.append(head)
+            out.append(f"         closest: {_clearance_words(arm, s.summary)}")
+        else:
+            out.append(head + (f": {s.duration_s:.3f} s" if s.duration_s else ""))
+        out += [f"         warning: {w}" for w in s.warnings]
+        out += [f"         PROBLEM: {p}" for p in s.problems]
+    moves = [s for s in report.steps if isinstance(s.step, MoveStep)]
+    segments = sum(s.summary.segment_count for s in moves if s.summary is not None)
+    out.append(f"total: {report.duration_s:.3f} s, {len(report.steps)} steps "
+               f"({len(moves)} moves, {segments} segments)")
+    closest = report.closest()
+    if closest["limits"]:
+        out.append("closest to soft limits: " + ", ".join(
+            f"{j.name} {j.to_display(closest['limits'][j.name][0]):.2f} {j.unit} "
+            f"(step {closest['limits'][j.name][1]})" for j in arm.joints
+            if j.name in closest["limits"]))
+    if closest["singular"] is not None:
+        gap, number = closest["singular"]
+        out.append(f"closest to a singular pose: elbow {math.degrees(gap):.2f} deg (step {number})")
+    for name, (gap, number) in closest["zones"].items():
+        out.append(f"closest to keep-out zone {name!r}: "
+                   + (f"{gap:.1f} mm (step {number})" if math.isfinite(gap) else "never at its height"))
+    changes = report.branch_changes
+    out.append("branch changes: " + (", ".join(f"step {n}" for n in changes) if changes else "none"))
+    problems = report.problems
+    if not report.steps:
+        out.append("problems: the program has no steps")
+    elif problems:
+        out.append(f"problems: {len(problems)}")
+        out += [f"  {p}" for p in problems]
+    else:
+        out.append("problems: none")
+    return out
+
+
+def _disp_tool(arm: Arm, pose: tuple[float, ...] | None) -> list[float] | None:
+    if pose is None:
+        return None
+    shown = list(pose)
+    if arm.is_scara:
+        shown[3] = math.degrees(shown[3])
+    return [round_out(v, 6) for v in shown]
+
+
+def _clean(value: Any) -> Any:
+    """Round floats for JSON and turn non-finite ones into None."""
+    if isinstance(value, float):
+        return round_out(value, 6) if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {k: _clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_clean(v) for v in value]
+    return value
+
+
+def report_json(report: ProgramReport) -> dict[str, Any]:
+    """The dry run for scripts (the shape is documented in the README)."""
+    arm, program = report.arm, report.program
+    steps = []
+    for s in report.steps:
+        item: dict[str, Any] = {"step": s.number, "description": s.step.describe()}
+        if isinstance(s.step, MoveStep):
+            item.update(action="move", point=s.step.point, path=s.step.path,
+                        speed_pct=s.step.speed_pct, target=_disp_tool(arm, s.target),
+                        plan=s.summary.to_dict(arm) if s.summary is not None else None)
+        elif isinstance(s.step, DwellStep):
+            item.update(action="dwell", seconds=s.step.seconds)
+        else:
+            item.update(action="output", channel=s.step.channel, on=s.step.on)
+        item.update(duration_s=s.duration_s, ok=s.ok, warnings=list(s.warnings),
+                    problems=list(s.problems))
+        steps.append(item)
+    closest = report.closest()
+    return _clean({
+        "program": str(program.path) if program.path else None,
+        "name": program.name,
+        "points": str(program.points_path),
+        "arm": arm.name,
+        "ok": report.ok,
+        "start_joints": [j.to_display(v) for j, v in zip(arm.joints, report.start_joints)],
+        "steps": steps,
+        "total": {
+            "duration_s": report.duration_s,
+            "steps": len(report.steps),
+            "moves": sum(isinstance(s.step, MoveStep) for s in report.steps),
+            "segments": sum(s.summary.segment_count for s in report.steps if s.summary is not None),
+            "closest": {
+                "limits": [{"joint": j.name, "clearance": j.to_display(closest["limits"][j.name][0]),
+                            "unit": j.unit, "step": closest["limits"][j.name][1]}
+                           for j in arm.joints if j.name in closest["limits"]],
+                "singular": None if closest["singular"] is None else {
+                    "elbow_deg": math.degrees(closest["singular"][0]),
+                    "step": closest["singular"][1]},
+                "zones": [{"zone": name, "clearance_mm": gap, "step": number}
+                          for name, (gap, number) in closest["zones"].items()],
+            },
+            "branch_changes": report.branch_changes,
+            "warnings": list(report.warnings),
+            "problems": report.problems if report.steps else ["the program has no steps"],
+        },
+    })
+
+
+# --- loading and running -----------------------------------------------------------------
+
+def load_program(path: str | Path, arm: Arm) -> tuple[Program, PointBook]:
+    """The program and its points book. Raises FileError (one line) for bad files."""
+    program = Program.load(path)
+    book = PointBook.load(program.points_path, arm)
+    return program, book
+
+
+def program_request(program: Program) -> str:
+    name = program.path.name if program.path else program.name
+    return f"program {name} ({program.name}, {len(program.steps)} steps)"
+
+
+def propose_program(gate: Interlock, report: ProgramReport) -> Proposal:
+    """The one proposal for the whole program (nothing moves)."""
+    return gate.propose_actions(report.actions, program_request(report.program),
+                                start_joints=report.start_joints)
+
+
+def run_program(gate: Interlock, arm: Arm, program: Program, book: PointBook,
+                confirmer: Confirmer) -> tuple[ProgramReport, RunResult]:
+    """Plan from the arm's current joints, propose once, execute after one yes.
+    Blocks until done: call it from a worker thread in the UI."""
+    report = plan_program(arm, program, book, gate.state().joints, gate=gate)
+    if not report.ok:
+        detail = "refused: " + ("; ".join(report.problems) or "the program has no steps")
+        first = next((s.number - 1 for s in report.steps if s.problems), None)
+        return report, RunResult(False, "refused", detail, 0, first)
+    proposal = propose_program(gate, report)
+    return report, gate.execute(proposal, confirmer)
+
+
+def result_words(report: ProgramReport, result: RunResult) -> str:
+    """One line: the outcome, and which step failed or halted."""
+    if result.completed:
+        return (f"done: program {report.program.name!r}, {len(report.steps)} steps, "
+                f"{report.duration_s:.2f} s planned")
+    if result.step is not None and 0 <= result.step < len(report.steps):
+        s = report.steps[result.step]
+        return f"{result.outcome} at step {s.number} ({s.step.describe()}): {result.detail}"
+    return result.detail
+
+
+def exit_code_of(result: RunResult) -> int:
+    """0 done; 3 when the link or the controller failed (a halt that is not a person's
+    stop); 1 for the rest (cancelled, refused, expired, stopped)."""
+    if result.completed:
+        return exit_codes.OK
+    if result.outcome == "halted":
+        return exit_codes.LINK_FAILED
+    return exit_codes.REFUSED
+
+
+# --- the commands -------------------------------------------------------------------
+
+def register(sub: argparse._SubParsersAction) -> None:
+    check = sub.add_parser("check", help="dry-run a program of taught points and report",
+                           description="Plan every step of a program (from the arm's home pose) "
+                           "and report durations, warnings, closest approaches, branch changes "
+                           "and problems. Nothing moves. Exit 0: no problems; 1: problems; "
+                           "2: bad input.")
+    check.add_argument("program", metavar="PROGRAM", help="program file (TOML)")
+    add_arm_option(check)
+    check.add_argument("--json", action="store_true", help="machine-readable output")
+    check.set_defaults(func=cmd_check)
+
+    run = sub.add_parser("run", help="run a program for real after one confirmation",
+                         description="Plan the whole program from the current position, print "
+                         "the plan, ask once, run it (the simulated arm when no port). A step "
+                         "that fails halts the program and is named.")
+    run.add_argument("program", metavar="PROGRAM", help="program file (TOML)")
+    add_arm_option(run)
+    add_port_options(run)
+    run.add_argument("--journal", metavar="FILE", default=None,
+                     help="append the motion journal here (default: a new file in the user's "
+                     "data directory)")
+    run.set_defaults(func=cmd_run)
+
+
+def _bad_input(exc: Exception) -> int:
+    print(f"benchjog: {exc}", file=sys.stderr)
+    return exit_codes.BAD_INPUT
+
+
+def cmd_check(args: argparse.Namespace) -> int:
+    arm = load_arm(args.arm)
+    try:
+        program, book = load_program(args.program, arm)
+    except (FileError, PointError) as exc:
+        return _bad_input(exc)
+    report = plan_program(arm, program, book)
+    if args.json:
+        print_json(report_json(report))
+    else:
+        print("\n".join(report_lines(report)))
+    return exit_codes.OK if report.ok else exit_codes.REFUSED
+
+
+def _open_gate(arm: Arm, args: argparse.Namespace) -> Interlock:
+    journal = args.journal if getattr(args, "journal", None) else None
+    port = getattr(args, "port", None)
+    if port:
+        return Interlock.open(arm, "serial", journal=journal, port=port,
+                              baud=getattr(args, "baud", 115200))
+    return Interlock.open(arm, "sim", journal=journal)
+
+
+def cmd_run(args: argparse.Namespace) -> int:
+    arm = load_arm(args.arm)
+    try:
+        program, book = load_program(args.program, arm)
+    except (FileError, PointError) as exc:
+        return _bad_input(exc)
+    confirmer = PromptConfirmer(arm, question="Run this program?")
+    with _open_gate(arm, args) as gate:
+        gate.enable()
+        try:
+            box: dict[str, Any] = {}
+
+            def work() -> None:
+                try:
+                    box["out"] = run_program(gate, arm, program, book, confirmer)
+                except BaseException as exc:  # noqa: BLE001 - re-raised below
+                    box["error"] = exc
+
+            worker = threading.Thread(target=work, name="benchjog-run", daemon=True)
+            worker.start()
+            try:
+                while worker.is_alive():
+                    worker.join(0.1)
+            except KeyboardInterrupt:
+                gate.stop()  # ctrl+c stops the arm at once, then we report where
+                worker.join(10.0)
+            if "error" in box:
+                raise box["error"]
+            report, result = box["out"]
+        finally:
+            try:
+                gate.disable()
+            except Exception:  # noqa: BLE001 - the link may be gone; close() follows
+                pass
+    if not report.ok:
+        for line in report_lines(report):
+            print(line, file=sys.stderr)
+    print(result_words(report, result))
+    return exit_code_of(result)
+
+
+__all__ = ["plan_program", "report_lines", "report_json", "run_program", "load_program",
+           "propose_program", "result_words", "ProgramReport", "StepReport", "register",
+           "cmd_check", "cmd_run"]
