@@ -248,8 +248,8 @@ def _peaks(arm: Arm, start: np.ndarray, q: np.ndarray, t: np.ndarray) -> tuple[t
 
 def _refused(arm: Arm, kind: str, start, end, branch, problems, warnings=(),
              zone_clearance=None) -> Plan:
-    start = tuple(start)
-    end = tuple(end) if end is not None else start
+    start = tuple(float(v) for v in start)
+    end = tuple(float(v) for v in end) if end is not None else start
     clear = tuple(min(limit_clearance(j, a), limit_clearance(j, b))
                   for j, a, b in zip(arm.joints, start, end))
     t2a = start[1] + arm.joints[1].offset_rad
