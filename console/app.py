@@ -185,7 +185,8 @@ class BenchjogApp(App):
         elif message.error:
             self.state = None
         for event in message.events:
-            self.jog_screen.log_event(event.kind, event.detail)
+            if event.kind != "done":   # one line per segment would drown the rest
+                self.jog_screen.log_event(event.kind, event.detail)
         self.refresh_view()
 
     @staticmethod

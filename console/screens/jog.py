@@ -99,7 +99,7 @@ class JogScreen(Screen):
                 yield JogStatus(id="jogstatus")
                 yield Static("", id="message")
             yield EventLog(id="events")
-        yield Footer(compact=True)
+        yield Footer()
 
     def on_mount(self) -> None:
         self.query_one("#sketch").border_title = f"{self.arm.name}: seen from above" + (
@@ -121,7 +121,7 @@ class JogScreen(Screen):
         self.query_one(Banner).show(banner_lines(app.state, app.state_error, app.reach_warning()))
         polled = None if app.polled_at is None else max(0.0, app._clock() - app.polled_at)
         self.query_one(LinkStatus).show(link_words(app.state, app.driver_name, app.state_error,
-                                                   polled))
+                                                   polled) + "\n" + self.motion_words())
         actual = app.actual
         self.query_one(JointReadout).show(actual, app.commanded_joints())
         ik, active, title = app.current_ik()
@@ -136,11 +136,15 @@ class JogScreen(Screen):
         app = self.app
         mode = "joints" if app.joint_mode else "tool (Cartesian)"
         unit = "mm / deg" if (app.joint_mode or self.arm.is_scara) else "mm"
-        state = ("moving: " + app.busy.words(self.arm)) if app.busy is not None else "idle"
+        return (f"jog {mode}   step {app.step:g} {unit}   move path {app.path}   "
+                f"speed {app.speed_pct:g} %")
+
+    def motion_words(self) -> str:
+        app = self.app
+        words = ("motion: " + app.busy.words(self.arm)) if app.busy is not None else "motion: idle"
         if app.pending is not None:
-            state += f"; next: {app.pending.words(self.arm)}"
-        return (f"jog {mode}   step {app.step:g} {unit}   path {app.path}   "
-                f"speed {app.speed_pct:g} %   {state}")
+            words += f"; next {app.pending.words(self.arm)}"
+        return words
 
     def show_message(self, words: str, *, error: bool = False) -> None:
         try:
