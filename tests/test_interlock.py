@@ -1,0 +1,295 @@
+"""The safety gate: no motion without the interlock's checks and a yes, approvals bind
+to exactly one plan, trouble halts and stays latched, and the journal records it all."""
+
+from __future__ import annotations
+
+import ast
+import dataclasses
+import math
+import threading
+import time
+from pathlib import Path
+
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from console.armfile import builtin_arm
+from drivers.calibration import joints_from_counts
+from drivers.interlock import Confirmer, Dwell, Interlock, SetOutput
+from drivers.journal import Journal, read_journal
+from kinematics.model import Branch
+from kinematics.solve import joints_from_tool, tool_from_joints
+
+ROOT = Path(__file__).resolve().parents[1]
+ARM = builtin_arm("planar-bench")
+
+
+class Answer(Confirmer):
+    """A confirmer that answers as told and counts the questions."""
+
+    def __init__(self, yes: bool, before=None):
+        self.yes, self.before, self.asked = yes, before, 0
+
+    def confirm(self, proposal) -> bool:
+        self.asked += 1
+        if self.before:
+            self.before()
+        return self.yes
+
+
+YES, NO = (lambda: Answer(True)), (lambda: Answer(False))
+
+
+def moves(gate) -> list[tuple]:
+    return [c for c in gate.sim.commands if c[0] == "MOVE"]
+
+
+@pytest.fixture
+def gate():
+    g = Interlock.open(ARM, "sim", journal=False, time_scale=50.0)
+    g.enable()
+    yield g
+    g.close()
+
+
+def test_no_path_around_the_gate():
+    """Structural: outside drivers/ no module imports a driver class, the registry or
+    builds a driver; inside drivers/ only the interlock builds one. A new path to a
+    driver's motion calls would have to break one of these rules."""
+    forbidden_modules = {"drivers.registry", "drivers.sim", "drivers.serial_link"}
+    forbidden_names = {"Driver", "SimDriver", "SerialDriver", "create_driver", "load_driver_class"}
+    offenders = []
+    for path in sorted(ROOT.glob("*/**/*.py")):
+        rel = path.relative_to(ROOT)
+        top = rel.parts[0]
+        if top in ("tests", ".venv") or top.startswith("."):
+            continue
+        if top == "drivers" and rel.name in ("interlock.py", "registry.py", "base.py", "sim.py",
+                                              "serial_link.py"):
+            continue
+        tree = ast.parse(path.read_text(encoding="utf-8"))
+        for node in ast.walk(tree):
+            if isinstance(node, ast.ImportFrom) and node.module:
+                names = {a.name for a in node.names}
+                if node.module in forbidden_modules or (names & forbidden_names):
+                    offenders.append(f"{rel}: from {node.module} import {sorted(names)}")
+            elif isinstance(node, ast.Import):
+                for alias in node.names:
+                    if alias.name in forbidden_modules:
+                        offenders.append(f"{rel}: import {alias.name}")
+    assert offenders == []
+    # The interlock keeps its driver private (name-mangled, not a public attribute).
+    g = Interlock.open(ARM, "sim", journal=False)
+    try:
+        public = [k for k in vars(g) if not k.startswith("_")]
+        assert all(not hasattr(getattr(g, k), "queue") for k in public if k != "sim")
+        assert not hasattr(g.sim, "queue") and not hasattr(g.sim, "home")
+    finally:
+        g.close()
+
+
+def test_yes_moves_the_arm_to_the_target(gate):
+    target = (150.0, 200.0)
+    proposal = gate.propose_move(target, branch=Branch.ELBOW_UP)
+    assert proposal.ok, proposal.verdict.reasons
+    result = gate.execute(proposal, YES())
+    assert result.completed and result.outcome == "done"
+    x, y, _ = tool_from_joints(ARM, gate.state().joints)
+    # The sim reports counts: 40 counts/deg, so the pose is good to ~0.0125 deg.
+    assert math.hypot(x - target[0], y - target[1]) < 0.2
+    assert gate.state().joints[1] < 0  # elbow-up: j2 < 0 (CONTRACT.md)
+
+
+def test_no_and_refusals_move_nothing(gate):
+    before = gate.state().joints
+    assert gate.execute(gate.propose_move((150.0, 200.0)), NO()).outcome == "cancelled"
+    out_of_reach = gate.propose_move((500.0, 0.0))
+    assert not out_of_reach.ok
+    asked = Answer(True)
+    assert gate.execute(out_of_reach, asked).outcome == "refused"
+    assert asked.asked == 0  # a refused plan is never even offered for confirmation
+    assert moves(gate) == [] and gate.state().joints == before
+
+
+@pytest.mark.parametrize("setup, words", [
+    (lambda g: g.disable(), "drives are off"),
+    (lambda g: g.sim.inject_estop(), "latched: estop"),
+    (lambda g: g.sim.inject_fault("DRIVE", 2), "latched: fault"),
+])
+def test_driver_state_refusals(gate, setup, words):
+    setup(gate)
+    proposal = gate.propose_move((150.0, 200.0))
+    assert not proposal.ok
+    assert any(words in r for r in proposal.verdict.reasons), proposal.verdict.reasons
+    assert gate.execute(proposal, YES()).outcome == "refused"
+    assert moves(gate) == []
+
+
+def test_soft_limit_margin_is_kept(gate):
+    # The shoulder's max is 150 deg and the margin 0.5 deg: 149.8 deg is refused.
+    proposal = gate.propose_joints((math.radians(149.8), math.radians(30.0)))
+    assert not proposal.ok
+    assert any("shoulder at 149." in r and "outside its soft limits" in r and "margin 0.5 deg" in r
+               for r in proposal.verdict.reasons)
+    assert gate.execute(proposal, YES()).outcome == "refused" and moves(gate) == []
+
+
+def test_jog_step_cap(gate):
+    proposal = gate.propose_jog("x", 60.0)
+    assert any("jog step 60 mm exceeds the cap 50 mm" in r for r in proposal.verdict.reasons)
+    small = gate.propose_jog("y", -5.0)
+    assert small.ok, small.verdict.reasons
+    assert gate.execute(small, YES()).completed
+
+
+def test_approval_expires(gate):
+    clock = [1000.0]
+    g = Interlock(ARM, gate._Interlock__driver, journal=None, clock=lambda: clock[0])
+    proposal = g.propose_move((150.0, 200.0))
+    late = Answer(True, before=lambda: clock.__setitem__(0, clock[0] + Interlock.APPROVAL_TTL_S + 1))
+    result = g.execute(proposal, late)
+    assert result.outcome == "expired" and moves(gate) == []
+
+
+def test_approval_binds_to_the_arm_position_and_the_plan(gate):
+    first = gate.propose_move((150.0, 200.0))
+    second = gate.propose_move((100.0, 250.0))
+    assert gate.execute(first, YES()).completed
+    # The arm moved since `second` was made: it needs a new confirmation.
+    assert gate.execute(second, YES()).outcome == "expired"
+    # A proposal changed after it was made is refused.
+    third = gate.propose_move((120.0, 240.0))
+    tampered = dataclasses.replace(third, actions=third.actions + (Dwell(0.1),))
+    assert gate.execute(tampered, YES()).outcome == "refused"
+    # An approval is used once.
+    assert gate.execute(third, YES()).completed
+    count = len(moves(gate))
+    assert gate.execute(third, YES()).outcome == "refused" and len(moves(gate)) == count
+
+
+def test_estop_mid_move_halts_and_stays_latched():
+    g = Interlock.open(ARM, "sim", journal=False, time_scale=1.0)
+    try:
+        g.enable()
+        proposal = g.propose_joints((math.radians(-60.0), math.radians(60.0)), speed_pct=100)
+        assert proposal.ok, proposal.verdict.reasons
+        timer = threading.Timer(0.15, g.sim.inject_estop)
+        timer.start()
+        result = g.execute(proposal, YES())
+        timer.join()
+        assert result.outcome == "halted" and "estop" in result.detail
+        state = g.state()
+        assert state.latched == "estop"
+        # Nothing more moves until an explicit reset.
+        assert not g.propose_jog("x", 1.0).ok
+        g.sim.release_estop()
+        g.reset()
+        g.enable()
+        assert g.state().latched is None
+    finally:
+        g.close()
+
+
+def test_stop_never_waits_for_a_confirmation(gate):
+    asking, release = threading.Event(), threading.Event()
+
+    class Slow(Confirmer):
+        def confirm(self, proposal):
+            asking.set()
+            release.wait(5)
+            return True
+
+    worker = threading.Thread(target=lambda: gate.execute(gate.propose_move((150.0, 200.0)), Slow()))
+    worker.start()
+    assert asking.wait(5)
+    gate.stop()  # returns while the confirmer is still blocked
+    assert not release.is_set()
+    release.set()
+    worker.join(5)
+    assert ("STOP",) in gate.sim.commands or any(c[0] == "STOP" for c in gate.sim.commands)
+
+
+def test_program_actions_run_in_order(gate):
+    start = gate.state().joints
+    from kinematics.planner import plan_move
+    a = plan_move(ARM, start, (150.0, 200.0))
+    b = plan_move(ARM, a.segments[-1].joints, (100.0, 250.0))
+    proposal = gate.propose_actions([a, SetOutput(1, True), Dwell(0.05), b], "test program")
+    assert proposal.ok, proposal.verdict.reasons
+    result = gate.execute(proposal, YES())
+    assert result.completed
+    kinds = [c[0] for c in gate.sim.commands if c[0] in ("MOVE", "OUT")]
+    assert kinds.index("OUT") > 0 and kinds[-1] == "MOVE"
+    assert gate.state().outputs & 0b10
+
+
+def test_journal_records_request_confirmation_segments_and_result(tmp_path):
+    path = tmp_path / "journal.jsonl"
+    g = Interlock.open(ARM, "sim", journal=Journal(path), time_scale=50.0)
+    try:
+        g.enable()
+        g.execute(g.propose_move((150.0, 200.0)), NO())
+        g.execute(g.propose_move((150.0, 200.0)), YES())
+    finally:
+        g.close()
+    entries = read_journal(path)
+    kinds = [e["kind"] for e in entries]
+    assert kinds[0] == "open" and kinds[-1] == "close"
+    assert kinds.count("request") == 2 and kinds.count("confirmation") == 2
+    yes_tokens = {e["token"] for e in entries if e["kind"] == "confirmation" and e["yes"]}
+    segments = [e for e in entries if e["kind"] == "segment"]
+    assert segments and {e["token"] for e in segments} == yes_tokens
+    results = [e["outcome"] for e in entries if e["kind"] == "result"]
+    assert results == ["cancelled", "done"]
+
+
+# -- random sequences -------------------------------------------------------------------
+ACTIONS = st.one_of(
+    st.tuples(st.just("jog"), st.sampled_from(["x", "y", "j1", "j2"]), st.floats(-70, 70),
+              st.booleans()),
+    st.tuples(st.just("move"), st.floats(-400, 400), st.floats(-400, 400), st.booleans()),
+    st.tuples(st.just("estop"), st.just(0), st.just(0), st.just(False)),
+    st.tuples(st.just("fault"), st.just(0), st.just(0), st.just(False)),
+    st.tuples(st.just("reset"), st.just(0), st.just(0), st.just(False)),
+)
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.lists(ACTIONS, min_size=1, max_size=8))
+def test_random_sequences_never_pass_the_soft_limits_or_move_without_a_yes(tmp_path_factory, seq):
+    path = tmp_path_factory.mktemp("j") / "journal.jsonl"
+    g = Interlock.open(ARM, "sim", journal=Journal(path), time_scale=200.0)
+    yes_count = 0
+    try:
+        g.enable()
+        for kind, a, b, answer in seq:
+            if kind == "estop":
+                g.sim.inject_estop()
+            elif kind == "fault":
+                g.sim.inject_fault("DRIVE", 1)
+            elif kind == "reset":
+                g.sim.release_estop()
+                g.reset()
+                g.enable()
+            else:
+                if kind == "jog":
+                    delta = math.radians(b) / 5 if a.startswith("j") else b
+                    proposal = g.propose_jog(a, delta)
+                else:
+                    proposal = g.propose_move((a, b))
+                confirmer = Answer(answer)
+                g.execute(proposal, confirmer)
+                yes_count += confirmer.asked and answer
+    finally:
+        g.close()
+    for command in g.sim.commands:
+        if command[0] == "MOVE":
+            joints = joints_from_counts(ARM, command[2])
+            for joint, value in zip(ARM.joints, joints):
+                assert joint.min <= value <= joint.max, (joint.name, math.degrees(value))
+    entries = read_journal(path)
+    confirmed = {e["token"] for e in entries if e["kind"] == "confirmation" and e["yes"]}
+    assert {e["token"] for e in entries if e["kind"] == "segment"} <= confirmed
+    if yes_count == 0:
+        assert not [c for c in g.sim.commands if c[0] == "MOVE"]
