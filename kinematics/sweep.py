@@ -28,6 +28,8 @@ from kinematics.scara import flange_z_mm
 ZONE_STEP_MIN_MM = 1e-3   # the sweep stops refining once samples are this close in motion
 ZONE_REPORT_MM = 0.25     # closest approaches are reported to within this much ...
 ZONE_REPORT_REL = 0.05    # ... or 5 % of the clearance, whichever is larger
+CONTACT_SCAN_MM = 0.05    # a contact is located to within this much motion of the arm ...
+CONTACT_SCAN_MAX = 20001  # ... using at most this many poses
 
 
 # --------------------------------------------------------------------------- points
@@ -237,6 +239,27 @@ class Contact:
     gap_mm: float        # the (negative, or unresolved small) gap found there
 
 
+def _first_entry(arm: Arm, knots: np.ndarray, found: Contact) -> Contact:
+    """Locate where the path first enters a zone on the piece of ``found`` (a pose
+    found inside, not necessarily the first): poses from the piece's start to
+    ``found.tau`` spaced so that no point moves more than CONTACT_SCAN_MM between them
+    (at most CONTACT_SCAN_MAX poses), the first one inside."""
+    qa, qb = knots[found.segment], knots[found.segment + 1]
+    dq = qb - qa
+    rate = float(max(lever_mm(arm, dq), z_step_mm(arm, dq)))
+    n = int(min(CONTACT_SCAN_MAX, max(2, math.ceil(rate * found.tau / CONTACT_SCAN_MM) + 1)))
+    tau = np.linspace(0.0, found.tau, n)
+    comb, _, part_names = zone_gaps(arm, qa + tau[:, None] * dq)
+    c = comb.min(axis=2)
+    inside = (c < 0).any(axis=1)
+    if not inside.any():
+        return found
+    k = int(np.argmax(inside))
+    zi = int(np.argmin(c[k]))
+    parts = tuple(part_names[zi][p] for p in np.flatnonzero(comb[k, zi] < 0))
+    return Contact(found.segment, float(tau[k]), arm.zones[zi].name, parts, float(c[k, zi]))
+
+
 @dataclass(frozen=True)
 class SweepResult:
     clearance_mm: dict[str, float]   # closest approach per zone: the combined gap (zone_gaps)
@@ -276,9 +299,9 @@ def sweep_zones(arm: Arm, knots: np.ndarray) -> SweepResult:
             parts = tuple(part_names[zi][p] for p in np.flatnonzero(comb_full[k, zi] < 0))
             contacts.append(Contact(int(seg[k]), float(tau[k]), names[zi], parts, float(cz[k, zi])))
 
-    note_contacts(np.minimum(np.arange(samples), len(dq) - 1) if len(dq) else np.zeros(samples, int),
-                  np.where(np.arange(samples) == len(dq), 1.0, 0.0) if len(dq) else np.zeros(samples),
-                  c, comb)
+    # knot k ends piece k - 1 (tau 1); knot 0 starts piece 0
+    knot = np.arange(samples)
+    note_contacts(np.maximum(knot - 1, 0), np.where(knot > 0, 1.0, 0.0), c, comb)
     seg = np.arange(len(dq))
     ta = np.zeros(len(dq))
     tb = np.ones(len(dq))
@@ -310,6 +333,9 @@ def sweep_zones(arm: Arm, knots: np.ndarray) -> SweepResult:
         ta, tb = np.concatenate([ta, tm]), np.concatenate([tm, tb])
         ca, cb = np.concatenate([ca, cm]), np.concatenate([cm, cb])
     first = min(contacts, key=lambda k: (k.segment, k.tau)) if contacts else None
+    if first is not None:
+        first = _first_entry(arm, knots, first)
+        samples += CONTACT_SCAN_MAX
     clearance = {name: float(best[i]) for i, name in enumerate(names)}
     if first is not None:
         clearance[first.zone] = min(clearance[first.zone], first.gap_mm)
