@@ -213,7 +213,7 @@ class PointBook:
             "joints": [_r(j.to_display(v)) for j, v in zip(self.arm.joints, p.joints)],
             "branch": p.branch.value, "taught": p.taught or None, "note": p.note or None,
         } for p in self.points]
-        return doc
+        return {k: v for k, v in doc.items() if v != []}
 
     # --- lookups -------------------------------------------------------------------
 

@@ -190,9 +190,12 @@ class Program:
                 item = {"action": "output", "channel": step.channel, "on": step.on}
             item["note"] = step.note or None
             steps.append(item)
-        return {"program": {"kind": FILE_KIND, "version": FILE_VERSION, "name": self.name,
-                            "points": self.points, "note": self.note or None},
-                "steps": steps}
+        doc: dict[str, Any] = {"program": {"kind": FILE_KIND, "version": FILE_VERSION,
+                                           "name": self.name, "points": self.points,
+                                           "note": self.note or None}}
+        if steps:
+            doc["steps"] = steps
+        return doc
 
     def to_text(self) -> str:
         return toml_text(self.to_mapping(), header=(

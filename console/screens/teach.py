@@ -1,0 +1,686 @@
+"""TeachScreen: taught points, user frames and the program built from them.
+
+Teach the arm's current pose as a named point (in the base frame or a user frame),
+rename, update (teach again at the current pose), delete (asks), go to a point (through
+the interlock: a proposal, the app's confirmation, then motion in a thread worker),
+define a user frame from two taught poses, build the program (add the selected point as
+a step, dwells and outputs, reorder, delete), dry-run it, run it, pause, resume, stop.
+
+Every edit is saved at once (atomically, with a ``.bak`` of the previous version); the
+points and program files are locked while the screen is open so a second console
+cannot write them. The screen has no text field of its own (names are typed in small
+dialogs), so the stop key always reaches it.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import threading
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from rich.text import Text
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.message import Message
+from textual.screen import ModalScreen, Screen
+from textual.widgets import Button, DataTable, Footer, Input, Label, Select, Static
+
+from console.cmd_program import plan_program, report_lines, result_words, run_program
+from console.points import BASE, PointBook, PointError
+from console.programs import DwellStep, MoveStep, OutputStep, Program, ProgramError
+from console.safe_files import FileError, FileLock
+from drivers.interlock import Confirmer, Interlock, Proposal
+from kinematics.model import Arm
+
+SPEEDS = (100.0, 50.0, 25.0, 10.0)
+
+
+def one_line(exc: BaseException) -> str:
+    text = str(exc).strip().splitlines()
+    return text[0] if text else type(exc).__name__
+
+
+class _ScreenConfirmer(Confirmer):
+    """Used when the app offers no confirmer of its own: the console's confirmation
+    screen, pushed from the worker thread; blocks the worker until answered."""
+
+    def __init__(self, screen: "TeachScreen"):
+        self.screen = screen
+
+    def confirm(self, proposal: Proposal) -> bool:
+        from console.screens.confirm import ConfirmMoveScreen
+
+        app = self.screen.app
+        if threading.get_ident() == getattr(app, "_thread_id", None):
+            return False
+        answered = threading.Event()
+        box = {"yes": False}
+
+        def on_answer(result: bool | None) -> None:
+            box["yes"] = result is True
+            answered.set()
+
+        modal = ConfirmMoveScreen(proposal.lines(self.screen.arm), title=proposal.request)
+        try:
+            app.call_from_thread(app.push_screen, modal, on_answer)
+        except RuntimeError:
+            return False
+        while not answered.wait(0.05):
+            if getattr(app, "closing", False) or not app.is_running:
+                return False
+        return box["yes"]
+
+
+class AskScreen(ModalScreen[dict | None]):
+    """A small form: one Input per field (and an optional frame choice); enter or the
+    OK button returns the values, escape returns None."""
+
+    DEFAULT_CSS = """
+    AskScreen { align: center middle; }
+    #ask-box { width: 64; height: auto; border: thick $accent; padding: 1 2; background: $surface; }
+    #ask-box Input, #ask-box Select { margin-bottom: 1; }
+    """
+    BINDINGS = [Binding("escape", "cancel", "cancel", tooltip="Close without changing anything",
+                        id="ask.cancel")]
+
+    def __init__(self, title: str, fields: list[tuple[str, str, str]],
+                 frames: list[str] | None = None, frame: str = BASE):
+        super().__init__()
+        self.title_words = title
+        self.fields = fields           # (key, label, initial value)
+        self.frames = frames
+        self.frame = frame
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="ask-box"):
+            yield Label(Text(self.title_words, style="bold"))
+            for key, label, value in self.fields:
+                yield Label(label)
+                yield Input(value=value, id=f"ask-{key}", placeholder=label)
+            if self.frames is not None:
+                yield Label("frame")
+                yield Select([(f, f) for f in self.frames], value=self.frame, allow_blank=False,
+                             id="ask-frame")
+            yield Button("OK", id="ask-ok", variant="primary", tooltip="Use these values")
+        yield Footer()
+
+    def _values(self) -> dict:
+        out = {key: self.query_one(f"#ask-{key}", Input).value for key, _, _ in self.fields}
+        if self.frames is not None:
+            out["frame"] = self.query_one("#ask-frame", Select).value
+        return out
+
+    @on(Input.Submitted)
+    @on(Button.Pressed, "#ask-ok")
+    def _submit(self) -> None:
+        self.dismiss(self._values())
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)
+
+
+class YesNoScreen(ModalScreen[bool]):
+    """A yes/no question for edits (not motion): y -> True, n/escape -> False."""
+
+    DEFAULT_CSS = """
+    YesNoScreen { align: center middle; }
+    #yesno-box { width: 60; height: auto; border: thick $warning; padding: 1 2; background: $surface; }
+    """
+    BINDINGS = [
+        Binding("y", "answer(True)", "yes", tooltip="Yes, do it", id="yesno.yes"),
+        Binding("n", "answer(False)", "no", tooltip="No, leave it", id="yesno.no"),
+        Binding("escape", "answer(False)", "cancel", tooltip="No, leave it", id="yesno.cancel"),
+    ]
+
+    def __init__(self, question: str):
+        super().__init__()
+        self.question = question
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="yesno-box"):
+            yield Static(Text(self.question, style="bold"))
+            yield Static("y: yes    n / escape: no")
+        yield Footer()
+
+    def action_answer(self, yes: bool) -> None:
+        self.dismiss(bool(yes))
+
+
+class TeachScreen(Screen):
+    """Points, frames and the program. Built by the app's ``t`` key."""
+
+    DEFAULT_CSS = """
+    TeachScreen #teach-tables { height: 1fr; }
+    TeachScreen #points-box, TeachScreen #steps-box { width: 1fr; }
+    TeachScreen DataTable { height: 1fr; }
+    TeachScreen #teach-report-box { height: 12; border-top: solid $accent; }
+    TeachScreen #teach-status { height: 2; }
+    """
+    AUTO_FOCUS = "#points-table"
+
+    BINDINGS = [
+        Binding("space", "stop", "stop", priority=True, tooltip="Stop the arm at once (never asks)",
+                id="teach.stop"),
+        Binding("a", "teach", "teach", tooltip="Teach the current pose as a new named point",
+                id="teach.teach"),
+        Binding("u", "update", "update", tooltip="Teach the selected point again at the current "
+                "pose", id="teach.update"),
+        Binding("n", "rename", "rename", tooltip="Rename the selected point (or edit its note)",
+                id="teach.rename"),
+        Binding("d", "delete_point", "delete", tooltip="Delete the selected point (asks)",
+                id="teach.delete"),
+        Binding("g", "goto", "go to", tooltip="Move to the selected point (plans, asks first)",
+                id="teach.goto"),
+        Binding("f", "frame", "frame", tooltip="Define a user frame: teach its origin, then a "
+                "point on its +x axis", id="teach.frame"),
+        Binding("i", "add_step", "add step", tooltip="Add the selected point as a move step "
+                "after the selected step", id="teach.add-step"),
+        Binding("l", "toggle_path", "path", tooltip="Path of new move steps: joint or line",
+                id="teach.path"),
+        Binding("v", "cycle_speed", "speed", tooltip="Speed of new move steps: 100, 50, 25, 10 %",
+                id="teach.speed"),
+        Binding("w", "add_dwell", "dwell", tooltip="Add a dwell step (seconds)", id="teach.dwell"),
+        Binding("o", "add_output", "output", tooltip="Add an output step (channel 0..7, on/off)",
+                id="teach.output"),
+        Binding("left_square_bracket", "move_step(-1)", "step up", tooltip="Move the selected "
+                "step up", id="teach.step-up"),
+        Binding("right_square_bracket", "move_step(1)", "step down", tooltip="Move the selected "
+                "step down", id="teach.step-down"),
+        Binding("x", "delete_step", "del step", tooltip="Delete the selected program step",
+                id="teach.delete-step"),
+        Binding("c", "check", "check", tooltip="Dry-run the program and show the report",
+                id="teach.check"),
+        Binding("ctrl+r", "run", "run", tooltip="Run the whole program (shows the plan, asks once)",
+                id="teach.run"),
+        Binding("p", "pause", "pause/resume", tooltip="Pause the running program before its next "
+                "step, or resume it", id="teach.pause"),
+        Binding("escape", "back", "back", tooltip="Back to the jog screen", id="teach.back"),
+    ]
+
+    @dataclass
+    class MotionFinished(Message):
+        """A go-to or a program run ended (posted from the worker thread)."""
+
+        words: str
+        outcome: str
+        detail: str
+
+    def __init__(self, interlock: Interlock, arm: Arm, points_path: Path | str | None = None,
+                 program_path: Path | str | None = None):
+        super().__init__()
+        self.interlock = interlock
+        self.arm = arm
+        self.points_path = Path(points_path) if points_path else Path("points.toml")
+        self.program_path = Path(program_path) if program_path else Path("program.toml")
+        self.book: PointBook | None = None
+        self.program: Program | None = None
+        self.program_lock = FileLock(self.program_path)
+        self.read_only = False
+        self.busy: str | None = None       # what is moving, for the footer and the status
+        self.paused = False
+        self.new_path = "joint"
+        self.new_speed = SPEEDS[0]
+        self.frame_origin: tuple[str, tuple[float, ...]] | None = None  # a frame half taught
+        self.status = ""
+        self.report_text: list[str] = []
+
+    # --- life cycle ------------------------------------------------------------------
+
+    def compose(self) -> ComposeResult:
+        yield Static(id="teach-files")
+        with Horizontal(id="teach-tables"):
+            with Vertical(id="points-box"):
+                yield Label(Text("points", style="bold"))
+                yield DataTable(id="points-table", cursor_type="row", zebra_stripes=True)
+            with Vertical(id="steps-box"):
+                yield Label(Text("program", style="bold"), id="steps-title")
+                yield DataTable(id="steps-table", cursor_type="row", zebra_stripes=True)
+        yield Static(id="teach-status")
+        with VerticalScroll(id="teach-report-box"):
+            yield Static(id="teach-report")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        points = self.query_one("#points-table", DataTable)
+        points.add_columns("name", "frame", "cartesian", "branch", "taught", "note")
+        steps = self.query_one("#steps-table", DataTable)
+        steps.add_columns("#", "step", "note")
+        self._open_files()
+        self.refresh_all()
+
+    def on_unmount(self) -> None:
+        self._close_files()
+
+    def _open_files(self) -> None:
+        try:
+            self.book = PointBook.open(self.points_path, self.arm)
+        except FileError as exc:
+            self.read_only = True
+            self.set_status(f"read only: {one_line(exc)}", error=True)
+            try:
+                self.book = PointBook.load(self.points_path, self.arm) \
+                    if self.points_path.exists() else PointBook(self.arm, path=self.points_path)
+            except FileError as exc2:
+                self.book = PointBook(self.arm, path=self.points_path)
+                self.set_status(f"cannot use the points file: {one_line(exc2)}", error=True)
+        try:
+            self.program_lock.acquire()
+        except FileError as exc:
+            self.read_only = True
+            self.set_status(f"read only: {one_line(exc)}", error=True)
+        try:
+            if self.program_path.exists():
+                self.program = Program.load(self.program_path)
+                if self.program.points_path.resolve() != self.points_path.resolve():
+                    self.set_status(f"note: the program uses {self.program.points_path}, "
+                                    f"this screen edits {self.points_path}", error=True)
+            else:
+                rel = os.path.relpath(self.points_path.resolve(), self.program_path.resolve().parent)
+                self.program = Program(self.program_path.stem, rel, path=self.program_path)
+        except FileError as exc:
+            self.read_only = True
+            self.program = Program(self.program_path.stem, str(self.points_path),
+                                   path=self.program_path)
+            self.set_status(f"read only: {one_line(exc)}", error=True)
+        if self.book and self.book.warnings:
+            self.set_status(self.book.warnings[0], error=True)
+
+    def _close_files(self) -> None:
+        if self.book is not None:
+            self.book.close()
+        self.program_lock.release()
+
+    # --- showing -----------------------------------------------------------------------
+
+    def set_status(self, words: str, *, error: bool = False) -> None:
+        self.status = words
+        try:
+            self.query_one("#teach-status", Static).update(
+                Text(words, style="bold red" if error else ""))
+        except Exception:  # noqa: BLE001 - not composed yet
+            pass
+
+    def _cart_words(self, values: tuple[float, ...]) -> str:
+        if self.arm.is_scara:
+            return (f"{values[0]:.2f}, {values[1]:.2f}, {values[2]:.2f} mm, "
+                    f"{math.degrees(values[3]):.2f} deg")
+        return f"{values[0]:.2f}, {values[1]:.2f} mm"
+
+    def refresh_all(self) -> None:
+        files = (f"points: {self.points_path}   program: {self.program_path}   new steps: "
+                 f"{self.new_path} path, {self.new_speed:g} %")
+        if self.read_only:
+            files += "   (read only)"
+        if self.busy:
+            files += f"   MOVING: {self.busy}" + (" (paused)" if self.paused else "")
+        self.query_one("#teach-files", Static).update(files)
+        table = self.query_one("#points-table", DataTable)
+        row = table.cursor_row
+        table.clear()
+        for p in (self.book.points if self.book else []):
+            table.add_row(p.name, p.frame, self._cart_words(p.cartesian), str(p.branch),
+                          p.taught, p.note, key=p.name)
+        if table.row_count:
+            table.move_cursor(row=min(row, table.row_count - 1))
+        steps = self.query_one("#steps-table", DataTable)
+        srow = steps.cursor_row
+        steps.clear()
+        for n, step in enumerate(self.program.steps if self.program else [], 1):
+            steps.add_row(str(n), step.describe(), step.note)
+        if steps.row_count:
+            steps.move_cursor(row=min(srow, steps.row_count - 1))
+        self.query_one("#teach-report", Static).update("\n".join(self.report_text))
+        self.refresh_bindings()
+
+    def selected_point(self) -> str | None:
+        table = self.query_one("#points-table", DataTable)
+        if not self.book or not self.book.points or table.row_count == 0:
+            return None
+        return self.book.points[min(table.cursor_row, len(self.book.points) - 1)].name
+
+    def selected_step(self) -> int | None:
+        table = self.query_one("#steps-table", DataTable)
+        if not self.program or not self.program.steps:
+            return None
+        return min(table.cursor_row, len(self.program.steps) - 1) + 1
+
+    # --- which keys can act now ----------------------------------------------------------
+
+    EDITS = {"teach", "update", "rename", "delete_point", "frame", "add_step", "add_dwell",
+             "add_output", "move_step", "delete_step"}
+
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        if action in self.EDITS and (self.read_only or self.busy):
+            return None
+        if action in ("update", "rename", "delete_point", "goto", "add_step") \
+                and self.selected_point() is None:
+            return None
+        if action in ("move_step", "delete_step") and self.selected_step() is None:
+            return None
+        if action in ("goto", "run", "check", "back") and self.busy:
+            return None
+        if action == "pause" and not self.busy:
+            return None
+        return True
+
+    # --- saving ------------------------------------------------------------------------
+
+    def _save(self, *, points: bool = False, program: bool = False) -> bool:
+        try:
+            if points and self.book is not None:
+                self.book.save()
+            if program and self.program is not None:
+                self.program.save(self.program_path, lock=self.program_lock)
+        except (FileError, OSError) as exc:
+            self.set_status(f"not saved: {one_line(exc)}", error=True)
+            return False
+        return True
+
+    def _edit(self, words: str, func, *, points: bool = False, program: bool = False) -> None:
+        try:
+            extra = func()
+        except (PointError, ProgramError, FileError) as exc:
+            self.set_status(one_line(exc), error=True)
+            return
+        if self._save(points=points, program=program):
+            self.set_status(words + (f"; {extra}" if isinstance(extra, str) and extra else "")
+                            + " (saved)")
+        self.refresh_all()
+
+    def _current_joints(self) -> tuple[float, ...] | None:
+        try:
+            return tuple(self.interlock.state().joints)
+        except Exception as exc:  # noqa: BLE001 - a dead link is one line
+            self.set_status(f"cannot read the arm's position: {one_line(exc)}", error=True)
+            return None
+
+    # --- points ------------------------------------------------------------------------
+
+    def action_teach(self) -> None:
+        frames = [BASE, *self.book.frames]
+        n = len(self.book.points) + 1
+        name = f"p{n}"
+        while self.book.has(name):
+            n += 1
+            name = f"p{n}"
+        self.app.push_screen(AskScreen("teach the current pose",
+                                       [("name", "point name", name), ("note", "note", "")],
+                                       frames=frames), self._teach_answered)
+
+    def _teach_answered(self, values: dict | None) -> None:
+        if not values:
+            return
+        joints = self._current_joints()
+        if joints is None:
+            return
+        self._edit(f"taught {values['name'].strip()}",
+                   lambda: self.book.teach(values["name"], joints, frame=values["frame"],
+                                           note=values["note"]) and None, points=True)
+
+    def action_update(self) -> None:
+        name = self.selected_point()
+        joints = self._current_joints()
+        if name is None or joints is None:
+            return
+        self._edit(f"{name} taught again at the current pose",
+                   lambda: self.book.update(name, joints) and None, points=True)
+
+    def action_rename(self) -> None:
+        name = self.selected_point()
+        if name is None:
+            return
+        point = self.book.point(name)
+        self.app.push_screen(AskScreen(f"rename {name}", [("name", "new name", name),
+                                                         ("note", "note", point.note)]),
+                             lambda values: self._rename_answered(name, values))
+
+    def _rename_answered(self, old: str, values: dict | None) -> None:
+        if not values:
+            return
+
+        def apply() -> str:
+            new = values["name"].strip()
+            self.book.rename(old, new)
+            self.book.set_note(new, values["note"].strip())
+            count = self.program.rename_point(old, new) if new != old else 0
+            return f"{count} program step(s) follow" if count else ""
+
+        self._edit(f"{old} renamed {values['name'].strip()}", apply, points=True, program=True)
+
+    def action_delete_point(self) -> None:
+        name = self.selected_point()
+        if name is None:
+            return
+        used = self.program.uses_point(name)
+        question = f"Delete point {name}?"
+        if used:
+            question += f" Program steps {', '.join(map(str, used))} use it."
+        self.app.push_screen(YesNoScreen(question),
+                             lambda yes: yes and self._edit(
+                                 f"deleted {name}", lambda: self.book.delete(name) and None,
+                                 points=True))
+
+    # --- frames ------------------------------------------------------------------------
+
+    def action_frame(self) -> None:
+        if self.frame_origin is None:
+            self.app.push_screen(AskScreen("define a user frame: the current pose is its origin",
+                                           [("name", "frame name", "fixture")]),
+                                 self._frame_named)
+            return
+        name, origin = self.frame_origin
+        joints = self._current_joints()
+        if joints is None:
+            return
+        self.frame_origin = None
+
+        def apply() -> str:
+            change = self.book.define_frame(name, origin, joints)
+            return "; ".join(change.lines())
+
+        self._edit(f"frame {name} taught", apply, points=True)
+
+    def _frame_named(self, values: dict | None) -> None:
+        if not values:
+            return
+        joints = self._current_joints()
+        if joints is None:
+            return
+        name = values["name"].strip()
+        if not name or name == BASE:
+            self.set_status("a frame needs a name other than 'base'", error=True)
+            return
+        self.frame_origin = (name, joints)
+        self.set_status(f"frame {name}: origin taught. Jog to a point on its +x axis "
+                        "(at least 1 mm away), come back and press f again.")
+
+    # --- program -----------------------------------------------------------------------
+
+    def _insert_at(self) -> int:
+        number = self.selected_step()
+        return (number + 1) if number is not None else len(self.program.steps) + 1
+
+    def action_add_step(self) -> None:
+        name = self.selected_point()
+        if name is None:
+            return
+        at = self._insert_at()
+        step = MoveStep(name, self.new_path, self.new_speed)
+        self._edit(f"step {at}: {step.describe()}", lambda: self.program.add_step(step, at) and None,
+                   program=True)
+        self.query_one("#steps-table", DataTable).move_cursor(row=at - 1)
+
+    def action_toggle_path(self) -> None:
+        self.new_path = "line" if self.new_path == "joint" else "joint"
+        self.refresh_all()
+
+    def action_cycle_speed(self) -> None:
+        self.new_speed = SPEEDS[(SPEEDS.index(self.new_speed) + 1) % len(SPEEDS)] \
+            if self.new_speed in SPEEDS else SPEEDS[0]
+        self.refresh_all()
+
+    def action_add_dwell(self) -> None:
+        self.app.push_screen(AskScreen("add a dwell", [("seconds", "seconds", "0.5")]),
+                             self._dwell_answered)
+
+    def _dwell_answered(self, values: dict | None) -> None:
+        if not values:
+            return
+        try:
+            seconds = float(values["seconds"])
+        except ValueError:
+            self.set_status(f"seconds: not a number ({values['seconds']!r})", error=True)
+            return
+        at = self._insert_at()
+        self._edit(f"step {at}: dwell {seconds:g} s",
+                   lambda: self.program.add_step(DwellStep(seconds), at) and None, program=True)
+
+    def action_add_output(self) -> None:
+        self.app.push_screen(AskScreen("add an output step",
+                                       [("channel", "channel (0..7)", "0"),
+                                        ("state", "on or off", "on")]), self._output_answered)
+
+    def _output_answered(self, values: dict | None) -> None:
+        if not values:
+            return
+        try:
+            channel = int(values["channel"])
+        except ValueError:
+            self.set_status(f"channel: not a whole number ({values['channel']!r})", error=True)
+            return
+        state = values["state"].strip().lower()
+        if state not in ("on", "off"):
+            self.set_status(f"state: on or off ({values['state']!r})", error=True)
+            return
+        at = self._insert_at()
+        step = OutputStep(channel, state == "on")
+        self._edit(f"step {at}: {step.describe()}",
+                   lambda: self.program.add_step(step, at) and None, program=True)
+
+    def action_move_step(self, delta: int) -> None:
+        number = self.selected_step()
+        if number is None:
+            return
+        box = {}
+
+        def apply() -> None:
+            box["to"] = self.program.move_step(number, delta)
+
+        self._edit(f"step {number} moved", apply, program=True)
+        if "to" in box:
+            self.query_one("#steps-table", DataTable).move_cursor(row=box["to"] - 1)
+
+    def action_delete_step(self) -> None:
+        number = self.selected_step()
+        if number is None:
+            return
+        self._edit(f"step {number} deleted", lambda: self.program.delete_step(number) and None,
+                   program=True)
+
+    # --- dry run -----------------------------------------------------------------------
+
+    def dry_run(self) -> list[str]:
+        """The dry-run report of the program as it is now (from the home pose)."""
+        report = plan_program(self.arm, self.program, self.book, gate=self.interlock)
+        self.report_text = report_lines(report)
+        return self.report_text
+
+    def action_check(self) -> None:
+        try:
+            lines = self.dry_run()
+        except Exception as exc:  # noqa: BLE001 - shown, never a crash
+            self.set_status(f"dry run failed: {one_line(exc)}", error=True)
+            return
+        self.set_status(lines[-1] if lines else "")
+        self.refresh_all()
+
+    # --- motion (through the gate, in a thread worker) ------------------------------------
+
+    def _confirmer(self) -> Confirmer:
+        confirmer = getattr(self.app, "confirmer", None)
+        return confirmer if isinstance(confirmer, Confirmer) else _ScreenConfirmer(self)
+
+    def action_goto(self) -> None:
+        name = self.selected_point()
+        if name is None or self.busy:
+            return
+        point = self.book.point(name)
+        target = self.book.base_target(point)
+        self.busy = f"go to {name}"
+        self.refresh_all()
+        self._goto_worker(name, target, point.branch)
+
+    @work(thread=True, exclusive=True, group="teach-motion", exit_on_error=False)
+    def _goto_worker(self, name: str, target: tuple[float, ...], branch: Any) -> None:
+        words = f"go to {name}"
+        try:
+            proposal = self.interlock.propose_move(target, branch=branch, path=self.new_path,
+                                                   speed_pct=self.new_speed)
+            result = self.interlock.execute(proposal, self._confirmer())
+            self.post_message(self.MotionFinished(words, result.outcome, result.detail))
+        except Exception as exc:  # noqa: BLE001 - one line on the screen
+            self.post_message(self.MotionFinished(words, "error", one_line(exc)))
+
+    def action_run(self) -> None:
+        if self.busy:
+            return
+        if not self.program.steps:
+            self.set_status("the program has no steps", error=True)
+            return
+        self.busy = f"program {self.program.name}"
+        self.paused = False
+        self.refresh_all()
+        self._run_worker()
+
+    @work(thread=True, exclusive=True, group="teach-motion", exit_on_error=False)
+    def _run_worker(self) -> None:
+        words = f"program {self.program.name}"
+        try:
+            report, result = run_program(self.interlock, self.arm, self.program, self.book,
+                                         self._confirmer())
+            self.report_text = report_lines(report)
+            self.post_message(self.MotionFinished(words, result.outcome,
+                                                  result_words(report, result)))
+        except Exception as exc:  # noqa: BLE001
+            self.post_message(self.MotionFinished(words, "error", one_line(exc)))
+
+    def on_teach_screen_motion_finished(self, message: "TeachScreen.MotionFinished") -> None:
+        self.busy = None
+        if self.paused:
+            self.interlock.resume()
+            self.paused = False
+        self.set_status(f"{message.words}: {message.detail}",
+                        error=message.outcome not in ("done", "cancelled"))
+        self.refresh_all()
+
+    def action_stop(self) -> None:
+        self.interlock.stop()
+        self.paused = False
+        self.set_status("stop sent", error=True)
+        self.refresh_all()
+
+    def action_pause(self) -> None:
+        if not self.busy:
+            return
+        if self.paused:
+            self.interlock.resume()
+            self.paused = False
+            self.set_status("resumed")
+        else:
+            self.interlock.pause()
+            self.paused = True
+            self.set_status("paused: the program holds before its next step (p resumes)")
+        self.refresh_all()
+
+    def action_back(self) -> None:
+        if self.busy:
+            return
+        self.dismiss()
+
+
+__all__ = ["TeachScreen", "AskScreen", "YesNoScreen"]
