@@ -97,30 +97,35 @@ def thetas_from_tool_xy(a1_mm: float, a2_mm: float, x_mm: float, y_mm: float,
     ...  for sol in thetas_from_tool_xy(300.0, 200.0, 300.0, 200.0)]
     [(0.0, 90.0), (67.380135, -90.0)]
     """
-    r = radius_mm(x_mm, y_mm)
-    tol = reach_tolerance_mm(a1_mm, a2_mm)
-    if r > a1_mm + a2_mm + tol or r < abs(a1_mm - a2_mm) - tol:
+    # The arithmetic of radius_mm, reach_tolerance_mm and elbow_sin_cos, inlined (this
+    # is the hot path of the jog loop): the batch path repeats it operation for operation.
+    r = math.sqrt(x_mm * x_mm + y_mm * y_mm)
+    top = a1_mm + a2_mm
+    diff = abs(a1_mm - a2_mm)
+    tol = REACH_REL_TOL * max(1.0, top)
+    if r > top + tol or r < diff - tol:
         return []
-    s2, c2 = elbow_sin_cos(a1_mm, a2_mm, r)
     gamma = math.atan2(y_mm, x_mm)
-    on_boundary = (r >= a1_mm + a2_mm - tol) or (r <= abs(a1_mm - a2_mm) + tol)
-    if on_boundary:
-        t2 = 0.0 if c2 > 0 else math.pi
+    if r >= top - tol or r <= diff + tol:  # on a boundary: the branches coincide
+        t2 = 0.0 if elbow_sin_cos(a1_mm, a2_mm, r)[1] > 0 else math.pi
         return [(gamma - math.atan2(0.0, a1_mm + a2_mm * math.cos(t2)), t2)]
-    solutions = []
-    for sign in (1.0, -1.0):
-        t2 = math.atan2(sign * s2, c2)
-        t1 = gamma - math.atan2(a2_mm * sign * s2, a1_mm + a2_mm * c2)
-        solutions.append((t1, t2))
-    return solutions
+    two_a1a2 = 2.0 * a1_mm * a2_mm
+    one_minus = max(0.0, (top - r) * (top + r) / two_a1a2)
+    one_plus = max(0.0, (r - diff) * (r + diff) / two_a1a2)
+    s2 = min(math.sqrt(one_minus * one_plus), 1.0)
+    c2 = max(-1.0, min(1.0, (one_plus - one_minus) / 2.0))
+    t2 = math.atan2(s2, c2)
+    beta = math.atan2(a2_mm * s2, a1_mm + a2_mm * c2)  # signed sin t2: -beta on elbow-up
+    return [(gamma - beta, t2), (gamma + beta, -t2)]
 
 
 def thetas_from_tool_xy_block(a1_mm: float, a2_mm: float, x: np.ndarray, y: np.ndarray,
-                 t1: np.ndarray, t2: np.ndarray, reachable: np.ndarray,
-                 on_boundary: np.ndarray) -> None:
+                              t1: np.ndarray, t2: np.ndarray, reachable: np.ndarray,
+                              on_boundary: np.ndarray) -> None:
     """One block of :func:`thetas_from_tool_xy_batch`, written into the given output
-    arrays (x, y, reachable, on_boundary of shape (n,), t1, t2 of shape (2, n)). The same operations, in the same order, as
-    :func:`thetas_from_tool_xy` and :func:`elbow_sin_cos`, with in-place ufuncs."""
+    arrays (x, y, reachable, on_boundary of shape (n,), t1, t2 of shape (2, n)). The
+    same operations, in the same order, as :func:`thetas_from_tool_xy`, with in-place
+    ufuncs."""
     tol = reach_tolerance_mm(a1_mm, a2_mm)
     top, diff = a1_mm + a2_mm, abs(a1_mm - a2_mm)
     two_a1a2 = 2.0 * a1_mm * a2_mm
