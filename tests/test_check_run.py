@@ -276,3 +276,110 @@ def test_stop_from_another_thread_reports_the_step():
         worker.join(10)
         report, result = box["out"]
         assert result.outcome == "stopped" and result.step == 0
+
+
+# --- the console's teach screen ------------------------------------------------------
+
+class _Yes(PromptConfirmer):
+    def __init__(self):
+        super().__init__(ARM, stdin=io.StringIO("y\n"), out=io.StringIO())
+
+
+async def test_teach_screen_teaches_builds_checks_and_moves(tmp_path):
+    from console.app import make_app
+    from console.points import PointBook
+    from console.safe_files import FileLocked
+
+    pts, prog = tmp_path / "pts.toml", tmp_path / "prog.toml"
+    with Interlock.open(ARM, "sim", journal=False, time_scale=20.0) as gate:
+        gate.enable()
+        app = make_app(ARM, gate, points_path=pts, program_path=prog)
+        async with app.run_test(size=(120, 40)) as pilot:
+            await pilot.pause()
+            await pilot.press("t")
+            await pilot.pause()
+            screen = app.screen
+            assert type(screen).__name__ == "TeachScreen"
+            # a second console cannot write the files while this screen holds them
+            with pytest.raises(FileLocked):
+                PointBook.open(pts, ARM)
+            # teach the home pose as "start": the dialog takes the name
+            await pilot.press("a")
+            await pilot.pause()
+            app.screen.query_one("#ask-name").value = "start"
+            await pilot.press("enter")
+            await pilot.pause()
+            assert screen.book.names == ["start"]
+            # move the arm elsewhere (outside the UI), frame origin there, then x point
+            result = gate.execute(gate.propose_move((200.0, 200.0),
+                                                    branch=Branch.ELBOW_DOWN), _Yes())
+            assert result.completed, result.detail
+            await pilot.press("f")
+            await pilot.pause()
+            app.screen.query_one("#ask-name").value = "plate"
+            await pilot.press("enter")
+            await pilot.pause()
+            assert screen.frame_origin is not None
+            result = gate.execute(gate.propose_move((260.0, 200.0), branch=Branch.ELBOW_DOWN),
+                                  _Yes())
+            assert result.completed, result.detail
+            await pilot.press("f")
+            await pilot.pause()
+            frame = screen.book.frames["plate"]
+            # origin (200, 200), x point (260, 200): angle 0 (within a controller count)
+            assert (frame.origin_x, frame.origin_y) == pytest.approx((200.0, 200.0), abs=0.2)
+            assert math.degrees(frame.angle_rad) == pytest.approx(0.0, abs=0.3)
+            # teach the current pose in the plate frame, then build a two-step program
+            await pilot.press("a")
+            await pilot.pause()
+            app.screen.query_one("#ask-name").value = "edge"
+            app.screen.query_one("#ask-frame").value = "plate"
+            await pilot.press("enter")
+            await pilot.pause()
+            edge = screen.book.point("edge")
+            assert edge.frame == "plate" and edge.cartesian == pytest.approx((60.0, 0.0), abs=0.2)
+            screen.query_one("#points-table").move_cursor(row=0)
+            await pilot.press("i")          # move to start
+            screen.query_one("#points-table").move_cursor(row=1)
+            await pilot.press("l", "i")     # a line move to edge
+            await pilot.pause()
+            assert [s.describe() for s in screen.program.steps] == [
+                "move to start (joint path, 100 %)", "move to edge (line path, 100 %)"]
+            await pilot.press("c")
+            await pilot.pause()
+            assert screen.report_text[-1] == "problems: none"
+            # saved on every edit: the files load on their own
+            assert Program.load(prog).steps == screen.program.steps
+            assert PointBook.load(pts, ARM).names == ["start", "edge"]
+            # delete asks: "n" keeps the point
+            await pilot.press("d")
+            await pilot.pause()
+            await pilot.press("n")
+            await pilot.pause()
+            assert screen.book.has("edge")
+            # go to start through the gate: the app's confirmation, "n" moves nothing
+            screen.query_one("#points-table").move_cursor(row=0)
+            before = len([c for c in gate.sim.commands if c[0] == "MOVE"])
+            await pilot.press("g")
+            await pilot.pause(0.3)
+            assert type(app.screen).__name__ == "ConfirmMoveScreen"
+            await pilot.press("n")
+            await pilot.pause(0.3)
+            assert len([c for c in gate.sim.commands if c[0] == "MOVE"]) == before
+            assert "cancelled" in screen.status
+            # run the program: one confirmation, "y" runs it to the last point
+            await pilot.press("ctrl+r")
+            await pilot.pause(0.3)
+            assert type(app.screen).__name__ == "ConfirmMoveScreen"
+            await pilot.press("y")
+            for _ in range(100):
+                await pilot.pause(0.05)
+                if screen.busy is None:
+                    break
+            assert screen.status.startswith("program prog: done"), screen.status
+            assert gate.state().joints == pytest.approx(edge.joints, abs=math.radians(1 / 40) + 1e-9)
+            await pilot.press("escape")
+            await pilot.pause()
+        # the screen let go of its locks when it closed
+        with PointBook.open(pts, ARM):
+            pass
