@@ -72,9 +72,7 @@ def _joint(r: _Reader, data: Any, index: int) -> Joint:
     where = f"joints[{index}]"
     if not isinstance(data, Mapping):
         raise r.fail(where, "must be a table")
-    unknown = [k for k in data if k not in JOINT_KEYS + ("max_accel",)]
-    if unknown:
-        raise r.fail(f"{where}.{unknown[0]}", "unknown key")
+    # CONTRACT.md: more keys are allowed (a site's own notes, a part number, ...).
     name = r.text(data, "name", where)
     jtype = r.text(data, "type", where)
     if jtype not in (REVOLUTE, PRISMATIC):

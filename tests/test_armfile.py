@@ -271,3 +271,13 @@ def test_integers_are_accepted_where_numbers_are_wanted(tmp_path):
 def test_scara_alpha_minus_180_is_the_same_table(tmp_path):
     path = write(tmp_path, edit(SCARA, set_joint(1, "alpha", -180.0)))
     assert load_arm(path).joints[1].alpha_rad == pytest.approx(-math.pi)
+
+
+def test_extra_keys_are_allowed(tmp_path):
+    # CONTRACT.md, "Arm file": "Required keys (more are allowed)".
+    text = (Path(__file__).resolve().parents[1] / "console" / "arms" / "planar-bench.toml").read_text()
+    text = text.replace('name = "shoulder"', 'name = "shoulder"\npart_number = "SH-1"', 1)
+    text = text.replace('[arm]', '[arm]\ncell = "bench 3"', 1)
+    path = tmp_path / "extra.toml"
+    path.write_text(text)
+    assert load_arm(path).joints[0].name == "shoulder"
