@@ -35,6 +35,7 @@ from kinematics.model import Arm
 
 WATCHDOG_S = 1.0
 BITS_PER_BYTE = 10  # 8N1: start bit, 8 data bits, stop bit
+SPIN_S = 0.0003     # pacing: the last 0.3 ms of a wait is spun, not slept
 
 
 @dataclass
@@ -208,29 +209,40 @@ class Emulator:
             n = self.opts.corrupt_every
             if n and self.replies_out % n == 0:
                 wire = line[:-3] + (b"0" if line[-3:-2] != b"0" else b"1") + line[-2:]
-        self._out.put((not_before, wire))
+        self._enqueue(wire, not_before)
         return line
+
+    def _enqueue(self, data: bytes, not_before: float) -> None:
+        """Queue bytes for the wire. With pacing, the time the last byte is out is
+        fixed here (the line waits behind the ones before it), so the writer
+        thread's own wake-up latency does not add to the wire time."""
+        start = max(self.clock(), not_before)
+        if self.opts.pace:
+            start = max(start, self._tx_busy_until)
+            start += len(data) * BITS_PER_BYTE / self.opts.baud
+            self._tx_busy_until = start
+        self._out.put((start, data))
 
     def _writer(self) -> None:
         while True:
             item = self._out.get()
             if item is None or not self._running:
                 return
-            not_before, data = item
-            now = self.clock()
-            if self.opts.pace:
-                start = max(now, not_before, self._tx_busy_until)
-                done = start + len(data) * BITS_PER_BYTE / self.opts.baud
-                self._tx_busy_until = done
-            else:
-                done = max(now, not_before)
-            delay = done - self.clock()
-            if delay > 0:
-                time.sleep(delay)
+            done, data = item
+            self._sleep_until(done)
             try:
                 os.write(self._master, data)  # type: ignore[arg-type]
             except OSError:
                 return
+
+    def _sleep_until(self, t: float) -> None:
+        """Sleep until the clock reads ``t``; the last fraction of a millisecond is
+        spun (yielding), since a plain sleep overshoots by ~0.1 ms and a UART does not."""
+        while True:
+            delay = t - self.clock()
+            if delay <= 0:
+                return
+            time.sleep(delay - SPIN_S if delay > 2 * SPIN_S else 0)
 
     # -- input ----------------------------------------------------------------------
     def _reader(self) -> None:
@@ -254,9 +266,7 @@ class Emulator:
                     start = max(t_read, self._rx_busy_until)
                     done = start + len(line) * BITS_PER_BYTE / self.opts.baud
                     self._rx_busy_until = done
-                    delay = done - self.clock()
-                    if delay > 0:
-                        time.sleep(delay)
+                    self._sleep_until(done)
                 self._receive(line)
             if len(buf) > 4 * P.MAX_LINE_BYTES:
                 buf = b""  # no newline in sight: noise
@@ -292,7 +302,7 @@ class Emulator:
             if cmd.seq == self.last_seq:
                 for line in self.last_reply:   # a retransmission: the same reply again
                     self.replies_out += 1
-                    self._out.put((self.clock() + self.opts.slow_ms / 1000.0, line))
+                    self._enqueue(line, self.clock() + self.opts.slow_ms / 1000.0)
                 return
             expected = P.next_seq(self.last_seq)
             if cmd.seq != expected:

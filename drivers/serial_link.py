@@ -16,6 +16,8 @@ After an e-stop, a fault or a lost link nothing but STOP/STATE/RESET goes out un
 
 from __future__ import annotations
 
+import os
+import select
 import threading
 import time
 from collections import OrderedDict, deque
@@ -74,6 +76,7 @@ class SerialDriver(Driver):
         self._outputs = 0
         self._t_state: float | None = None
         self._t_state_sent = 0.0
+        self._t_tx = 0.0
         self._homed = False
         self._latched: str | None = None
         self._events: deque[DriverEvent] = deque(maxlen=MAX_EVENTS)
@@ -104,6 +107,7 @@ class SerialDriver(Driver):
                 raise LinkError(f"{self.port}: the port is not open")
             try:
                 ser.write(line)
+                self._t_tx = self._now()
             except Exception as exc:  # noqa: BLE001 - any port failure is a lost link
                 self._lose_link(f"port error: {exc}")
                 raise LinkError(f"{self.port}: link lost: port error: {exc}") from None
@@ -179,12 +183,22 @@ class SerialDriver(Driver):
     # -- reader ---------------------------------------------------------------------
     def _reader(self) -> None:
         buf = b""
+        fd = self._posix_fd()
         while self._running:
             ser = self._ser
             try:
                 if ser is None:
                     return
-                data = ser.read(max(1, ser.in_waiting))
+                if fd is not None:  # a posix port: one select and one read per burst
+                    ready, _, _ = select.select([fd], [], [], READ_POLL_S)
+                    if not ready:
+                        continue
+                    data = os.read(fd, 4096)
+                    if not data:
+                        raise serial.SerialException("the device reports data but returned none "
+                                                     "(disconnected?)")
+                else:
+                    data = ser.read(max(1, ser.in_waiting))
             except Exception as exc:  # noqa: BLE001 - the port went away
                 if self._running:
                     self._lose_link(f"port error: {exc}")
@@ -198,6 +212,16 @@ class SerialDriver(Driver):
             if len(buf) > P.MAX_LINE_BYTES:
                 self._trace_line("<", buf + b"  (dropped: too long)")
                 buf = b""
+
+    def _posix_fd(self) -> int | None:
+        """The file descriptor of a posix serial port (a device or pty), else None
+        (URL handlers such as loop:// and socket:// are read through pyserial)."""
+        if not isinstance(self._ser, serial.Serial) or os.name != "posix":
+            return None
+        try:
+            return self._ser.fileno()
+        except Exception:  # noqa: BLE001
+            return None
 
     def _dispatch(self, line: bytes) -> None:
         self._trace_line("<", line)
@@ -290,8 +314,10 @@ class SerialDriver(Driver):
             time.sleep(min(0.02, self.heartbeat_s / 4))
             if not self._running or self._link_lost():
                 continue
-            if self._now() - self._t_state_sent < self.heartbeat_s:
-                continue
+            now = self._now()
+            fresh = self._t_state is not None and now - self._t_state < self.heartbeat_s
+            if now - self._t_state_sent < self.heartbeat_s or (fresh and now - self._t_tx < self.heartbeat_s):
+                continue  # a STATE is recent, or lines go out and DONEs come back: no need
             try:
                 self._transact("STATE")
             except DriverError:
