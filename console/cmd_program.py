@@ -30,7 +30,7 @@ from console.programs import DwellStep, MoveStep, OutputStep, Program
 from console.safe_files import FileError
 from drivers.interlock import Confirmer, Dwell, Interlock, Proposal, RunResult, SetOutput
 from kinematics.model import Arm
-from kinematics.planner import Plan, PlanSummary, plan_move
+from kinematics.planner import PlanSummary, plan_move
 from kinematics.solve import TargetError
 
 

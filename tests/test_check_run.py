@@ -383,3 +383,18 @@ async def test_teach_screen_teaches_builds_checks_and_moves(tmp_path):
         # the screen let go of its locks when it closed
         with PointBook.open(pts, ARM):
             pass
+
+
+def test_scara_demo_plans_cleanly_from_its_clear_point():
+    # from the clear point: the scara-bench home pose has the quill on its soft limit
+    # (0 mm), inside the interlock's 0.5 mm margin (see the report to the lead)
+    scara = builtin_arm("scara-bench")
+    program, book = load_program(ROOT / "examples" / "scara-cell" / "program.toml", scara)
+    assert book.warnings == []
+    report = plan_program(scara, program, book, start_joints=book.point("clear").joints)
+    assert report.ok, report.problems
+    # the part turns a quarter turn between slot and outfeed: roll in the tray frame
+    assert math.degrees(book.point("out").cartesian[3] - book.point("slot").cartesian[3]) \
+        == pytest.approx(90.0)
+    last = [s for s in report.steps if s.summary is not None][-1]
+    assert last.summary.end_joints == pytest.approx(book.point("clear").joints, abs=1e-6)

@@ -18,7 +18,7 @@ import pytest
 from console.armfile import builtin_arm
 from console.points import PointBook, PointError, branch_of
 from console.safe_files import FileError, FileLocked, toml_text, write_atomic
-from kinematics.frames import UserFrame, base_from_frame, frame_from_two_points
+from kinematics.frames import UserFrame
 from kinematics.model import Branch
 from kinematics.solve import joints_from_tool, tool_from_joints
 
