@@ -19,6 +19,7 @@ import fcntl
 import math
 import os
 import re
+import stat
 import tempfile
 from collections.abc import Mapping, Sequence
 from pathlib import Path
@@ -75,6 +76,7 @@ def write_atomic(path: str | Path, text: str, *, backup: bool = True) -> None:
     tmp_name = None
     try:
         fd, tmp_name = tempfile.mkstemp(dir=directory, prefix=f".{path.name}.", suffix=".tmp")
+        os.fchmod(fd, _mode_for(path))  # mkstemp makes 0600; keep the file's own mode
         with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as handle:
             handle.write(text)
             handle.flush()
@@ -92,6 +94,17 @@ def write_atomic(path: str | Path, text: str, *, backup: bool = True) -> None:
                 os.unlink(tmp_name)
             except OSError:
                 pass
+
+
+def _mode_for(path: Path) -> int:
+    """The permission bits the saved file should have: the old file's, or for a new
+    file what ``open`` would give (0666 less the umask)."""
+    try:
+        return stat.S_IMODE(os.stat(path).st_mode)
+    except OSError:
+        mask = os.umask(0)
+        os.umask(mask)
+        return 0o666 & ~mask
 
 
 def _keep_backup(path: Path) -> None:

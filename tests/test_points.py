@@ -361,3 +361,16 @@ def test_demo_points_file_is_valid_and_consistent():
     for point in book.points:
         target = book.base_target(point)
         assert tool_from_joints(PLANAR, point.joints)[:2] == pytest.approx(target, abs=1e-4)
+
+
+def test_save_keeps_the_file_mode(tmp_path):
+    path = tmp_path / "points.toml"
+    path.write_text("# placeholder\n")
+    os.chmod(path, 0o640)
+    write_atomic(path, "a = 1\n")
+    assert (path.stat().st_mode & 0o777) == 0o640
+    fresh = tmp_path / "fresh.toml"
+    write_atomic(fresh, "a = 1\n")
+    umask = os.umask(0)
+    os.umask(umask)
+    assert (fresh.stat().st_mode & 0o777) == 0o666 & ~umask  # like open(): 0666 less the umask
