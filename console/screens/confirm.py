@@ -15,8 +15,8 @@ from textual.widgets import Footer, Static
 class ConfirmMoveScreen(ModalScreen[bool]):
     """Shows a proposal's lines (Proposal.lines(arm)); y -> True, n or escape -> False.
 
-    Lines starting with ``REFUSED:`` or ``warning`` are highlighted. The app's stop key
-    still works while this is open (it answers False)."""
+    Lines starting with ``REFUSED:`` or ``warning`` are highlighted. The stop keys work
+    here too (they stop the arm and answer False)."""
 
     BINDINGS = [
         Binding("y", "answer(True)", "yes, move", tooltip="Confirm: send this motion to the arm",
@@ -24,6 +24,11 @@ class ConfirmMoveScreen(ModalScreen[bool]):
         Binding("n", "answer(False)", "no", tooltip="Cancel: nothing moves", id="confirm.no"),
         Binding("escape", "answer(False)", "cancel", tooltip="Cancel: nothing moves",
                 id="confirm.cancel"),
+        # a modal hides the app's keys, so the stop keys are repeated here
+        Binding("space", "app.stop", "stop", tooltip="Stop the arm at once and answer no",
+                id="confirm.stop"),
+        Binding("s", "app.stop", "stop", show=False, tooltip="Stop the arm at once and answer no",
+                id="confirm.stop-s"),
     ]
 
     def __init__(self, lines: Sequence[str], *, title: str = "confirm motion"):
