@@ -9,7 +9,11 @@ from __future__ import annotations
 from console import exit_codes
 from drivers.base import DriverError, LinkError
 from drivers.journal import JournalError
+from console.points import PointError
+from console.programs import ProgramError
+from console.safe_files import FileError
 from kinematics.armspec import ArmSpecError
+from kinematics.frames import FrameError
 from kinematics.solve import TargetError
 
 
@@ -27,6 +31,10 @@ _CODES: list[tuple[type[BaseException], int]] = [
     (UsageError, exit_codes.BAD_INPUT),
     (Refused, exit_codes.REFUSED),
     (JournalError, exit_codes.BAD_INPUT),
+    (FileError, exit_codes.BAD_INPUT),
+    (PointError, exit_codes.BAD_INPUT),
+    (ProgramError, exit_codes.BAD_INPUT),
+    (FrameError, exit_codes.BAD_INPUT),
     (LinkError, exit_codes.LINK_FAILED),
     (DriverError, exit_codes.LINK_FAILED),
 ]

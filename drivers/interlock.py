@@ -12,7 +12,8 @@ Before anything moves the gate checks, and refuses in words with the numbers:
   planner's reach, singularity and keep-out verdicts, the tool speed cap and each
   joint's speed cap, the cap on one jog step;
 - the approval: it binds to exactly that proposal (a digest of its segments), to the
-  arm's position when it was made, and expires APPROVAL_TTL_S seconds after it was made.
+  arm's position when it was made, and expires APPROVAL_TTL_S (10 s; a whole program:
+  PROGRAM_APPROVAL_TTL_S, 60 s) after it was made.
 
 This is a software interlock, not a safety-rated function (README, Safety).
 """
@@ -143,6 +144,22 @@ def _digest(actions: Sequence[Action]) -> str:
     return h.hexdigest()
 
 
+def _outside(joint: Any, margin: float, value: float) -> float:
+    """How far a value lies inside the margin band or beyond a limit (0 when clear)."""
+    return max(0.0, value - (joint.max - margin), (joint.min + margin) - value)
+
+
+def _into_margin(joint: Any, margin: float, before: float, value: float) -> bool:
+    """True when a segment end enters the margin band next to a soft limit, or goes
+    deeper into it than where the segment started. An arm that rests in the band (a
+    quill homed at its top stop) may move out of it, never further in, and never past
+    the soft limit itself."""
+    if value > joint.max + 1e-12 or value < joint.min - 1e-12:
+        return True
+    depth = _outside(joint, margin, value)
+    return depth > 1e-12 and depth > _outside(joint, margin, before) + 1e-12
+
+
 class SimHooks:
     """What tests may do to the simulated arm behind an interlock: inject trouble and
     read its command record. No motion calls."""
@@ -168,7 +185,12 @@ class SimHooks:
 
 
 class Interlock:
-    APPROVAL_TTL_S = 10.0
+    APPROVAL_TTL_S = 10.0          # a jog, a move, homing
+    PROGRAM_APPROVAL_TTL_S = 60.0  # a whole program: its plan takes longer to read
+
+    def approval_ttl_s(self, proposal: Proposal) -> float:
+        """How long after it was made a proposal may still be confirmed."""
+        return self.PROGRAM_APPROVAL_TTL_S if len(proposal.actions) > 1 else self.APPROVAL_TTL_S
 
     def __init__(self, arm: Arm, driver: Driver, *, journal: Journal | NullJournal | None = None,
                  clock: Callable[[], float] = time.monotonic):
@@ -288,7 +310,7 @@ class Interlock:
                 return [f"segment {n}: duration {seg.duration_s:.4f} s outside 0.001..60 s"]
             for joint, value, before in zip(arm.joints, seg.joints, previous):
                 margin = arm.margin(joint)
-                if value > joint.max - margin + 1e-12 or value < joint.min + margin - 1e-12:
+                if _into_margin(joint, margin, before, value):
                     reasons.append(
                         f"segment {n}: {joint.name} at {fmt(joint, value)} is outside its soft "
                         f"limits {fmt(joint, joint.min)}..{fmt(joint, joint.max)} less the "
@@ -454,9 +476,10 @@ class Interlock:
                              after_s=round(waited, 3))
         if not answer:
             return RunResult(False, "cancelled", "cancelled: nothing moved")
-        if waited > self.APPROVAL_TTL_S:
+        limit = self.approval_ttl_s(proposal)
+        if waited > limit:
             return RunResult(False, "expired", f"expired: confirmed {waited:.1f} s after the plan "
-                             f"was made (limit {self.APPROVAL_TTL_S:g} s); plan again")
+                             f"was made (limit {limit:g} s); plan again")
         state = self.state()
         reasons = self._state_reasons(state)
         if reasons:

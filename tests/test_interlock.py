@@ -293,3 +293,33 @@ def test_random_sequences_never_pass_the_soft_limits_or_move_without_a_yes(tmp_p
     assert {e["token"] for e in entries if e["kind"] == "segment"} <= confirmed
     if yes_count == 0:
         assert not [c for c in g.sim.commands if c[0] == "MOVE"]
+
+
+def test_an_arm_resting_in_the_margin_band_may_move_out_but_not_further_in():
+    # The SCARA demo homes its quill at 0 mm, its soft minimum: inside the 0.5 mm band.
+    scara = builtin_arm("scara-bench")
+    g = Interlock.open(scara, "sim", journal=False, time_scale=50.0)
+    try:
+        g.enable()
+        assert g.state().joints[2] == pytest.approx(0.0)
+        away = g.propose_jog("z", -10.0)  # tool down 10 mm: the quill moves away from 0
+        assert away.ok, away.verdict.reasons
+        assert g.execute(away, YES()).completed
+        back = g.propose_jog("z", 9.8)    # ends at 0.2 mm: inside the band again
+        assert not back.ok
+        assert any("quill" in r and "outside its soft limits" in r for r in back.verdict.reasons)
+    finally:
+        g.close()
+
+
+def test_program_approvals_last_longer_than_single_moves(gate):
+    clock = [0.0]
+    g = Interlock(ARM, gate._Interlock__driver, journal=None, clock=lambda: clock[0])
+    from kinematics.planner import plan_move
+    a = plan_move(ARM, g.state().joints, (150.0, 200.0))
+    single = g.propose_move((150.0, 200.0))
+    late = 30.0  # between the 10 s and the 60 s limit
+    assert g.execute(single, Answer(True, before=lambda: clock.__setitem__(0, late))).outcome == "expired"
+    clock[0] = 0.0
+    program = g.propose_actions([a, Dwell(0.01)], "two steps")
+    assert g.execute(program, Answer(True, before=lambda: clock.__setitem__(0, late))).completed
