@@ -689,8 +689,6 @@ def plan_line_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
         warnings.append(f"timing stretched by {100 * (stretch - 1):.1f}% to keep within limits")
     if p < 1.0:
         warnings.append(f"speed override {100 * p:g}%")
-    if not arm.is_scara:
-        warnings.append("the tool heading is not held on a planar arm: it turns with the links")
     summary = PlanSummary(
         tuple(map(float, q0)), tuple(map(float, q[-1])), solve.tool_from_joints(arm, q0),
         solve.tool_from_joints(arm, q[-1]), b0, False, LINE, float(t_seg.sum()), len(t_seg),
