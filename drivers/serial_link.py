@@ -22,6 +22,7 @@ import threading
 import time
 from collections import OrderedDict, deque
 from collections.abc import Callable
+from dataclasses import dataclass
 
 import serial
 
@@ -32,6 +33,18 @@ from kinematics.model import Arm, Segment
 
 READ_POLL_S = 0.05
 MAX_EVENTS = 256
+
+
+@dataclass
+class _PipeLine:
+    line: bytes
+    t_sent: float
+    tries: int = 1
+
+
+def _seq_before(a: int, b: int) -> bool:
+    """``a`` comes before ``b`` in the wrapping 1..65535 sequence (within half of it)."""
+    return 0 < (b - a) % P.MAX_SEQ < P.MAX_SEQ // 2
 
 
 class SerialDriver(Driver):
@@ -67,6 +80,11 @@ class SerialDriver(Driver):
         self._waiting: int | None = None
         self._waiting_verb = ""
         self._reply: P.Reply | None = None
+        self.window = max(1, int(options.get("window", 4)))
+        self._pipe: OrderedDict[int, _PipeLine] = OrderedDict()  # MOVE lines sent, no reply yet
+        self._resend_from: int | None = None   # re-send from this pipelined seq
+        self._resend_single = True             # ...that line alone, or it and all behind it
+        self._recovering: int | None = None    # a lost line re-sent alone, awaiting its reply
         self._outstanding: OrderedDict[int, tuple[int, ...]] = OrderedDict()  # MOVE seq -> target
         self._home_seq: int | None = None
         self._home_done = False
@@ -130,6 +148,12 @@ class SerialDriver(Driver):
         a timeout or ``ERR 0 BAD_CRC``. ``guard`` runs under the state lock before every
         (re)send and may raise to keep the line from going out."""
         with self._txn_lock:
+            if verb in ("STOP", "HELLO"):
+                with self._cond:
+                    self._pipe.clear()   # abandoned: never re-sent after a STOP or a new session
+                    self._resend_from = self._recovering = None
+            else:
+                self._drain_pipe()
             with self._cond:
                 if self._link_lost() and not hello:
                     raise LinkError(f"{self.port}: {self._latched}")
@@ -179,6 +203,91 @@ class SerialDriver(Driver):
                         elif verb == "HOME" and self._home_seq == seq:
                             self._home_seq = None
                         self._cond.notify_all()
+
+    # -- the MOVE pipeline ------------------------------------------------------------
+    def _service_pipe(self) -> None:
+        """Re-send pipelined lines; txn lock held. A lost line is re-sent alone (after
+        a BAD_SEQ naming it, or when the oldest line's reply is overdue); once it is
+        answered, the lines sent behind it (which the controller refused as out of
+        sequence) go out again together. No new line goes out meanwhile. After
+        ``retries`` re-sends of one line the link is declared lost."""
+        with self._cond:
+            if not self._pipe:
+                self._resend_from, self._recovering = None, None
+                return
+            now = self._now()
+            if self._resend_from in self._pipe:
+                start, single = self._resend_from, self._resend_single
+            else:
+                oldest_seq, oldest = next(iter(self._pipe.items()))
+                if now - oldest.t_sent < self.timeout_s:
+                    return
+                start, single = oldest_seq, True
+            self._resend_from = None
+            self._recovering = start if single else None
+            first = self._pipe[start]
+            first.tries += 1
+            if first.tries > self.retries + 1:
+                self._lose_link(f"no reply after {first.tries - 1} tries")
+                raise LinkError(f"{self.port}: {self._latched}")
+            resend = []
+            going = False
+            for seq, pl in self._pipe.items():
+                going = going or seq == start
+                if going:
+                    pl.t_sent = now
+                    resend.append(pl.line)
+                    if single:
+                        break
+        for line in resend:
+            self._write(line)
+
+    def _drain_pipe(self) -> None:
+        """Wait until every pipelined line has its reply (txn lock held)."""
+        while True:
+            self._service_pipe()
+            with self._cond:
+                if not self._pipe:
+                    return
+                if self._link_lost():
+                    raise LinkError(f"{self.port}: {self._latched}")
+                self._cond.wait(self.timeout_s / 4)
+
+    def _on_pipe_reply(self, msg: P.Reply) -> None:
+        """A reply to a pipelined MOVE (state lock held)."""
+        if msg.kind == "ERR" and msg.code == "BAD_SEQ":
+            expected = msg.int_field("expected")
+            if expected is None:
+                return
+            # the controller has taken every line before ``expected``
+            for seq in list(self._pipe):
+                if seq == expected or not _seq_before(seq, expected):
+                    break
+                self._pipe.pop(seq)
+            if self._recovering is not None and self._recovering not in self._pipe:
+                self._recovering = None
+            if expected in self._pipe and self._recovering is None and self._resend_from is None:
+                self._resend_from, self._resend_single = expected, True
+            return
+        # OK or a refusal: this line and every line before it were taken in order
+        for seq in list(self._pipe):
+            self._pipe.pop(seq)
+            if seq == msg.seq:
+                break
+        if self._recovering is not None and self._recovering not in self._pipe:
+            self._recovering = None   # the lost line is in: the ones behind it go again
+            if self._pipe:
+                self._resend_from, self._resend_single = next(iter(self._pipe)), False
+        if msg.kind == "OK":
+            if msg.seq in self._outstanding and self._mode in (Mode.IDLE, Mode.MOVING):
+                self._mode = Mode.MOVING
+            return
+        self._outstanding.pop(msg.seq, None)
+        if self._latched is None:
+            # a refused segment in mid-stream breaks the planned path: stop everything
+            self._latched = f"fault: controller refused MOVE: {msg.describe()}"
+            self._event("fault", f"controller refused a streamed segment ({msg.describe()}); stopping")
+        threading.Thread(target=self.stop, name="serial-stop", daemon=True).start()
 
     # -- reader ---------------------------------------------------------------------
     def _reader(self) -> None:
@@ -234,6 +343,8 @@ class SerialDriver(Driver):
                 self._on_event(msg)
             elif msg.kind == "DONE":
                 self._on_done(msg.seq)
+            elif msg.seq in self._pipe:
+                self._on_pipe_reply(msg)
             elif self._waiting is not None and (
                     msg.seq == self._waiting or (msg.seq == 0 and msg.code == "BAD_CRC")):
                 if msg.kind == "OK" and self._waiting_verb == "STATE":
@@ -465,16 +576,39 @@ class SerialDriver(Driver):
                 raise ControllerError("refused MOVE: stop() was called while it waited")
             self._require_motion_allowed(self._state_locked())
 
+        def room() -> bool:
+            return (len(self._outstanding) < self.queue_depth and len(self._pipe) < self.window
+                    and self._recovering is None and self._resend_from is None)
+
         while True:
             with self._cond:
                 while True:
                     guard()
-                    if len(self._outstanding) < self.queue_depth:
+                    if room():
                         break
                     remaining = deadline - self._now()
                     if remaining <= 0:
                         raise ControllerError(f"queue full: no segment finished within {timeout_s:g} s")
-                    self._cond.wait(min(remaining, 0.05))
+                    self._cond.wait(min(remaining, self.timeout_s / 4))
+                    if self._pipe:
+                        break  # service the pipeline (re-sends) below, then look again
+            with self._txn_lock:
+                self._service_pipe()
+                with self._cond:
+                    guard()
+                    if not room():
+                        continue
+                    idle = not self._pipe and not self._outstanding
+                    if not idle:
+                        # mid-stream: send it and go on; its OK is checked as it comes
+                        seq = self._seq = P.next_seq(self._seq)
+                        line = P.host_line(seq, "MOVE", ms, *counts)
+                        self._outstanding[seq] = counts
+                        self._pipe[seq] = _PipeLine(line, self._now())
+                if not idle:
+                    self._write(line)
+                    return
+            # the first segment of a stream waits for its reply, so a refusal raises here
             reply = self._transact("MOVE", ms, *counts, guard=guard)
             if reply.kind == "OK":
                 with self._cond:

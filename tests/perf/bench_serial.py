@@ -4,8 +4,9 @@ Run by hand: ``python tests/perf/bench_serial.py [--baud 115200] [--segments 100
 
 Two ways to stream short MOVE segments over a pty to the emulator (``pace`` on: every
 byte takes 10 bit times, both ways):
-- flow control: the next MOVE goes out as soon as the previous one's OK is in, the
-  controller's queue is kept full (the driver waits for a DONE only when it is full);
+- flow control: MOVE lines are pipelined (up to 4 without their OK, the driver's
+  default ``window``) and the controller's queue is kept full (the driver waits for
+  a DONE only when it is full); also with ``window=1``, each OK awaited;
 - stop-and-wait: the next MOVE goes out only after the previous segment's DONE.
 
 Rates are printed in segments/s and as a ratio to the line rate the baud allows for
@@ -43,10 +44,10 @@ def _wait_done(d: SerialDriver) -> None:
             d._cond.wait(0.5)
 
 
-def run(mode: str, arm, baud: int, n: int, ms: int) -> tuple[float, float]:
+def run(mode: str, arm, baud: int, n: int, ms: int, window: int) -> tuple[float, float, float]:
     emu = Emulator(arm, {"pace": True, "baud": baud, "home_s": 0.05})
     path = emu.start()
-    d = SerialDriver(arm, port=path, baud=baud)
+    d = SerialDriver(arm, port=path, baud=baud, window=window)
     try:
         d.open()
         d.enable()
@@ -66,9 +67,10 @@ def run(mode: str, arm, baud: int, n: int, ms: int) -> tuple[float, float]:
         assert len(moves) == n
         # bytes per MOVE line and its OK reply, averaged over the seqs used
         seqs = range(first_seq, first_seq + n)
-        line_bytes = sum(len(P.host_line(s, "MOVE", ms, *_counts(k))) + len(P.frame(f"OK {s} free=0"))
-                         for k, s in enumerate(seqs)) / n
-        return n / t_sent, line_bytes
+        move_b = sum(len(P.host_line(s, "MOVE", ms, *_counts(k))) for k, s in enumerate(seqs)) / n
+        ok_b = sum(len(P.frame(f"OK {s} free=0")) for s in seqs) / n
+        done_b = sum(len(P.frame(f"DONE {s}")) for s in seqs) / n
+        return n / t_sent, move_b + ok_b, max(move_b, ok_b + done_b)
     finally:
         d.close()
         emu.stop()
@@ -83,14 +85,19 @@ def main() -> int:
     arm = builtin_arm("planar-bench")
     print(f"baud {args.baud}, {args.segments} segments of {args.ms} ms, emulator paced at "
           f"{BITS_PER_BYTE} bits/byte, queue 8")
-    for mode in ("flow-control", "stop-and-wait"):
-        n = args.segments if mode == "flow-control" else max(50, args.segments // 3)
-        rate, line_bytes = run(mode, arm, args.baud, n, args.ms)
-        line_rate = args.baud / BITS_PER_BYTE / line_bytes
-        arm_rate = 1000.0 / args.ms
-        print(f"{mode:>14}: {rate:7.1f} segments/s = {rate / line_rate:6.1%} of the line rate "
-              f"({line_rate:.1f}/s for {line_bytes:.1f} bytes MOVE+OK); "
-              f"the arm could run {arm_rate:.0f}/s")
+    byte_rate = args.baud / BITS_PER_BYTE
+    print(f"the arm could run {1000.0 / args.ms:.0f} segments/s")
+    for label, mode, window in (("flow control, pipelined (window 4)", "flow", 4),
+                                ("flow control, each OK awaited", "flow", 1),
+                                ("stop-and-wait, each DONE awaited", "stop-and-wait", 1)):
+        n = args.segments if mode == "flow" else max(50, args.segments // 3)
+        rate, line_bytes, busiest = run(mode, arm, args.baud, n, args.ms, window)
+        line_rate = byte_rate / line_bytes
+        duplex = byte_rate / busiest
+        print(f"{label:>36}: {rate:6.1f} segments/s = {rate / line_rate:6.1%} of the line rate "
+              f"({line_rate:.1f}/s: {line_bytes:.1f} bytes MOVE+OK), "
+              f"{rate / duplex:6.1%} of the full-duplex bound ({duplex:.1f}/s: "
+              f"{busiest:.1f} bytes on the busier direction, OK+DONE or MOVE)")
     return 0
 
 
