@@ -84,7 +84,8 @@ class ScreenConfirmer(Confirmer):
             box["yes"] = result is True
             answered.set()
 
-        screen = ConfirmMoveScreen(proposal.lines(self.app.arm), title=proposal.request)
+        screen = ConfirmMoveScreen(proposal.lines(self.app.arm),
+                                   title="Confirm before the arm moves")
         try:
             self.app.call_from_thread(self.app.show_confirm, screen, on_answer)
         except RuntimeError:

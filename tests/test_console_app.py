@@ -274,26 +274,28 @@ async def test_refused_jog_shows_reasons_and_asks_nothing(planar):
     app = make_app(arm, gate)
     async with app.run_test(size=SIZE) as pilot:
         await enabled(pilot, app)
-        await pilot.press("j", "3")                  # joint jog, 10 deg steps
-        for _ in range(5):                           # elbow 90 -> 140 deg
-            await pilot.press("up")
-            await confirm_shown(pilot, app)
-            await pilot.press("y")
-            await idle(pilot, app)
-        assert math.degrees(gate.state().joints[1]) == pytest.approx(140.0, abs=0.01)
+        # target (144.5, 0): elbow-down elbow = acos((r^2 - a1^2 - a2^2) / (2 a1 a2)) = 139.0 deg
+        # (law of cosines); one 10 deg joint jog more passes the elbow's 145 deg max
+        await enter_target(pilot, app, "144.5 0")
+        await pilot.press("m")
+        await confirm_shown(pilot, app)
+        await pilot.press("y")
+        await idle(pilot, app)
+        elbow = math.degrees(math.acos((144.5 ** 2 - A1 ** 2 - A2 ** 2) / (2 * A1 * A2)))
+        assert math.degrees(gate.state().joints[1]) == pytest.approx(elbow, abs=0.05)
         n_moves = len(moves(gate))
-        await pilot.press("up")                      # 150 deg passes the 145 deg max
+        await pilot.press("j", "3", "up")            # elbow +10 deg
         assert await until(pilot, lambda: "refused" in app.message)
         await idle(pilot, app)
         assert not isinstance(app.screen, ConfirmMoveScreen)
-        assert "elbow" in app.message
+        assert "elbow" in app.message and "145.00 deg" in app.message
         assert any(w.startswith("refused:") for w in app.warnings())
         assert len(moves(gate)) == n_moves
 
 
 async def test_holding_a_jog_key_keeps_one_pending_jog(planar):
     arm, gate = planar
-    slow = Interlock.open(arm, "sim", journal=False, time_scale=0.05)   # a 1 mm jog takes ~2 s
+    slow = Interlock.open(arm, "sim", journal=False, time_scale=0.1)   # a 1 mm jog takes ~1 s
     try:
         app = make_app(arm, slow)
         async with app.run_test(size=SIZE) as pilot:

@@ -7,7 +7,7 @@ from collections.abc import Sequence
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Vertical, VerticalScroll
+from textual.containers import VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Footer, Static
 
@@ -38,18 +38,17 @@ class ConfirmMoveScreen(ModalScreen[bool]):
         self.answered = False
 
     def compose(self) -> ComposeResult:
-        with Vertical(id="confirm-box"):
+        with VerticalScroll(id="confirm-box"):
             yield Static(Text(self.title_words, style="bold"), id="confirm-title")
-            with VerticalScroll(id="confirm-body"):
-                text = Text()
-                for n, line in enumerate(self.lines):
-                    if n:
-                        text.append("\n")
-                    low = line.lower()
-                    style = ("bold red" if line.startswith("REFUSED") else
-                             "yellow" if ("warning" in low or "near" in low) else "")
-                    text.append(line, style=style)
-                yield Static(text, id="confirm-lines")
+            text = Text()
+            for n, line in enumerate(self.lines):
+                if n:
+                    text.append("\n")
+                low = line.lower()
+                style = ("bold red" if line.startswith("REFUSED") else
+                         "yellow" if ("warning" in low or "near" in low) else "")
+                text.append(line, style=style)
+            yield Static(text, id="confirm-lines")
             yield Static(Text("y: move now    n / escape: cancel (nothing moves)",
                               style="bold"), id="confirm-keys")
         yield Footer()

@@ -65,7 +65,7 @@ class JogScreen(Screen):
                 group=STEP_GROUP),
         Binding("3", "step(10.0)", "10", tooltip="Jog step 10 mm / 10 deg", id="jog.step-10",
                 group=STEP_GROUP),
-        Binding("j", "joint_mode", "joint/cart", tooltip="Switch between jogging the tool "
+        Binding("j", "joint_mode", "joint", tooltip="Switch between jogging the tool "
                 "(Cartesian) and single joints", id="jog.joint-mode"),
         Binding("g", "focus_target", "target", tooltip="Type an exact target (enter previews it)",
                 id="jog.target"),
@@ -99,7 +99,7 @@ class JogScreen(Screen):
                 yield JogStatus(id="jogstatus")
                 yield Static("", id="message")
             yield EventLog(id="events")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         self.query_one("#sketch").border_title = f"{self.arm.name}: seen from above" + (

@@ -42,8 +42,25 @@ HATCH = "#"        # keep-out zones
 REACH = "."        # reach boundaries (max, and min when > 0)
 GROUND = "="       # the table (side view)
 
-LEGEND = (f"{BASE} base  {ELBOW} joint  {TOOL} tool  {TARGET} target  {PLANNED} chosen branch  "
-          f"{OTHER} other branch  {HATCH} keep-out  {REACH} reach")
+LEGEND_ITEMS = (f"{BASE} base", f"{ELBOW} joint", f"{TOOL} tool", f"{TARGET} target",
+                f"{PLANNED} chosen branch", f"{OTHER} other branch", f"{HATCH} keep-out",
+                f"{REACH} reach")
+LEGEND = "  ".join(LEGEND_ITEMS)
+
+
+def legend_lines(width: int) -> list[str]:
+    """The legend packed into lines of at most ``width`` characters.
+
+    >>> legend_lines(40)
+    ['@ base  o joint  T tool  X target', '+ chosen branch  : other branch', '# keep-out  . reach']
+    """
+    lines: list[str] = []
+    for item in LEGEND_ITEMS:
+        if lines and len(lines[-1]) + 2 + len(item) <= width:
+            lines[-1] += "  " + item
+        else:
+            lines.append(item[:width])
+    return lines
 
 SIDE_MIN_WIDTH = 40   # below this a SCARA gets the top view only
 
@@ -370,11 +387,10 @@ class PoseSketch(Widget):
         width, height = self.content_size
         if self.joints is None:
             return Text("waiting for the arm's position...")
-        legend = height >= 8
-        lines = render_sketch(self.arm, self.joints, width=width,
-                              height=height - 1 if legend else height, target=self.target,
-                              other_joints=self.other_joints, planned_joints=self.planned_joints)
-        if legend:
-            lines.append(LEGEND[:width])
+        legend = legend_lines(width) if height >= 12 else []
+        lines = render_sketch(self.arm, self.joints, width=width, height=height - len(legend),
+                              target=self.target, other_joints=self.other_joints,
+                              planned_joints=self.planned_joints)
+        lines += legend
         self.lines = lines
         return Text("\n".join(lines), no_wrap=True, overflow="crop")

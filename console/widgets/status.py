@@ -145,10 +145,10 @@ class EventLog(Widget):
         self.refresh()
 
     def render(self) -> Text:
-        height = max(1, self.content_size.height)
-        shown = list(self.entries)[-height:]
-        return Text("\n".join(shown) if shown else "no events yet", no_wrap=True,
-                    overflow="ellipsis")
+        width, height = self.content_size
+        shown = [line if len(line) <= width else line[:max(0, width - 3)] + "..."
+                 for line in list(self.entries)[-max(1, height):]]
+        return Text("\n".join(shown) if shown else "no events yet", no_wrap=True)
 
 
 class JogStatus(Static):
