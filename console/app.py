@@ -105,7 +105,7 @@ class BenchjogApp(App):
 
     BINDINGS = [
         Binding("space", "stop", "stop", tooltip="Stop the arm at once (never asks)",
-                id="app.stop"),
+                id="app.stop", key_display="spc"),
         Binding("s", "stop", "stop", show=False, tooltip="Stop the arm at once (never asks)",
                 id="app.stop-s"),
         Binding("e", "drives", "drives", tooltip="Switch the drives on (enable) or off (disable)",
@@ -245,7 +245,8 @@ class BenchjogApp(App):
 
     def reach_warning(self) -> str | None:
         if self.target_ik is not None and not self.target_ik.reachable:
-            return self.target_ik.warnings[0] if self.target_ik.warnings else "out of reach"
+            words = self.target_ik.warnings[0] if self.target_ik.warnings else "no IK solution"
+            return words.removeprefix("out of reach: ")
         return None
 
     def refresh_view(self) -> None:
@@ -277,8 +278,8 @@ class BenchjogApp(App):
         ik = self.target_ik
         if not ik.reachable:
             self.branch = None
-            self.set_message(f"target out of reach: {ik.warnings[0] if ik.warnings else ''}"
-                             " (nothing moves)", error=True)
+            self.set_message(f"target out of reach: {self.reach_warning()} (nothing moves)",
+                             error=True)
         else:
             here = self.actual or self.arm.home_joints
             choices = ik.usable or ik.solutions

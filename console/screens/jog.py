@@ -27,28 +27,32 @@ CARTESIAN_AXES = ("x", "y", "z", "roll")
 SCARA_ONLY = ("z", "roll", "j3", "j4")
 
 
-def _jog_pair(minus_key: str, plus_key: str, axis: str, label: str, what: str,
-              group: Binding.Group) -> list[Binding]:
+def _jog_pair(minus_key: str, plus_key: str, axis: str, what: str, group: Binding.Group,
+              displays: tuple[str | None, str | None] = (None, None)) -> list[Binding]:
     return [
-        Binding(minus_key, f"jog('{axis}', -1)", f"{label}-", tooltip=f"Jog {what} minus one step",
-                id=f"jog.{axis}-minus", group=group),
-        Binding(plus_key, f"jog('{axis}', 1)", f"{label}+", tooltip=f"Jog {what} plus one step",
-                id=f"jog.{axis}-plus", group=group),
+        Binding(minus_key, f"jog('{axis}', -1)", f"{axis}-", tooltip=f"Jog {what} minus one step",
+                id=f"jog.{axis}-minus", group=group, key_display=displays[0]),
+        Binding(plus_key, f"jog('{axis}', 1)", f"{axis}+", tooltip=f"Jog {what} plus one step",
+                id=f"jog.{axis}-plus", group=group, key_display=displays[1]),
     ]
 
 
 def jog_bindings() -> list[Binding]:
     """The jog keys: the same keys jog the tool (Cartesian mode) or single joints
-    (joint mode); check_action hides the set that is not in use."""
+    (joint mode); check_action hides the set that is not in use. The footer shows
+    them in two groups: the arrows (x y, or j1 j2) and, on a SCARA, page down/up and
+    the square brackets (z roll, or j3 j4)."""
     keys = (("left", "right"), ("down", "up"), ("pagedown", "pageup"),
             ("left_square_bracket", "right_square_bracket"))
+    displays = ((None, None), (None, None), ("pgdn", "/pgup"), (None, None))
     out: list[Binding] = []
-    for (minus, plus), axis in zip(keys, CARTESIAN_AXES):
-        what = "the tool roll" if axis == "roll" else f"the tool along {axis}"
-        out += _jog_pair(minus, plus, axis, axis, what, Binding.Group(axis, compact=True))
-    for n, (minus, plus) in enumerate(keys, 1):
-        out += _jog_pair(minus, plus, f"j{n}", f"j{n}", f"joint {n}",
-                         Binding.Group(f"j{n}", compact=True))
+    for axes, kind in ((CARTESIAN_AXES, "tool"), (("j1", "j2", "j3", "j4"), "joint")):
+        groups = (Binding.Group(f"{axes[0]} {axes[1]}", compact=True),
+                  Binding.Group(f"{axes[2]} {axes[3]}", compact=True))
+        for n, ((minus, plus), axis) in enumerate(zip(keys, axes)):
+            what = (f"joint {axis[1:]}" if kind == "joint" else
+                    "the tool roll" if axis == "roll" else f"the tool along {axis}")
+            out += _jog_pair(minus, plus, axis, what, groups[n // 2], displays[n])
     return out
 
 
@@ -73,7 +77,7 @@ class JogScreen(Screen):
                 id="jog.move"),
         Binding("b", "branch", "branch", tooltip="Choose the other IK branch (elbow-up / "
                 "elbow-down)", id="jog.branch"),
-        Binding("p", "path", "path", tooltip="Move path: joint interpolation or a straight line",
+        Binding("p", "path", "path", show=False, tooltip="Move path: joint interpolation or a straight line",
                 id="jog.path"),
         Binding("escape", "clear_target", "clear", show=False, tooltip="Forget the typed target",
                 id="jog.clear"),
@@ -136,7 +140,7 @@ class JogScreen(Screen):
         app = self.app
         mode = "joints" if app.joint_mode else "tool (Cartesian)"
         unit = "mm / deg" if (app.joint_mode or self.arm.is_scara) else "mm"
-        return (f"jog {mode}   step {app.step:g} {unit}   move path {app.path}   "
+        return (f"jog {mode}   step {app.step:g} {unit}   move path {app.path} (p)   "
                 f"speed {app.speed_pct:g} %")
 
     def motion_words(self) -> str:

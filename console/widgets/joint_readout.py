@@ -18,7 +18,7 @@ ERROR_WARN_DEG = 0.5   # an error this large is shown in yellow (deg, or mm on t
 def tool_fields(arm: Arm) -> tuple[tuple[str, str], ...]:
     """(name, unit) of the tool pose coordinates shown to people."""
     if arm.is_scara:
-        return (("x", "mm"), ("y", "mm"), ("z", "mm"), ("roll", "deg"))
+        return (("x", "mm"), ("y", "mm"), ("z", "mm"), ("tool roll", "deg"))
     return (("x", "mm"), ("y", "mm"), ("heading", "deg"))
 
 
