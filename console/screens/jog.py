@@ -44,7 +44,7 @@ def jog_bindings() -> list[Binding]:
     the square brackets (z roll, or j3 j4)."""
     keys = (("left", "right"), ("down", "up"), ("pagedown", "pageup"),
             ("left_square_bracket", "right_square_bracket"))
-    displays = ((None, None), (None, None), ("pgdn", "/pgup"), (None, None))
+    displays = ((None, None), (None, None), ("pgdn", "/up"), (None, None))
     out: list[Binding] = []
     for axes, kind in ((CARTESIAN_AXES, "tool"), (("j1", "j2", "j3", "j4"), "joint")):
         groups = (Binding.Group(f"{axes[0]} {axes[1]}", compact=True),
