@@ -74,6 +74,14 @@ class TestSerialContract(DriverContract):
         return make_rig()
 
 
+class TestSerialContractOneLineAtATime(DriverContract):
+    """The same contract with the MOVE pipeline off (window 1: each OK awaited)."""
+
+    @pytest.fixture
+    def rig(self, make_rig):
+        return make_rig(window=1)
+
+
 def _trace(tmp_path) -> list[str]:
     return (tmp_path / "trace.txt").read_text().splitlines()
 
@@ -328,3 +336,42 @@ def test_no_reply_at_all_is_link_lost_after_retries():
     finally:
         d.close()
         emu.stop()
+
+
+def test_refusal_mid_stream_stops_and_latches(make_rig):
+    r = make_rig()
+    d = r.driver
+    ready(d)
+    d.queue(Segment((DEG(20.0), DEG(90.0)), 0.3))      # the first waits for its OK
+    d.queue(Segment((DEG(40.0), DEG(90.0)), 0.3))      # pipelined
+    d.queue(Segment((DEG(156.0), DEG(90.0)), 0.3))     # 156 * 40 = 6240 > 6200: RANGE axis=1
+    assert wait_for(lambda: (d.state().latched or "").startswith("fault: controller refused MOVE"))
+    assert "RANGE axis=1" in d.state().latched
+    assert wait_for(lambda: any(b.split(" ")[1] == "STOP" for b in r.emulator.received))
+    assert r.emulator.moves_accepted == 2
+    assert wait_for(lambda: r.emulator.mode == "IDLE")  # the STOP flushed the second segment
+    with pytest.raises(ControllerError, match="refused MOVE"):
+        d.queue(Segment((DEG(10.0), DEG(90.0)), 0.1))
+    d.reset()
+    assert d.state().latched is None
+    d.queue(Segment((DEG(10.0), DEG(90.0)), 0.05))
+    assert d.wait_idle(2.0) and r.counts() == (400, 0)
+
+
+def test_pipeline_never_has_more_than_window_unanswered(make_rig, tmp_path):
+    r = make_rig({"slow_ms": 30}, window=3)
+    d = r.driver
+    ready(d)
+    _stream(d, 6, duration_s=0.1)   # long enough that the stream never runs dry
+    # replay the trace: MOVE lines sent minus MOVE replies received, at every step
+    unanswered, peak = set(), 0
+    for ln in _trace(tmp_path):
+        body = ln.split(" > ", 1)[1] if " > " in ln else ln.split(" < ", 1)[1]
+        parts = body.split("*")[0].split(" ")
+        if " > " in ln and parts[1] == "MOVE":
+            unanswered.add(parts[0])
+        elif " < " in ln and parts[0] in ("OK", "ERR"):
+            unanswered.discard(parts[1])
+        peak = max(peak, len(unanswered))
+    assert peak == 3
+    assert r.emulator.moves_accepted == 6 and r.counts() == (240, 0)
