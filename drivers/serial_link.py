@@ -4,14 +4,26 @@ Options: ``port`` (a device path or any pyserial URL: ``loop://``, ``socket://``
 ``spy://``...), ``baud`` (115200), ``timeout_s`` (reply timeout, 0.3), ``retries``
 (re-sends of an unanswered line before the link is declared lost, 3), ``trace`` (a
 file path: every line sent and received, timestamped, flushed per line) and
-``heartbeat_s`` (the STATE period, 0.2; 0 turns the heartbeat off, for tests only).
+``heartbeat_s`` (the STATE period, 0.2; 0 turns the heartbeat off, for tests only),
+``window`` (pipelined MOVE lines, 4; 1 waits for each OK) and ``first_seq`` (HELLO's
+seq, 1).
 
-One line is in flight at a time (a reply is matched by its seq, so a late duplicate is
-never taken for the next line's reply); segments are streamed without waiting for
-their DONE, up to the controller's ``queue`` depth. A background reader dispatches
-replies, DONE and EVT lines; a heartbeat thread sends STATE while the port is open.
-After an e-stop, a fault or a lost link nothing but STOP/STATE/RESET goes out until
-:meth:`SerialDriver.reset`.
+Replies are matched by seq, so a late duplicate is never taken for another line's
+reply. Segments stream without waiting for their DONE, up to the controller's
+``queue`` depth (flow control), and MOVE lines are pipelined: up to ``window`` (4)
+may be on the wire without their OK, so both directions of the line stay busy. The
+first segment of a stream (nothing queued before it) waits for its OK, so a refusal
+raises from that ``queue()`` call; a segment refused in mid-stream cannot be taken back
+from the ones already sent behind it, so the driver stops the arm at once and latches
+``"fault: controller refused MOVE: ..."`` until :meth:`SerialDriver.reset`. A lost
+pipelined line is re-sent alone (on a ``BAD_SEQ`` naming it or when its reply is
+overdue), then the lines behind it; every other verb is one line at a time, after the
+pipeline has drained (STOP and HELLO abandon it instead: they never wait).
+
+A background reader dispatches replies, DONE and EVT lines; a heartbeat thread sends
+STATE every ``heartbeat_s`` while the port is open (the watchdog needs a line every
+second; PROTOCOL.md asks for a STATE at least every 250 ms while enabled). After an
+e-stop, a fault or a lost link no MOVE goes out until :meth:`SerialDriver.reset`.
 """
 
 from __future__ import annotations
@@ -425,10 +437,8 @@ class SerialDriver(Driver):
             time.sleep(min(0.02, self.heartbeat_s / 4))
             if not self._running or self._link_lost():
                 continue
-            now = self._now()
-            fresh = self._t_state is not None and now - self._t_state < self.heartbeat_s
-            if now - self._t_state_sent < self.heartbeat_s or (fresh and now - self._t_tx < self.heartbeat_s):
-                continue  # a STATE is recent, or lines go out and DONEs come back: no need
+            if self._now() - self._t_state_sent < self.heartbeat_s:
+                continue
             try:
                 self._transact("STATE")
             except DriverError:

@@ -319,6 +319,8 @@ def test_port_gone_mid_move_is_link_lost(make_rig):
     with pytest.raises(LinkError):
         d.queue(Segment((DEG(10.0), DEG(90.0)), 0.1))
     d.stop()                                           # never raises for a dead link
+    with pytest.raises(LinkError):
+        d.reset()                                      # the port itself is gone
     d.close()
     d.close()
 
@@ -333,6 +335,13 @@ def test_no_reply_at_all_is_link_lost_after_retries():
         with pytest.raises(LinkError, match="after 3 tries"):
             d.enable()
         assert d.state().latched.startswith("link lost: no reply after 3 tries")
+        with pytest.raises(LinkError):
+            d.queue(Segment((DEG(1.0), DEG(90.0)), 0.1))
+        emu.opts.drop_every = None                     # the line is good again
+        d.reset()                                      # after a lost link: open and HELLO again
+        assert d.state().latched is None
+        d.enable()
+        assert d.state().enabled
     finally:
         d.close()
         emu.stop()
