@@ -135,13 +135,13 @@ class SerialDriver(Driver):
             ser = self._ser
             if ser is None:
                 raise LinkError(f"{self.port}: the port is not open")
+            self._trace_line(">", line)  # first, so the trace never shows a reply before its line
             try:
                 ser.write(line)
                 self._t_tx = self._now()
             except Exception as exc:  # noqa: BLE001 - any port failure is a lost link
                 self._lose_link(f"port error: {exc}")
                 raise LinkError(f"{self.port}: link lost: port error: {exc}") from None
-            self._trace_line(">", line)
 
     def _lose_link(self, reason: str) -> None:
         with self._cond:
@@ -224,7 +224,8 @@ class SerialDriver(Driver):
         sequence) go out again together. No new line goes out meanwhile. After
         ``retries`` re-sends of one line the link is declared lost."""
         with self._cond:
-            if not self._pipe:
+            if not self._pipe or self._latched is not None:
+                self._pipe.clear()  # nothing re-sent once anything is latched
                 self._resend_from, self._recovering = None, None
                 return
             now = self._now()
@@ -299,7 +300,7 @@ class SerialDriver(Driver):
             # a refused segment in mid-stream breaks the planned path: stop everything
             self._latched = f"fault: controller refused MOVE: {msg.describe()}"
             self._event("fault", f"controller refused a streamed segment ({msg.describe()}); stopping")
-        threading.Thread(target=self.stop, name="serial-stop", daemon=True).start()
+            threading.Thread(target=self.stop, name="serial-stop", daemon=True).start()
 
     # -- reader ---------------------------------------------------------------------
     def _reader(self) -> None:
@@ -385,6 +386,8 @@ class SerialDriver(Driver):
 
     def _after_halt(self, mode: Mode) -> None:
         self._outstanding.clear()
+        self._pipe.clear()  # pipelined MOVEs are never re-sent after an e-stop or fault
+        self._resend_from = self._recovering = None
         self._home_seq = None
         self._mode = mode
 
