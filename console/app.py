@@ -524,7 +524,8 @@ def run_console(args) -> int:
     else:
         gate = Interlock.open(arm, "sim")
     try:
-        make_app(arm, gate).run()
+        make_app(arm, gate, points_path=getattr(args, "points", None),
+                 program_path=getattr(args, "program", None)).run()
     finally:
         gate.close()
     return 0

@@ -46,6 +46,10 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--arm", metavar="FILE", help="arm file (TOML) or built-in arm name")
     parser.add_argument("--port", metavar="URL", help="serial port or pyserial URL of the controller")
     parser.add_argument("--baud", type=int, default=115200, help="baud rate (default 115200)")
+    parser.add_argument("--points", metavar="FILE", default="points.toml",
+                        help="console: the points file to teach into (default ./points.toml)")
+    parser.add_argument("--program", metavar="FILE", default="program.toml",
+                        help="console: the program file to build (default ./program.toml)")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for name in COMMAND_MODULES:
         try:

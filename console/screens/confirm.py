@@ -49,6 +49,8 @@ class ConfirmMoveScreen(ModalScreen[bool]):
                          "yellow" if ("warning" in low or "near" in low) else "")
                 text.append(line, style=style)
             yield Static(text, id="confirm-lines")
+            yield Static(Text("Keep clear of the arm; the hardware e-stop is the safety "
+                              "function, this prompt is not.", style="yellow"), id="confirm-caution")
             yield Static(Text("y: move now    n / escape: cancel (nothing moves)",
                               style="bold"), id="confirm-keys")
         yield Footer()

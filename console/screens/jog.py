@@ -8,6 +8,7 @@ the interlock, the workers and the state.
 from __future__ import annotations
 
 from rich.text import Text
+from console.caution import CAUTION
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
@@ -102,6 +103,7 @@ class JogScreen(Screen):
                 yield TargetInput(self.arm, id="target")
                 yield JogStatus(id="jogstatus")
                 yield Static("", id="message")
+                yield Static(CAUTION, id="caution")
             yield EventLog(id="events")
         yield Footer(compact=True)
 
