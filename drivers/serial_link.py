@@ -101,6 +101,7 @@ class SerialDriver(Driver):
         self._home_seq: int | None = None
         self._home_done = False
         self._stop_gen = 0
+        self._stop_pending = 0   # stop() calls under way: other waits give up at once
         self._mode = Mode.DISABLED
         self._pos: tuple[int, ...] = (0,) * arm.n_joints
         self._outputs = 0
@@ -193,6 +194,8 @@ class SerialDriver(Driver):
                     deadline = self._now() + self.timeout_s
                     with self._cond:
                         while self._reply is None and not self._link_lost():
+                            if self._stop_pending and verb not in ("STOP", "HELLO"):
+                                raise ControllerError(f"{verb} interrupted by stop()")
                             remaining = deadline - self._now()
                             if remaining <= 0:
                                 break
@@ -264,6 +267,8 @@ class SerialDriver(Driver):
                     return
                 if self._link_lost():
                     raise LinkError(f"{self.port}: {self._latched}")
+                if self._stop_pending:
+                    raise ControllerError("interrupted by stop()")
                 self._cond.wait(self.timeout_s / 4)
 
     def _on_pipe_reply(self, msg: P.Reply) -> None:
@@ -636,24 +641,34 @@ class SerialDriver(Driver):
             raise ControllerError(f"controller refused MOVE: {reply.describe()}")
 
     def stop(self) -> None:
+        """Halt at once: whatever line another thread waits on is given up (its
+        caller gets a ControllerError), then STOP goes out. Should that line have been
+        lost, so that STOP is out of sequence, a HELLO restarts the count first."""
         with self._cond:
             self._stop_gen += 1
+            self._stop_pending += 1
             self._outstanding.clear()
             self._home_seq = None
             if self._mode is Mode.MOVING:
                 self._mode = Mode.IDLE
             self._cond.notify_all()
             usable = self._is_open and self._ser is not None and not self._link_lost()
-        if not usable:
-            return
         try:
+            if not usable:
+                return
             reply = self._transact("STOP")
+            if reply.kind == "ERR" and reply.code == "BAD_SEQ":
+                self._transact("HELLO", hello=True)
+                reply = self._transact("STOP")
             if reply.kind == "OK":
                 with self._cond:
                     self._outstanding.clear()
                     self._cond.notify_all()
         except Exception:  # noqa: BLE001 - stop never raises for a dead link
             pass
+        finally:
+            with self._cond:
+                self._stop_pending -= 1
 
     def _state_locked(self) -> DriverState:
         enabled = self._mode in (Mode.UNHOMED, Mode.IDLE, Mode.MOVING)

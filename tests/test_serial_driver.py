@@ -384,3 +384,26 @@ def test_pipeline_never_has_more_than_window_unanswered(make_rig, tmp_path):
         peak = max(peak, len(unanswered))
     assert peak == 3
     assert r.emulator.moves_accepted == 6 and r.counts() == (240, 0)
+
+
+def test_stop_does_not_wait_behind_a_slow_reply(make_rig, tmp_path):
+    r = make_rig({"slow_ms": 200}, timeout_s=0.5)
+    d = r.driver
+    ready(d)
+    d.queue(Segment((DEG(90.0), DEG(90.0)), 3.0))
+
+    def state_in_flight():
+        lines = _trace(tmp_path)
+        sent = [ln.split(" > ", 1)[1].split(" ")[0] for ln in lines if " > " in ln and " STATE*" in ln]
+        got = {ln.split(" < ", 1)[1].split(" ")[1] for ln in lines if " < OK " in ln}
+        return bool(sent) and sent[-1] not in got and sent[-1]
+
+    assert wait_for(state_in_flight, 3.0)
+    seq = state_in_flight()
+    d.stop()
+    lines = _trace(tmp_path)
+    stop_at = next(i for i, ln in enumerate(lines) if " > " in ln and " STOP*" in ln)
+    reply_at = [i for i, ln in enumerate(lines) if f" < OK {seq} " in ln or ln.endswith(f" < OK {seq}")]
+    assert not reply_at or stop_at < reply_at[0]     # STOP went out before that reply came
+    assert wait_for(lambda: r.emulator.mode == "IDLE" and not r.emulator.segs)
+    assert r.counts()[0] < 3600
