@@ -223,14 +223,16 @@ class Driver(ABC):
     def wait_idle(self, timeout_s: float) -> bool:
         """Wait until the queue has drained and the mode is not MOVING.
 
-        Returns True when idle, False on timeout (or when the driver is latched with
-        motion still counted as queued, which cannot drain).
+        Returns True when idle, False on timeout, and False at once when the link is
+        lost (nothing can be known about the arm then).
         """
         deadline = time.monotonic() + max(0.0, timeout_s)
         while True:
             st = self.state()
             if st.queued == 0 and st.mode is not Mode.MOVING:
                 return True
+            if st.latched is not None and st.latched.startswith("link lost"):
+                return False
             if time.monotonic() >= deadline:
                 return False
             time.sleep(0.005)

@@ -407,3 +407,14 @@ def test_stop_does_not_wait_behind_a_slow_reply(make_rig, tmp_path):
     assert not reply_at or stop_at < reply_at[0]     # STOP went out before that reply came
     assert wait_for(lambda: r.emulator.mode == "IDLE" and not r.emulator.segs)
     assert r.counts()[0] < 3600
+
+
+def test_wait_idle_is_false_at_once_when_the_link_is_lost(make_rig):
+    r = make_rig()
+    d = r.driver
+    ready(d)
+    d.queue(Segment((DEG(90.0), DEG(90.0)), 2.0))
+    r.emulator.stop()
+    assert wait_for(lambda: (d.state().latched or "").startswith("link lost"), 3.0)
+    assert d.state().queued == 1                      # nobody knows whether it ran
+    assert d.wait_idle(30.0) is False                 # (and it does not sit out the 30 s)
