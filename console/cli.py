@@ -52,13 +52,7 @@ def build_parser() -> argparse.ArgumentParser:
                         help="console: the program file to build (default ./program.toml)")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     for name in COMMAND_MODULES:
-        try:
-            module = importlib.import_module(name)
-        except ModuleNotFoundError as exc:  # TEMP during parallel build-out
-            if not (exc.name or "").startswith(("console.", "kinematics.", "drivers.")):
-                raise
-            continue
-        module.register(sub)
+        importlib.import_module(name).register(sub)
     return parser
 
 
@@ -89,13 +83,8 @@ def _console_or_overview(parser: argparse.ArgumentParser, args: argparse.Namespa
         print("benchjog: no terminal here, so the console did not open; the commands are "
               "listed above", file=sys.stderr)
         return exit_codes.OK
-    try:
-        from console.app import run_console
-    except ModuleNotFoundError as exc:
-        if exc.name != "console.app":
-            raise
-        parser.print_help()
-        return exit_codes.OK
+    from console.app import run_console  # Textual loads only when the console opens
+
     return run_console(args)
 
 

@@ -7,7 +7,7 @@ exit codes of CONTRACT.md, so ``main`` can print one line instead of a traceback
 from __future__ import annotations
 
 from console import exit_codes
-from drivers.base import DriverError, LinkError
+from drivers.base import DriverError, DriverNotFound, LinkError
 from drivers.journal import JournalError
 from console.points import PointError
 from console.programs import ProgramError
@@ -35,6 +35,7 @@ _CODES: list[tuple[type[BaseException], int]] = [
     (PointError, exit_codes.BAD_INPUT),
     (ProgramError, exit_codes.BAD_INPUT),
     (FrameError, exit_codes.BAD_INPUT),
+    (DriverNotFound, exit_codes.BAD_INPUT),
     (LinkError, exit_codes.LINK_FAILED),
     (DriverError, exit_codes.LINK_FAILED),
 ]
