@@ -516,13 +516,10 @@ def run_console(args) -> int:
     """``benchjog`` with no subcommand: the console on the simulated arm, or on a
     controller over serial when ``--port`` is given."""
     from console.armfile import load_arm
+    from console.cli_common import open_gate
 
     arm = load_arm(args.arm)
-    port = getattr(args, "port", None)
-    if port:
-        gate = Interlock.open(arm, "serial", port=port, baud=getattr(args, "baud", 115200))
-    else:
-        gate = Interlock.open(arm, "sim")
+    gate = open_gate(arm, args)
     try:
         make_app(arm, gate, points_path=getattr(args, "points", None),
                  program_path=getattr(args, "program", None)).run()

@@ -46,6 +46,11 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--arm", metavar="FILE", help="arm file (TOML) or built-in arm name")
     parser.add_argument("--port", metavar="URL", help="serial port or pyserial URL of the controller")
     parser.add_argument("--baud", type=int, default=115200, help="baud rate (default 115200)")
+    parser.add_argument("--journal", metavar="FILE", default=None,
+                        help="append the motion journal here (default: a new file in "
+                        "~/.local/share/benchjog/journal)")
+    parser.add_argument("--trace", metavar="FILE", default=None,
+                        help="serial: write every protocol line sent and received, timestamped")
     parser.add_argument("--points", metavar="FILE", default="points.toml",
                         help="console: the points file to teach into (default ./points.toml)")
     parser.add_argument("--program", metavar="FILE", default="program.toml",

@@ -44,3 +44,66 @@ def round_out(value: float, digits: int = 9) -> float:
     """Round for output, and never print -0.0."""
     value = round(value, digits)
     return 0.0 if value == 0 else value
+
+
+def add_journal_option(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--journal", metavar="FILE", default=argparse.SUPPRESS,
+                        help="append the motion journal here (default: a new file in "
+                        "~/.local/share/benchjog/journal)")
+    parser.add_argument("--trace", metavar="FILE", default=argparse.SUPPRESS,
+                        help="serial: write every protocol line sent and received, timestamped")
+
+
+def open_gate(arm, args: argparse.Namespace):
+    """The interlock on the simulated arm without ``--port``, on the serial driver with
+    one (``--baud``, ``--trace``); the journal from ``--journal`` or the default file."""
+    from drivers.interlock import Interlock  # the gate, and only the gate, owns a driver
+
+    journal = getattr(args, "journal", None) or None
+    port = getattr(args, "port", None)
+    if not port:
+        return Interlock.open(arm, "sim", journal=journal)
+    options = {"port": port, "baud": getattr(args, "baud", 115200)}
+    if getattr(args, "trace", None):
+        options["trace"] = args.trace
+    return Interlock.open(arm, "serial", journal=journal, **options)
+
+
+def exit_code_of(result) -> int:
+    """0 done; 3 when the link or the controller failed (a halt that is not a person's
+    stop); 1 for the rest (cancelled, refused, expired, stopped)."""
+    from console import exit_codes
+
+    if result.completed:
+        return exit_codes.OK
+    if result.outcome == "halted":
+        return exit_codes.LINK_FAILED
+    return exit_codes.REFUSED
+
+
+def run_stoppable(gate, work):
+    """Run ``work()`` (which drives the gate) in a worker thread so that ctrl+c stops
+    the arm at once (``gate.stop()``) and the worker can still report where it halted."""
+    import threading
+
+    box: dict[str, Any] = {}
+
+    def target() -> None:
+        try:
+            box["out"] = work()
+        except BaseException as exc:  # noqa: BLE001 - re-raised in the caller's thread
+            box["error"] = exc
+
+    worker = threading.Thread(target=target, name="benchjog-motion", daemon=True)
+    worker.start()
+    try:
+        while worker.is_alive():
+            worker.join(0.1)
+    except KeyboardInterrupt:
+        gate.stop()
+        worker.join(10.0)
+    if "error" in box:
+        raise box["error"]
+    if "out" not in box:
+        raise KeyboardInterrupt
+    return box["out"]

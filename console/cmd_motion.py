@@ -8,10 +8,12 @@ import sys
 
 from console import exit_codes
 from console.armfile import load_arm
-from console.cli_common import add_arm_option, add_port_options
+from console.cli_common import (add_arm_option, add_journal_option, add_port_options, exit_code_of,
+                                open_gate, run_stoppable)
 from console.cmd_kinematics import target_from_args
 from console.confirm_cli import PromptConfirmer
-from drivers.interlock import Interlock, RunResult
+from console.errors import UsageError
+from drivers.interlock import RunResult
 from kinematics.model import Arm, Branch
 from kinematics.planner import JOINT, LINE
 
@@ -41,28 +43,6 @@ def register(sub: argparse._SubParsersAction) -> None:
     home.set_defaults(func=cmd_home)
 
 
-def add_journal_option(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--journal", metavar="FILE", default=None,
-                        help="append the motion journal here (default: a new file in "
-                        "~/.local/share/benchjog/journal)")
-
-
-def open_interlock(arm: Arm, args: argparse.Namespace) -> Interlock:
-    """The simulated arm without ``--port``, the serial driver with one."""
-    journal = args.journal if getattr(args, "journal", None) else None
-    if args.port:
-        return Interlock.open(arm, "serial", journal=journal, port=args.port, baud=args.baud)
-    return Interlock.open(arm, "sim", journal=journal)
-
-
-def exit_code_of(result: RunResult) -> int:
-    if result.completed:
-        return exit_codes.OK
-    if result.outcome == "halted":
-        return exit_codes.LINK_FAILED
-    return exit_codes.REFUSED
-
-
 def _report(result: RunResult) -> int:
     print(f"benchjog: {result.detail}", file=sys.stderr)
     return exit_code_of(result)
@@ -72,15 +52,15 @@ def cmd_move(args: argparse.Namespace) -> int:
     arm = load_arm(args.arm)
     target = target_from_args(arm, args.coords)
     if not 0 < args.speed <= 100:
-        from console.errors import UsageError
         raise UsageError(f"--speed: must be in (0, 100] ({args.speed:g})")
     branch = Branch(args.branch) if args.branch else None
-    with open_interlock(arm, args) as gate:
+    with open_gate(arm, args) as gate:
         gate.enable()
         try:
             proposal = gate.propose_move(target, branch=branch, path=args.path,
                                          speed_pct=args.speed)
-            result = gate.execute(proposal, PromptConfirmer(arm, question="Move?"))
+            result = run_stoppable(gate, lambda: gate.execute(
+                proposal, PromptConfirmer(arm, question="Move?")))
         finally:
             gate.disable()
     return _report(result)
@@ -88,10 +68,10 @@ def cmd_move(args: argparse.Namespace) -> int:
 
 def cmd_home(args: argparse.Namespace) -> int:
     arm = load_arm(args.arm)
-    with open_interlock(arm, args) as gate:
+    with open_gate(arm, args) as gate:
         gate.enable()
         try:
-            result = gate.home(PromptConfirmer(arm, question="Home?"))
+            result = run_stoppable(gate, lambda: gate.home(PromptConfirmer(arm, question="Home?")))
         finally:
             gate.disable()
     return _report(result)

@@ -16,14 +16,14 @@ from __future__ import annotations
 import argparse
 import math
 import sys
-import threading
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from console import exit_codes
 from console.armfile import load_arm
-from console.cli_common import add_arm_option, add_port_options, print_json, round_out
+from console.cli_common import (add_arm_option, add_journal_option, add_port_options, exit_code_of,
+                                open_gate, print_json, round_out, run_stoppable)
 from console.confirm_cli import PromptConfirmer
 from console.points import PointBook, PointError
 from console.programs import DwellStep, MoveStep, OutputStep, Program
@@ -333,16 +333,6 @@ def result_words(report: ProgramReport, result: RunResult) -> str:
     return result.detail
 
 
-def exit_code_of(result: RunResult) -> int:
-    """0 done; 3 when the link or the controller failed (a halt that is not a person's
-    stop); 1 for the rest (cancelled, refused, expired, stopped)."""
-    if result.completed:
-        return exit_codes.OK
-    if result.outcome == "halted":
-        return exit_codes.LINK_FAILED
-    return exit_codes.REFUSED
-
-
 # --- the commands -------------------------------------------------------------------
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -363,9 +353,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     run.add_argument("program", metavar="PROGRAM", help="program file (TOML)")
     add_arm_option(run)
     add_port_options(run)
-    run.add_argument("--journal", metavar="FILE", default=None,
-                     help="append the motion journal here (default: a new file in the user's "
-                     "data directory)")
+    add_journal_option(run)
     run.set_defaults(func=cmd_run)
 
 
@@ -388,15 +376,6 @@ def cmd_check(args: argparse.Namespace) -> int:
     return exit_codes.OK if report.ok else exit_codes.REFUSED
 
 
-def _open_gate(arm: Arm, args: argparse.Namespace) -> Interlock:
-    journal = args.journal if getattr(args, "journal", None) else None
-    port = getattr(args, "port", None)
-    if port:
-        return Interlock.open(arm, "serial", journal=journal, port=port,
-                              baud=getattr(args, "baud", 115200))
-    return Interlock.open(arm, "sim", journal=journal)
-
-
 def cmd_run(args: argparse.Namespace) -> int:
     arm = load_arm(args.arm)
     try:
@@ -404,28 +383,11 @@ def cmd_run(args: argparse.Namespace) -> int:
     except (FileError, PointError) as exc:
         return _bad_input(exc)
     confirmer = PromptConfirmer(arm, question="Run this program?")
-    with _open_gate(arm, args) as gate:
+    with open_gate(arm, args) as gate:
         gate.enable()
         try:
-            box: dict[str, Any] = {}
-
-            def work() -> None:
-                try:
-                    box["out"] = run_program(gate, arm, program, book, confirmer)
-                except BaseException as exc:  # noqa: BLE001 - re-raised below
-                    box["error"] = exc
-
-            worker = threading.Thread(target=work, name="benchjog-run", daemon=True)
-            worker.start()
-            try:
-                while worker.is_alive():
-                    worker.join(0.1)
-            except KeyboardInterrupt:
-                gate.stop()  # ctrl+c stops the arm at once, then we report where
-                worker.join(10.0)
-            if "error" in box:
-                raise box["error"]
-            report, result = box["out"]
+            report, result = run_stoppable(
+                gate, lambda: run_program(gate, arm, program, book, confirmer))
         finally:
             try:
                 gate.disable()
@@ -439,5 +401,5 @@ def cmd_run(args: argparse.Namespace) -> int:
 
 
 __all__ = ["plan_program", "report_lines", "report_json", "run_program", "load_program",
-           "propose_program", "result_words", "ProgramReport", "StepReport", "register",
+           "propose_program", "result_words", "exit_code_of", "ProgramReport", "StepReport", "register",
            "cmd_check", "cmd_run"]

@@ -295,7 +295,7 @@ async def test_refused_jog_shows_reasons_and_asks_nothing(planar):
 
 async def test_holding_a_jog_key_keeps_one_pending_jog(planar):
     arm, gate = planar
-    slow = Interlock.open(arm, "sim", journal=False, time_scale=0.1)   # a 1 mm jog takes ~1 s
+    slow = Interlock.open(arm, "sim", journal=False, time_scale=0.04)  # a 1 mm jog takes ~2 s
     try:
         app = make_app(arm, slow)
         async with app.run_test(size=SIZE) as pilot:
