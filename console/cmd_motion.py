@@ -6,7 +6,6 @@ from __future__ import annotations
 import argparse
 import sys
 
-from console import exit_codes
 from console.armfile import load_arm
 from console.cli_common import (add_arm_option, add_journal_option, add_port_options, exit_code_of,
                                 open_gate, run_stoppable)
@@ -14,7 +13,7 @@ from console.cmd_kinematics import target_from_args
 from console.confirm_cli import PromptConfirmer
 from console.errors import UsageError
 from drivers.interlock import RunResult
-from kinematics.model import Arm, Branch
+from kinematics.model import Branch
 from kinematics.planner import JOINT, LINE
 
 

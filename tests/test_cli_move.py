@@ -6,7 +6,6 @@ an unreachable or out-of-limit target exits 1 and moves nothing."""
 from __future__ import annotations
 
 import io
-import math
 
 import pytest
 

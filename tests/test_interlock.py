@@ -16,10 +16,11 @@ from hypothesis import strategies as st
 
 from console.armfile import builtin_arm
 from drivers.calibration import joints_from_counts
+from drivers.emulator import Emulator
 from drivers.interlock import Confirmer, Dwell, Interlock, SetOutput
 from drivers.journal import Journal, read_journal
 from kinematics.model import Branch
-from kinematics.solve import joints_from_tool, tool_from_joints
+from kinematics.solve import tool_from_joints
 
 ROOT = Path(__file__).resolve().parents[1]
 ARM = builtin_arm("planar-bench")
@@ -323,3 +324,56 @@ def test_program_approvals_last_longer_than_single_moves(gate):
     clock[0] = 0.0
     program = g.propose_actions([a, Dwell(0.01)], "two steps")
     assert g.execute(program, Answer(True, before=lambda: clock.__setitem__(0, late))).completed
+
+
+def _check_journal_and_moves(path, move_counts):
+    """Every MOVE within the soft limits; every segment sent belongs to a yes."""
+    for counts in move_counts:
+        for joint, value in zip(ARM.joints, joints_from_counts(ARM, counts)):
+            assert joint.min <= value <= joint.max, (joint.name, math.degrees(value))
+    entries = read_journal(path)
+    confirmed = {e["token"] for e in entries if e["kind"] == "confirmation" and e["yes"]}
+    assert {e["token"] for e in entries if e["kind"] == "segment"} <= confirmed
+
+
+@settings(max_examples=6, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.lists(ACTIONS, min_size=1, max_size=5))
+def test_random_sequences_on_the_emulator(tmp_path_factory, seq):
+    """The same invariants over the real serial driver and the controller emulator."""
+    path = tmp_path_factory.mktemp("j") / "journal.jsonl"
+    emu = Emulator(ARM, {"home_s": 0.02})
+    port = emu.start()
+    said_yes = False
+    try:
+        with Interlock.open(ARM, "serial", journal=Journal(path), port=port) as g:
+            g.enable()
+            assert g.home(YES()).completed
+            for kind, a, b, answer in seq:
+                if kind == "estop":
+                    emu.press_estop()
+                elif kind == "fault":
+                    emu.inject_fault("DRIVE", 1)
+                elif kind == "reset":
+                    emu.release_estop()
+                    time.sleep(0.05)
+                    try:
+                        g.reset()
+                        g.enable()
+                    except Exception:  # noqa: BLE001 - a refused reset is part of the game
+                        pass
+                else:
+                    if kind == "jog":
+                        delta = math.radians(b) / 5 if a.startswith("j") else b
+                        proposal = g.propose_jog(a, delta / 4)
+                    else:
+                        proposal = g.propose_move((a, b), speed_pct=100)
+                    confirmer = Answer(answer)
+                    g.execute(proposal, confirmer)
+                    said_yes |= bool(confirmer.asked and answer)
+    finally:
+        emu.stop()
+    move_counts = [tuple(int(c) for c in line.split()[3:]) for line in emu.received
+                   if line.split()[1:2] == ["MOVE"]]
+    _check_journal_and_moves(path, move_counts)
+    if not said_yes:
+        assert move_counts == []

@@ -327,7 +327,7 @@ def test_refuses_line_that_needs_a_joint_beyond_its_limit():
     # elbow-down moving in towards the shoulder: the elbow reaches +145 deg at
     # r = sqrt(a1^2 + a2^2 + 2 a1 a2 cos 145deg) (law of cosines)
     start = solve.joints_from_tool(PLANAR, (200.0, 0.0)).solution(Branch.ELBOW_DOWN).joints
-    a, b = np.array([200.0, 0.0]), np.array([90.0, 0.0])
+    b = np.array([90.0, 0.0])
     r145 = math.sqrt(220.0 ** 2 + 160.0 ** 2 + 2 * 220 * 160 * math.cos(math.radians(145)))
     plan = planner.plan_line_move(PLANAR, start, tuple(b))
     assert not plan.ok

@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import math
 import os
-import threading
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -34,7 +33,7 @@ from console.cmd_program import plan_program, report_lines, result_words, run_pr
 from console.points import BASE, PointBook, PointError
 from console.programs import DwellStep, MoveStep, OutputStep, Program, ProgramError
 from console.safe_files import FileError, FileLock
-from drivers.interlock import Confirmer, Interlock, Proposal
+from drivers.interlock import Confirmer, Interlock
 from kinematics.model import Arm
 
 SPEEDS = (100.0, 50.0, 25.0, 10.0)
@@ -43,37 +42,6 @@ SPEEDS = (100.0, 50.0, 25.0, 10.0)
 def one_line(exc: BaseException) -> str:
     text = str(exc).strip().splitlines()
     return text[0] if text else type(exc).__name__
-
-
-class _ScreenConfirmer(Confirmer):
-    """Used when the app offers no confirmer of its own: the console's confirmation
-    screen, pushed from the worker thread; blocks the worker until answered."""
-
-    def __init__(self, screen: "TeachScreen"):
-        self.screen = screen
-
-    def confirm(self, proposal: Proposal) -> bool:
-        from console.screens.confirm import ConfirmMoveScreen
-
-        app = self.screen.app
-        if threading.get_ident() == getattr(app, "_thread_id", None):
-            return False
-        answered = threading.Event()
-        box = {"yes": False}
-
-        def on_answer(result: bool | None) -> None:
-            box["yes"] = result is True
-            answered.set()
-
-        modal = ConfirmMoveScreen(proposal.lines(self.screen.arm), title=proposal.request)
-        try:
-            app.call_from_thread(app.push_screen, modal, on_answer)
-        except RuntimeError:
-            return False
-        while not answered.wait(0.05):
-            if getattr(app, "closing", False) or not app.is_running:
-                return False
-        return box["yes"]
 
 
 class AskScreen(ModalScreen[dict | None]):
@@ -602,8 +570,8 @@ class TeachScreen(Screen):
     # --- motion (through the gate, in a thread worker) ------------------------------------
 
     def _confirmer(self) -> Confirmer:
-        confirmer = getattr(self.app, "confirmer", None)
-        return confirmer if isinstance(confirmer, Confirmer) else _ScreenConfirmer(self)
+        """The console's own confirmer (console/app.py ScreenConfirmer)."""
+        return self.app.confirmer
 
     def action_goto(self) -> None:
         name = self.selected_point()

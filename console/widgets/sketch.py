@@ -200,7 +200,7 @@ def hatch_zone(canvas: Canvas, view: View, zone: Zone) -> None:
 
 def arm_points(arm: Arm, joints: Sequence[float]) -> tuple[tuple[float, float], tuple[float, float]]:
     """The elbow and tool points in the base plane (mm) for joint values (rad, mm)."""
-    j1, j2 = arm.joints[0], arm.joints[1]
+    j1 = arm.joints[0]
     t1 = joints[0] + j1.offset_rad
     elbow = (j1.a_mm * math.cos(t1), j1.a_mm * math.sin(t1))
     tool = tool_from_joints(arm, tuple(joints))
