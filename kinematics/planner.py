@@ -13,8 +13,10 @@ segments). The rate is bounded by each joint's ``max_speed`` and ``max_accel`` a
 the tool speed cap, bounded over the path from the Jacobian (sweep.tool_speed_gain).
 
 Straight-line moves (:func:`plan_line_move`) follow the tool line on one IK branch.
-The joint path is cut greedily: from each knot, the longest chord (in joint space)
-whose forward kinematics stays within ``tolerance_mm`` of the line. The line is then
+The joint path is cut into chords (in joint space) whose forward kinematics stays
+within ``tolerance_mm`` of the line, each chord about as long as the tolerance allows:
+a few vectorised passes balance the chords by the sagitta law (:func:`_balanced_knots`),
+with the greedy cut (from each knot, the longest such chord) as the fallback. The line is then
 timed by a speed profile of the line parameter capped, piece by piece, by the tool
 speed cap and the joint speeds, with accelerations bounded as derived in
 :func:`_line_timing`, and verified segment by segment (kinematics.profile).
@@ -45,6 +47,9 @@ DENSE_MIN, DENSE_MAX = 65, 20001
 DEVIATION_SAMPLES = 17               # FK samples per candidate chord
 DEVIATION_SAFETY = 0.99              # accept a chord when its sampled deviation <= 0.99 tol
 CANDIDATE_FACTORS = np.geomspace(0.8, 1.25, 15)  # step lengths tried at once (3.2 % apart)
+BALANCE_SEED_CHORDS = 16             # line knots: the first, uniform split seeding the estimate
+BALANCE_MARGIN = 0.01                # chords aimed 1 % below the estimated longest
+BALANCE_PASSES = 6                   # splits tried before falling back to the greedy cut
 NO_MOTION = 1e-12
 
 
@@ -389,17 +394,20 @@ class _Line:
     def deviation(self, qa: np.ndarray, qb: np.ndarray) -> np.ndarray:
         """Max distance of the FK of each joint chord qa -> qb[c] from the line
         segment, sampled at DEVIATION_SAMPLES points and refined by a parabola
-        through the largest sample and its neighbours."""
+        through the largest sample and its neighbours. ``qa``: one start (n_joints,)
+        for every chord, or one per chord (n, n_joints)."""
         arm = self.arm
         tau = _TAU[None, :]
         o1, o2 = arm.joints[0].offset_rad, arm.joints[1].offset_rad
-        t1 = (qa[0] + o1) + tau * (qb[:, 0, None] - qa[0])
-        t12 = t1 + (qa[1] + o2) + tau * (qb[:, 1, None] - qa[1])
+        qa = np.broadcast_to(qa, qb.shape)  # one start for all chords, or one per chord
+        t1 = (qa[:, 0, None] + o1) + tau * (qb[:, 0, None] - qa[:, 0, None])
+        t12 = t1 + (qa[:, 1, None] + o2) + tau * (qb[:, 1, None] - qa[:, 1, None])
         rx = arm.link1_mm * np.cos(t1) + arm.link2_mm * np.cos(t12) - self.p0[0]
         ry = arm.link1_mm * np.sin(t1) + arm.link2_mm * np.sin(t12) - self.p0[1]
         d = self.p1 - self.p0
         if arm.is_scara:
-            rz = -(tau * (qb[:, 2, None] - qa[2]) + (qa[2] - q3_at(arm, self.p0[2])))
+            rz = -(tau * (qb[:, 2, None] - qa[:, 2, None])
+                   + (qa[:, 2, None] - q3_at(arm, self.p0[2])))
         else:
             rz = 0.0
         dd = float(d @ d)
@@ -529,6 +537,50 @@ def _table_limit_problems(arm: Arm, line: _Line) -> list[str]:
     return [w for _, w in sorted(out)]
 
 
+def _balanced_knots(line: _Line, q0: np.ndarray, tol: float
+                    ) -> tuple[np.ndarray, np.ndarray] | None:
+    """Knots whose chords all stay within ``tol`` of the line (the same acceptance test
+    as :func:`_greedy_knots`: sampled deviation <= DEVIATION_SAFETY tol), found with a
+    few vectorised passes instead of one search per knot; None when the passes do not
+    settle (the caller then cuts greedily).
+
+    A short chord of length h deviates by about c(u) h^2 (the sagitta law), so a chord
+    within the limit spans about sqrt(limit / c), and a split into n chords of equal
+    "sagitta measure" N(u) = integral sqrt(c / limit) du, n = ceil(N(1) (1 + margin)),
+    meets the limit on every chord with a little to spare. Each pass measures the
+    deviation of every chord of the current split, estimates sqrt(c) at the chords'
+    middles as sqrt(deviation) / h (interpolated linearly in between), and splits
+    again; a split is accepted once every one of its chords passes (never the first,
+    uniform, split: it only seeds the estimate)."""
+    limit = tol * DEVIATION_SAFETY
+    grid = line.table_u
+    u = np.linspace(0.0, 1.0, BALANCE_SEED_CHORDS + 1)
+    margin = BALANCE_MARGIN
+    for rnd in range(BALANCE_PASSES):
+        q = np.vstack([q0, line.joints(u[1:])])
+        dev = line.deviation(q[:-1], q[1:])
+        ok = dev <= limit
+        if rnd and ok.all():
+            return u, q
+        if rnd and not ok.all():
+            margin *= 2.0  # a missed split: aim lower next time
+        du = np.diff(u)
+        rho = np.sqrt(np.maximum(dev, 0.0) / limit) / du  # chords per unit of u
+        if not np.isfinite(rho).all():
+            return None
+        dens = np.interp(grid, (u[:-1] + u[1:]) / 2.0, rho)
+        dens += 1e-9 * float(dens.max()) + 1e-12  # keep N(u) strictly increasing
+        cum = np.concatenate([[0.0], np.cumsum((dens[1:] + dens[:-1]) / 2.0 * np.diff(grid))])
+        step = 1.0 / (1.0 + margin)
+        n = max(1, math.ceil(cum[-1] / step))
+        spare = n * step - cum[-1]  # taken off the first and the last chord, half each
+        marks = np.minimum(step * np.arange(n + 1) - spare / 2.0, cum[-1])
+        marks[0] = 0.0
+        u = np.interp(marks, cum, grid)
+        u[0], u[-1] = 0.0, 1.0
+    return None
+
+
 def _greedy_knots(line: _Line, q0: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
     """From each knot, the longest step of the line parameter whose joint chord stays
     within ``tol`` of the line: 15 candidate steps 3.2 % apart around a predicted step
@@ -645,7 +697,8 @@ def plan_line_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
     warnings: list[str] = []
     if line.length_mm == 0 and line.droll == 0:
         return _joint_plan(arm, q0, q0, p, b0, warnings)
-    u, q = _greedy_knots(line, q0, tol)
+    knots = _balanced_knots(line, q0, tol)
+    u, q = knots if knots is not None else _greedy_knots(line, q0, tol)
     for _ in range(12):  # subdivide pieces that span too much of the speed ramp
         vlim, reason, v, peak, t, gain = _line_timing(arm, q0, u, q, p)
         top = float(peak.max())
