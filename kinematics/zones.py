@@ -113,11 +113,30 @@ def zone_clearances(arm: Arm, values: Sequence[float]) -> dict[str, float]:
     return result
 
 
+def _bounds_gap(a: Point, b: Point, zone: Zone) -> float:
+    """A lower bound of :func:`segment_zone_distance`: the gap between the segment's
+    bounding box and the zone's (cheap; 0 when the boxes overlap)."""
+    if zone.kind == "circle":
+        zx0, zx1, zy0, zy1 = zone.cx - zone.r, zone.cx + zone.r, zone.cy - zone.r, zone.cy + zone.r
+    else:
+        zx0, zx1, zy0, zy1 = zone.x_min, zone.x_max, zone.y_min, zone.y_max
+    dx = max(zx0 - max(a[0], b[0]), 0.0, min(a[0], b[0]) - zx1)
+    dy = max(zy0 - max(a[1], b[1]), 0.0, min(a[1], b[1]) - zy1)
+    return math.hypot(dx, dy)
+
+
 def zone_problems(arm: Arm, values: Sequence[float]) -> list[str]:
     """Words for every zone the arm's parts enter at these joint values."""
+    margin = arm.link_clearance_mm
     hits: dict[str, list[str]] = {}
-    for zone, name, gap in part_gaps(arm, values):
-        if gap < 0:
-            hits.setdefault(zone.name, []).append(name)
+    parts = link_segments(arm, values)
+    for zone in arm.zones:
+        for name, a, b, z_lo, z_hi in parts:
+            if arm.is_scara and (z_lo > zone.z_max + margin or z_hi < zone.z_min - margin):
+                continue
+            if _bounds_gap(a, b, zone) >= margin:
+                continue  # cannot be closer than the bounding boxes
+            if segment_zone_distance(a, b, zone) < margin:
+                hits.setdefault(zone.name, []).append(name)
     return [f"{', '.join(names)} inside keep-out zone {zone!r} "
-            f"(clearance {arm.link_clearance_mm:g} mm)" for zone, names in hits.items()]
+            f"(clearance {margin:g} mm)" for zone, names in hits.items()]
