@@ -226,9 +226,10 @@ def _path_findings(arm: Arm, knots: np.ndarray, where) -> tuple[list[str], list[
             warnings.append(f"near limit: {joint.name} comes within {_fmt_joint(arm, i, c.min())} "
                             f"of its soft limit {where(k)}")
     t2 = knots[:, 1] + arm.joints[1].offset_rad
-    sing = min((sweep.singular_distance_on_segment(float(a), float(b))
-                for a, b in zip(t2[:-1], t2[1:])),
-               default=float(sweep.singular_distance_array(t2).min()))
+    if len(t2) > 1:
+        sing = float(sweep.singular_distance_on_segments(t2[:-1], t2[1:]).min())
+    else:
+        sing = float(sweep.singular_distance_array(t2).min())
     return problems, warnings, tuple(clear), sing
 
 
@@ -239,7 +240,7 @@ def _zone_words(arm: Arm, contact: sweep.Contact, where: str) -> str:
 
 
 def _segments(q: np.ndarray, t: np.ndarray) -> tuple[Segment, ...]:
-    return tuple(Segment(tuple(float(v) for v in row), float(round(d, 3))) for row, d in zip(q, t))
+    return tuple(Segment(tuple(row), d) for row, d in zip(q.tolist(), np.round(t, 3).tolist()))
 
 
 def _peaks(arm: Arm, start: np.ndarray, q: np.ndarray, t: np.ndarray) -> tuple[tuple, float]:

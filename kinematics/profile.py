@@ -90,12 +90,14 @@ def line_speeds(du: np.ndarray, vlim: np.ndarray, alim: np.ndarray
         knot speeds (n+1,), the peak speed inside each piece (n,), durations (n,).
     """
     n = len(du)
-    v = np.zeros(n + 1)
-    cap = np.minimum(np.concatenate([[0.0], vlim]), np.concatenate([vlim, [0.0]]))
+    cap = np.minimum(np.concatenate([[0.0], vlim]), np.concatenate([vlim, [0.0]])).tolist()
+    room = (2.0 * np.asarray(alim, dtype=float) * du).tolist()  # 2 a du per piece
+    v = [0.0] * (n + 1)  # the passes on Python floats: the same arithmetic, less overhead
     for k in range(1, n + 1):
-        v[k] = min(cap[k], math.sqrt(v[k - 1] ** 2 + 2.0 * alim[k - 1] * du[k - 1]))
+        v[k] = min(cap[k], math.sqrt(v[k - 1] * v[k - 1] + room[k - 1]))
     for k in range(n - 1, -1, -1):
-        v[k] = min(v[k], math.sqrt(v[k + 1] ** 2 + 2.0 * alim[k] * du[k]))
+        v[k] = min(v[k], math.sqrt(v[k + 1] * v[k + 1] + room[k]))
+    v = np.array(v)
     va, vb = v[:-1], v[1:]
     peak = np.minimum(vlim, np.sqrt((va * va + vb * vb) / 2.0 + alim * du))
     peak = np.maximum(peak, np.maximum(va, vb))
@@ -161,6 +163,9 @@ def split_long(joints_from: np.ndarray, joints: np.ndarray, durations: np.ndarra
                ) -> tuple[np.ndarray, np.ndarray]:
     """Cut segments longer than SEGMENT_MAX_S into equal whole-ms pieces along the
     same joint-space line (the motion is unchanged: same path, same speed)."""
+    ms_all = np.round(np.asarray(durations, dtype=float) / MS)
+    if ms_all.size and ms_all.max() <= SEGMENT_MAX_S / MS:  # nothing to cut (the usual case)
+        return np.array(joints, dtype=float), ms_all * MS
     q_prev = joints_from
     out_q, out_t = [], []
     for q, t in zip(joints, durations):

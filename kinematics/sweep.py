@@ -136,14 +136,33 @@ def singular_distance_on_segment(t2a: float, t2b: float) -> float:
     return float(singular_distance_array(np.array([t2a, t2b])).min())
 
 
+def singular_distance_on_segments(t2a: np.ndarray, t2b: np.ndarray) -> np.ndarray:
+    """Vectorised :func:`singular_distance_on_segment` over arrays of segment ends.
+
+    >>> singular_distance_on_segments(np.radians([10.0, 10.0]), np.radians([-5.0, 30.0])).round(9).tolist()
+    [0.0, 0.174532925]
+    """
+    t2a, t2b = np.asarray(t2a, dtype=float), np.asarray(t2b, dtype=float)
+    lo, hi = np.minimum(t2a, t2b), np.maximum(t2a, t2b)
+    crosses = np.floor(hi / math.pi) * math.pi >= lo  # a multiple of pi lies in [lo, hi]
+    ends = np.minimum(singular_distance_array(t2a), singular_distance_array(t2b))
+    return np.where(crosses, 0.0, ends)
+
+
 # --------------------------------------------------------------------------- zones
 
-def _point_segment(px, py, ax, ay, bx, by):
+def _segment_terms(ax, ay, bx, by):
+    """What :func:`_point_segment` needs of a segment, computed once for many points."""
     dx, dy = bx - ax, by - ay
     length2 = dx * dx + dy * dy
-    with np.errstate(invalid="ignore", divide="ignore"):
-        t = np.where(length2 > 0, ((px - ax) * dx + (py - ay) * dy) / np.where(length2 > 0, length2, 1.0), 0.0)
-    t = np.clip(t, 0.0, 1.0)
+    some = length2 > 0
+    return dx, dy, some, np.where(some, length2, 1.0)
+
+
+def _point_segment(px, py, ax, ay, bx, by, terms=None):
+    dx, dy, some, den = _segment_terms(ax, ay, bx, by) if terms is None else terms
+    t = np.where(some, ((px - ax) * dx + (py - ay) * dy) / den, 0.0)  # den > 0: no warnings
+    t = np.minimum(np.maximum(t, 0.0), 1.0)
     return np.hypot(px - (ax + t * dx), py - (ay + t * dy))
 
 
@@ -163,8 +182,7 @@ def _segment_hits_box(ax, ay, bx, by, zone):
                  (-dy, ay - zone.y_min), (dy, zone.y_max - ay)):
         parallel = p == 0
         hit &= ~(parallel & (q < 0))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            r = np.where(parallel, 0.0, q / np.where(parallel, 1.0, p))
+        r = np.where(parallel, 0.0, q / np.where(parallel, 1.0, p))  # no zero divisor
         t0 = np.where(~parallel & (p < 0), np.maximum(t0, r), t0)
         t1 = np.where(~parallel & (p > 0), np.minimum(t1, r), t1)
     return hit & (t0 <= t1)
@@ -176,9 +194,10 @@ def segment_zone_distance_array(a: np.ndarray, b: np.ndarray, zone) -> np.ndarra
     if zone.kind == "circle":
         return np.maximum(0.0, _point_segment(zone.cx, zone.cy, ax, ay, bx, by) - zone.r)
     d = np.minimum(_point_box(ax, ay, zone), _point_box(bx, by, zone))
+    terms = _segment_terms(ax, ay, bx, by)
     for cx, cy in ((zone.x_min, zone.y_min), (zone.x_max, zone.y_min),
                    (zone.x_max, zone.y_max), (zone.x_min, zone.y_max)):
-        d = np.minimum(d, _point_segment(cx, cy, ax, ay, bx, by))
+        d = np.minimum(d, _point_segment(cx, cy, ax, ay, bx, by, terms))
     return np.where(_segment_hits_box(ax, ay, bx, by, zone), 0.0, d)
 
 
