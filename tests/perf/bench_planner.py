@@ -3,7 +3,9 @@
     python tests/perf/bench_planner.py
 
 Prints segment counts, the best of several runs, and the sagitta lower bound on the
-number of chords (tests/test_planner.py: chord_lower_bound) for the line.
+number of chords (tests/test_planner.py: chord_lower_bound) for the line; and, for the
+line's knots alone, the balanced placement the planner uses against the greedy cut it
+falls back to.
 """
 
 from __future__ import annotations
@@ -51,6 +53,12 @@ def main() -> None:
         print(f"{arm.name}: line {length:.1f} mm at 0.01 mm: {len(plan.segments)} segments, "
               f"lower bound {bound:.1f} (ratio {len(plan.segments) / bound:.2f}), "
               f"best {t * 1e3:.2f} ms, duration {plan.summary.duration_s:.3f} s")
+        q0 = np.array(start)
+        line, _ = planner._line_setup(arm, q0, solve.check_target(arm, target), plan.summary.branch)
+        (u, _), t_bal = best_of(lambda: planner._balanced_knots(line, q0, 0.01))
+        (ug, _), t_greedy = best_of(lambda: planner._greedy_knots(line, q0, 0.01), runs=5)
+        print(f"{arm.name}:   knots: balanced {len(u) - 1} chords in {t_bal * 1e3:.2f} ms, "
+              f"greedy {len(ug) - 1} chords in {t_greedy * 1e3:.2f} ms")
         end = np.array(start) + np.array([1.2, -0.8] + [20.0, 1.0][:arm.n_joints - 2])
         plan, t = best_of(lambda: planner.plan_joint_move(arm, start, end))
         assert plan.ok, plan.problems
