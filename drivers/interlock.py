@@ -20,7 +20,6 @@ This is a software interlock, not a safety-rated function (README, Safety).
 
 from __future__ import annotations
 
-import hashlib
 import itertools
 import math
 import threading
@@ -31,7 +30,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from drivers.base import ControllerError, Driver, DriverError, DriverEvent, DriverState, LinkError
+from drivers.base import Driver, DriverEvent, DriverState
 from drivers.journal import Journal, NullJournal
 from drivers.registry import create_driver
 from kinematics.limits import fmt
@@ -132,18 +131,6 @@ class RunResult:
     step: int | None = None
 
 
-def _digest(actions: Sequence[Action]) -> str:
-    h = hashlib.sha256()
-    for action in actions:
-        if isinstance(action, Plan):
-            for seg in action.segments:
-                h.update(repr((tuple(round(v, 12) for v in seg.joints), seg.duration_s)).encode())
-        else:
-            h.update(repr(action).encode())
-        h.update(b"|")
-    return h.hexdigest()
-
-
 def _outside(joint: Any, margin: float, value: float) -> float:
     """How far a value lies inside the margin band or beyond a limit (0 when clear)."""
     return max(0.0, value - (joint.max - margin), (joint.min + margin) - value)
@@ -158,6 +145,12 @@ def _into_margin(joint: Any, margin: float, before: float, value: float) -> bool
         return True
     depth = _outside(joint, margin, value)
     return depth > 1e-12 and depth > _outside(joint, margin, before) + 1e-12
+
+
+def wire_duration_s(duration_s: float) -> float:
+    """A segment's duration as the drivers send it: whole milliseconds, at least 1
+    (PROTOCOL.md MOVE). Speed caps are checked against this, not the planned value."""
+    return max(1, round(duration_s * 1000.0)) / 1000.0
 
 
 class SimHooks:
@@ -203,7 +196,7 @@ class Interlock:
         self._resume.set()
         self._busy = threading.Lock()
         self._tokens = itertools.count(1)
-        self._issued: dict[int, str] = {}
+        self._issued: dict[int, Proposal] = {}  # proposals made here and not yet used
         self._events: list[DriverEvent] = []
         self._events_lock = threading.Lock()
         self.sim = SimHooks(driver) if getattr(driver, "name", "") == "sim" else None
@@ -306,8 +299,9 @@ class Interlock:
         for n, seg in enumerate(segments, 1):
             if len(seg.joints) != arm.n_joints or not all(math.isfinite(v) for v in seg.joints):
                 return [f"segment {n}: malformed joint values"]
-            if not (0.001 <= seg.duration_s <= 60.0):
+            if not (0.0005 <= seg.duration_s <= 60.0):
                 return [f"segment {n}: duration {seg.duration_s:.4f} s outside 0.001..60 s"]
+            wire_s = wire_duration_s(seg.duration_s)  # what the controller will be told
             for joint, value, before in zip(arm.joints, seg.joints, previous):
                 margin = arm.margin(joint)
                 if _into_margin(joint, margin, before, value):
@@ -315,13 +309,13 @@ class Interlock:
                         f"segment {n}: {joint.name} at {fmt(joint, value)} is outside its soft "
                         f"limits {fmt(joint, joint.min)}..{fmt(joint, joint.max)} less the "
                         f"margin {joint.to_display(margin):g} {joint.unit}")
-                speed = abs(value - before) / seg.duration_s
+                speed = abs(value - before) / wire_s
                 if speed > joint.max_speed * SPEED_TOL:
                     reasons.append(
                         f"segment {n}: {joint.name} speed {joint.to_display(speed):.1f} "
                         f"{joint.unit}/s exceeds its cap {joint.to_display(joint.max_speed):g} "
                         f"{joint.unit}/s")
-            tool_speed = self._tool_speed(previous, seg)
+            tool_speed = self._tool_speed(previous, seg.joints, wire_s)
             if tool_speed > arm.tool_speed_max_mm_s * SPEED_TOL:
                 reasons.append(f"segment {n}: tool speed {tool_speed:.1f} mm/s exceeds the cap "
                                f"{arm.tool_speed_max_mm_s:g} mm/s")
@@ -330,16 +324,17 @@ class Interlock:
             previous = seg.joints
         return reasons
 
-    def _tool_speed(self, start: Sequence[float], seg: Segment) -> float:
+    def _tool_speed(self, start: Sequence[float], end: Sequence[float], duration_s: float,
+                    ) -> float:
         """Peak tool speed over a segment, bounded by sub-sampled chords (mm/s)."""
         arm = self._arm
         points = []
         for k in range(TOOL_SPEED_SAMPLES + 1):
             f = k / TOOL_SPEED_SAMPLES
-            values = tuple(a + (b - a) * f for a, b in zip(start, seg.joints))
+            values = tuple(a + (b - a) * f for a, b in zip(start, end))
             pose = tool_from_joints(arm, values)
             points.append(pose[:3] if arm.is_scara else pose[:2])
-        dt = seg.duration_s / TOOL_SPEED_SAMPLES
+        dt = duration_s / TOOL_SPEED_SAMPLES
         return max(math.dist(p, q) / dt for p, q in zip(points, points[1:]))
 
     def check_actions(self, actions: Sequence[Action], start_joints: Sequence[float] | None = None,
@@ -352,7 +347,15 @@ class Interlock:
             if isinstance(action, Plan):
                 reasons += [prefix + p for p in action.problems]
                 if action.problems:
+                    start = None  # where the arm would be is unknown after a refused step
                     continue
+                if start is not None:
+                    moved = self._moved_since(action.summary.start_joints, start)
+                    if moved:
+                        reasons.append(f"{prefix}the plan starts elsewhere than the arm will be: "
+                                       f"{moved}")
+                        start = None
+                        continue
                 begin = start if start is not None else action.summary.start_joints
                 reasons += [prefix + r for r in self._segment_reasons(begin, action.segments)]
                 start = action.segments[-1].joints if action.segments else begin
@@ -384,10 +387,9 @@ class Interlock:
                                f"{JOINT_JOG_MAX_DEG:g} {joint.unit}")
         reasons += self.check_actions(actions, start).reasons
         token = next(self._tokens)
-        actions = tuple(actions)
-        self._issued[token] = _digest(actions)
-        proposal = Proposal(request, actions, Verdict.of(reasons), start, self._clock(), token,
-                            jog=jog_mm is not None or jog_joint is not None)
+        proposal = Proposal(request, tuple(actions), Verdict.of(reasons), start, self._clock(),
+                            token, jog=jog_mm is not None or jog_joint is not None)
+        self._issued[token] = proposal
         self._journal.record("request", token=token, request=request, ok=proposal.ok,
                              reasons=list(proposal.verdict.reasons),
                              segments=sum(len(p.segments) for p in proposal.plans),
@@ -451,10 +453,11 @@ class Interlock:
     def execute(self, proposal: Proposal, confirmer: Confirmer) -> RunResult:
         """Confirm, then run a proposal; blocks until it finished or halted."""
         token = proposal.token
-        if self._issued.get(token) != _digest(proposal.actions):
+        if self._issued.get(token) is not proposal:
             return self._end(token, RunResult(False, "refused",
-                                              "refused: this plan was not made by the interlock "
-                                              "or was changed after it was made"))
+                                              "refused: this plan was not made by the interlock, "
+                                              "was changed after it was made, or was used already"))
+        del self._issued[token]  # a proposal is offered once, whatever the outcome
         if not proposal.ok:
             return self._end(token, RunResult(False, "refused",
                                               "refused: " + "; ".join(proposal.verdict.reasons)))
@@ -469,6 +472,7 @@ class Interlock:
         reasons = self._state_reasons(self.state())
         if reasons:
             return RunResult(False, "refused", "refused: " + "; ".join(reasons))
+        self._stop.clear()  # from here on, a stop (even during the question) wins
         self._journal.record("confirm-asked", token=proposal.token)
         answer = bool(confirmer.confirm(proposal))
         waited = self._clock() - proposal.created_s
@@ -476,6 +480,9 @@ class Interlock:
                              after_s=round(waited, 3))
         if not answer:
             return RunResult(False, "cancelled", "cancelled: nothing moved")
+        if self._stop.is_set():
+            return RunResult(False, "stopped", "stopped: stop was pressed while the question was "
+                             "open; nothing moved")
         limit = self.approval_ttl_s(proposal)
         if waited > limit:
             return RunResult(False, "expired", f"expired: confirmed {waited:.1f} s after the plan "
@@ -487,8 +494,6 @@ class Interlock:
         moved = self._moved_since(proposal.start_joints, state.joints)
         if moved:
             return RunResult(False, "expired", f"expired: {moved}; plan again")
-        self._issued.pop(proposal.token, None)  # an approval is used once
-        self._stop.clear()
         return self._run(proposal)
 
     def _halt_reason(self) -> str | None:
@@ -533,8 +538,8 @@ class Interlock:
                     self.__driver.set_output(action.channel, action.on)
                     self._journal.record("output", token=proposal.token, step=index,
                                          channel=action.channel, on=action.on)
-            except (ControllerError, LinkError, DriverError) as exc:
-                self.__driver.stop()
+            except Exception as exc:  # noqa: BLE001 - any driver failure halts, in one line
+                self._safe_stop()
                 return RunResult(False, "halted", f"halted{where}: {exc}", sent, step)
         return RunResult(True, "done", "done", sent, None)
 
@@ -579,15 +584,20 @@ class Interlock:
         if not self._busy.acquire(blocking=False):
             return self._end(token, RunResult(False, "refused", "refused: another plan is running"))
         try:
+            self._stop.clear()
             answer = bool(confirmer.confirm(proposal))
             self._journal.record("confirmation", token=token, yes=answer)
             if not answer:
                 return self._end(token, RunResult(False, "cancelled", "cancelled: nothing moved"))
+            if self._stop.is_set():
+                return self._end(token, RunResult(False, "stopped", "stopped: stop was pressed "
+                                                  "while the question was open; nothing moved"))
             if self._clock() - proposal.created_s > self.APPROVAL_TTL_S:
                 return self._end(token, RunResult(False, "expired", "expired: confirm again"))
             self.__driver.home()
             return self._end(token, RunResult(True, "done", "homed"))
-        except DriverError as exc:
+        except Exception as exc:  # noqa: BLE001 - any driver failure halts, in one line
+            self._safe_stop()
             return self._end(token, RunResult(False, "halted", f"halted: {exc}"))
         finally:
             self._busy.release()
@@ -598,9 +608,12 @@ class Interlock:
         self._stop.set()
         self._resume.set()
         self._journal.record("stop")
+        self._safe_stop()
+
+    def _safe_stop(self) -> None:
         try:
             self.__driver.stop()
-        except DriverError:
+        except Exception:  # noqa: BLE001 - a dead link cannot move the arm either
             pass
 
     def pause(self) -> None:

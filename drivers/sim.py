@@ -64,6 +64,7 @@ class SimDriver(Driver):
         self._events: list[DriverEvent] = []
         self._stall: tuple[int, float] | None = None  # (axis, armed at)
         self._numbers = 0
+        self._stops = 0  # counts stop() calls: a queue() waiting for a slot gives up on one
         self.commands: list[tuple] = []
         self.refused: list[tuple[tuple, str]] = []
 
@@ -184,8 +185,12 @@ class SimDriver(Driver):
         ms = max(1, round(segment.duration_s * 1000.0))
         command = ("MOVE", ms, counts)
         deadline = time.monotonic() + max(0.0, timeout_s)
+        with self._lock:
+            stops_at_entry = self._stops
         while True:
             with self._lock:
+                if self._stops != stops_at_entry:  # a stop came while waiting for a slot
+                    raise self._refuse(command, "stopped while waiting for a queue slot")
                 self._advance()
                 self._check_latch(command)
                 self._require_motion_allowed(self._state_locked())
@@ -207,6 +212,7 @@ class SimDriver(Driver):
 
     def stop(self) -> None:
         with self._lock:
+            self._stops += 1
             self._advance()
             self._halt()
             self.commands.append(("STOP",))

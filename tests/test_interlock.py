@@ -377,3 +377,67 @@ def test_random_sequences_on_the_emulator(tmp_path_factory, seq):
     _check_journal_and_moves(path, move_counts)
     if not said_yes:
         assert move_counts == []
+
+
+# -- findings of the safety review, each pinned by a test --------------------------------
+def test_a_stop_during_the_question_wins_over_a_later_yes(gate):
+    stop_then_yes = Answer(True, before=gate.stop)
+    result = gate.execute(gate.propose_move((150.0, 200.0)), stop_then_yes)
+    assert result.outcome == "stopped" and moves(gate) == []
+    home = gate.home(Answer(True, before=gate.stop))
+    assert home.outcome == "stopped"
+    assert not [c for c in gate.sim.commands if c[0] == "HOME"]
+
+
+def test_a_proposal_with_a_forged_verdict_is_refused(gate):
+    from drivers.interlock import Verdict
+    refused = gate.propose_jog("x", 60.0)  # over the jog cap
+    assert not refused.ok
+    forged = dataclasses.replace(refused, verdict=Verdict(True, ()))
+    assert gate.execute(forged, YES()).outcome == "refused"
+    assert moves(gate) == []
+
+
+def test_a_plan_made_from_another_start_is_refused(gate):
+    from kinematics.planner import plan_move
+    here = gate.state().joints
+    elsewhere = (here[0] + math.radians(0.5), here[1] - math.radians(0.5))
+    plan = plan_move(ARM, elsewhere, (150.0, 200.0))
+    assert plan.ok
+    proposal = gate.propose_actions([plan], "a plan from elsewhere")
+    assert not proposal.ok
+    assert any("starts elsewhere" in r for r in proposal.verdict.reasons)
+
+
+def test_speed_caps_are_checked_on_the_durations_the_controller_is_sent(gate):
+    # A 1.49 ms segment goes out as MOVE 1 (whole ms, PROTOCOL.md). Turning the elbow by
+    # 0.1 deg moves the tool 0.279 mm (arc = angle x 160 mm link): 187 mm/s over the
+    # planned 1.49 ms, within the 250 mm/s cap, but 279 mm/s over the 1 ms really run.
+    from kinematics.model import Segment
+    from kinematics.planner import plan_joint_move
+    here = gate.state().joints
+    plan = plan_joint_move(ARM, here, (here[0], here[1] - math.radians(0.1)))
+    step = Segment((here[0], here[1] - math.radians(0.1)), 0.00149)
+    tool_mm = math.radians(0.1) * 160.0  # the elbow turns the 160 mm link: 0.279 mm
+    assert tool_mm / 0.00149 < 250.0 * 1.01 < tool_mm / 0.001
+    forged = dataclasses.replace(plan, segments=(step,))
+    proposal = gate.propose_actions([forged], "one short segment")
+    assert any("tool speed" in r for r in proposal.verdict.reasons)
+
+
+def test_the_simulated_arm_sends_nothing_after_a_stop_while_waiting_for_a_slot():
+    g = Interlock.open(ARM, "sim", journal=False, time_scale=1.0, queue_depth=2)
+    try:
+        g.enable()
+        proposal = g.propose_move((-100.0, 250.0), path="line")
+        assert proposal.ok and len(proposal.plans[0].segments) > 4
+        timer = threading.Timer(0.3, g.stop)
+        timer.start()
+        result = g.execute(proposal, YES())
+        timer.join()
+        assert result.outcome in ("stopped", "halted")
+        commands = [c[0] for c in g.sim.commands if c[0] in ("MOVE", "STOP")]
+        assert "STOP" in commands
+        assert "MOVE" not in commands[commands.index("STOP"):]
+    finally:
+        g.close()
