@@ -46,7 +46,7 @@ def load_arm(spec: str | Path | None) -> Arm:
     except OSError as exc:
         raise ArmSpecError(str(spec), "file", exc.strerror or str(exc)) from None
     try:
-        text = raw.decode("utf-8")
+        text = raw.decode("utf-8-sig")  # a leading byte-order mark (some editors) is dropped
     except UnicodeDecodeError:
         raise ArmSpecError(str(spec), "file", "not UTF-8 text") from None
     return _arm_from_text(text, str(spec))

@@ -42,7 +42,8 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from console.safe_files import FileError, FileLock, read_text, toml_text, write_atomic
+from kinematics.armspec import number_problem
+from console.safe_files import FileError, FileLock, read_text, real_path, toml_text, write_atomic
 from kinematics.frames import FrameError, UserFrame, base_from_frame, frame_from_base, \
     frame_from_two_points
 from kinematics.model import Arm, Branch
@@ -186,7 +187,7 @@ class PointBook:
         if target is None:
             raise PointError("the book has no file yet: give a path")
         text = self.to_text()
-        if self._lock is not None and target == self.path:
+        if self._lock is not None and real_path(target) == real_path(self.path):
             write_atomic(target, text)
         else:
             with FileLock(target):
@@ -416,10 +417,9 @@ class _Reader:
         return self.as_number(data[key], f"{where}: {key}")
 
     def as_number(self, value: Any, key: str) -> float:
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise self.fail(key, f"not a number ({value!r})")
-        if not math.isfinite(value):
-            raise self.fail(key, f"not a finite number ({value})")
+        problem = number_problem(value)
+        if problem:
+            raise self.fail(key, problem)
         return float(value)
 
     def numbers(self, data: Mapping[str, Any], key: str, where: str, count: int,

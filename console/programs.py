@@ -41,7 +41,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Union
 
-from console.safe_files import FileError, FileLock, read_text, toml_text, write_atomic
+from kinematics.armspec import number_problem
+from console.safe_files import FileError, FileLock, read_text, real_path, toml_text, write_atomic
 
 FILE_KIND = "benchjog-program"
 FILE_VERSION = 1
@@ -207,7 +208,7 @@ class Program:
         target = Path(path) if path is not None else self.path
         if target is None:
             raise ProgramError("the program has no file yet: give a path")
-        if lock is not None and lock.held and lock.path == target:
+        if lock is not None and lock.held and lock.path == real_path(target):
             write_atomic(target, self.to_text())
         else:
             with FileLock(target):
@@ -245,10 +246,9 @@ def _number(source: str, where: str, data: Mapping[str, Any], key: str,
             raise FileError(source, f"{where}: {key}", "missing")
         return default
     value = data[key]
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise FileError(source, f"{where}: {key}", f"not a number ({value!r})")
-    if not math.isfinite(value):
-        raise FileError(source, f"{where}: {key}", f"not a finite number ({value})")
+    problem = number_problem(value)
+    if problem:
+        raise FileError(source, f"{where}: {key}", problem)
     return float(value)
 
 

@@ -41,8 +41,14 @@ class FileLocked(FileError):
 
 # --- atomic save -------------------------------------------------------------------
 
+def real_path(path: str | Path) -> Path:
+    """The file a path names, through any symbolic links: saves, backups and locks go
+    to the real file, so a link is never replaced by a copy and one file has one lock."""
+    return Path(os.path.realpath(path))
+
+
 def backup_path(path: str | Path) -> Path:
-    path = Path(path)
+    path = real_path(path)
     return path.with_name(path.name + ".bak")
 
 
@@ -71,8 +77,8 @@ def write_atomic(path: str | Path, text: str, *, backup: bool = True) -> None:
     Raises:
         FileError: the directory is not writable or the disk is full, in one line.
     """
-    path = Path(path)
-    directory = path.parent if str(path.parent) else Path(".")
+    path = real_path(path)
+    directory = path.parent
     tmp_name = None
     try:
         fd, tmp_name = tempfile.mkstemp(dir=directory, prefix=f".{path.name}.", suffix=".tmp")
@@ -88,6 +94,9 @@ def write_atomic(path: str | Path, text: str, *, backup: bool = True) -> None:
         _fsync_dir(directory)
     except OSError as exc:
         raise FileError(str(path), "", f"cannot save: {exc.strerror or exc}") from None
+    except UnicodeError:
+        raise FileError(str(path), "", "cannot save: the text holds characters that are not "
+                        "valid Unicode") from None
     finally:
         if tmp_name is not None:
             try:
@@ -137,7 +146,7 @@ def read_text(path: str | Path) -> str:
     except OSError as exc:
         raise FileError(str(path), "", f"cannot read: {exc.strerror or exc}") from None
     try:
-        return raw.decode("utf-8")
+        return raw.decode("utf-8-sig")  # a leading byte-order mark (some editors) is dropped
     except UnicodeDecodeError:
         raise FileError(str(path), "", "not UTF-8 text") from None
 
@@ -145,7 +154,7 @@ def read_text(path: str | Path) -> str:
 # --- lock ----------------------------------------------------------------------------
 
 def lock_path(path: str | Path) -> Path:
-    path = Path(path)
+    path = real_path(path)
     return path.with_name(path.name + ".lock")
 
 
@@ -162,7 +171,7 @@ class FileLock:
     """
 
     def __init__(self, path: str | Path):
-        self.path = Path(path)
+        self.path = real_path(path)
         self.lock_file = lock_path(self.path)
         self._fd: int | None = None
 

@@ -15,7 +15,27 @@ from kinematics.model import GEOMETRIES, PLANAR, PRISMATIC, REVOLUTE, SCARA, Arm
 
 JOINT_KEYS = ("name", "type", "a", "alpha", "d", "offset", "min", "max", "max_speed",
               "counts_per_unit", "zero", "direction")
+REVOLUTE_LIMIT_DEG = 720.0   # two turns either way: beyond that a limit is a typo
+PRISMATIC_LIMIT_MM = 10000.0
+MIN_SPEED = 0.01  # deg/s or mm/s (and per s^2): slower is a typo, and would plan for ever
 ACCEL_PER_SPEED = 4.0  # default max_accel = 4 x max_speed: full speed in 0.25 s (common practice)
+
+
+def number_problem(value: Any) -> str | None:
+    """Why a parsed TOML value is not a usable finite number, or None when it is.
+
+    >>> [number_problem(v) for v in (1, 2.5, True, "3", float("nan"), 10 ** 400)]
+    [None, None, 'not a number (True)', "not a number ('3')", 'not a finite number (nan)', 'not a finite number (too large)']
+    """
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return f"not a number ({value!r})"
+    try:
+        as_float = float(value)
+    except OverflowError:  # a TOML integer of hundreds of digits
+        return "not a finite number (too large)"
+    if not math.isfinite(as_float):
+        return f"not a finite number ({value})"
+    return None
 
 
 class ArmSpecError(ValueError):
@@ -49,12 +69,10 @@ class _Reader:
                 raise self.fail(full, "missing")
             return default
         value = data[key]
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise self.fail(full, f"not a number ({value!r})")
-        value = float(value)
-        if not math.isfinite(value):
-            raise self.fail(full, f"not a finite number ({value})")
-        return value
+        problem = number_problem(value)
+        if problem:
+            raise self.fail(full, problem)
+        return float(value)
 
     def text(self, data: Mapping[str, Any], key: str, where: str, default: str | None = None) -> str:
         full = f"{where}.{key}" if where else key
@@ -80,11 +98,19 @@ def _joint(r: _Reader, data: Any, index: int) -> Joint:
     num = {k: r.number(data, k, where) for k in JOINT_KEYS if k not in ("name", "type")}
     if num["min"] >= num["max"]:
         raise r.fail(f"{where}.min", f"must be below max ({num['min']:g} >= {num['max']:g})")
-    if num["max_speed"] <= 0:
-        raise r.fail(f"{where}.max_speed", f"must be > 0 ({num['max_speed']:g})")
+    bound = REVOLUTE_LIMIT_DEG if jtype == REVOLUTE else PRISMATIC_LIMIT_MM
+    for key in ("min", "max"):
+        if abs(num[key]) > bound:
+            raise r.fail(f"{where}.{key}", f"must lie within +/-{bound:g} "
+                         f"{'deg' if jtype == REVOLUTE else 'mm'} ({num[key]:g})")
+    if not num["min"] <= num["zero"] <= num["max"]:
+        raise r.fail(f"{where}.zero", f"the home pose (count 0) must lie within min..max "
+                     f"({num['zero']:g} not in {num['min']:g}..{num['max']:g})")
+    if num["max_speed"] < MIN_SPEED:
+        raise r.fail(f"{where}.max_speed", f"must be at least {MIN_SPEED:g} ({num['max_speed']:g})")
     accel = r.number(data, "max_accel", where, default=ACCEL_PER_SPEED * num["max_speed"])
-    if accel <= 0:
-        raise r.fail(f"{where}.max_accel", f"must be > 0 ({accel:g})")
+    if accel < MIN_SPEED:
+        raise r.fail(f"{where}.max_accel", f"must be at least {MIN_SPEED:g} ({accel:g})")
     if num["counts_per_unit"] <= 0:
         raise r.fail(f"{where}.counts_per_unit", f"must be > 0 ({num['counts_per_unit']:g})")
     if num["direction"] not in (1.0, -1.0):
@@ -144,7 +170,7 @@ def _check_shape(r: _Reader, geometry: str, joints: tuple[Joint, ...]) -> None:
         alpha = joints[i].alpha_rad
         if not (near(alpha, want) or (want == math.pi and near(alpha, -math.pi))):
             raise r.fail(f"joints[{i}].alpha", f"must be {math.degrees(want):g} for a "
-                         f"{geometry} arm ({math.degrees(alpha):g})")
+                         f"{geometry} arm ({math.degrees(alpha):.9g})")
     if geometry == SCARA:
         for i in (2, 3):
             if joints[i].a_mm != 0:
