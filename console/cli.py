@@ -14,6 +14,7 @@ from collections.abc import Sequence
 from importlib import metadata
 
 from console import exit_codes
+from console.cli_common import baud_rate
 from console.errors import known_error_code
 
 COMMAND_MODULES = (
@@ -45,7 +46,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"benchjog {version()}")
     parser.add_argument("--arm", metavar="FILE", help="arm file (TOML) or built-in arm name")
     parser.add_argument("--port", metavar="URL", help="serial port or pyserial URL of the controller")
-    parser.add_argument("--baud", type=int, default=115200, help="baud rate (default 115200)")
+    parser.add_argument("--baud", type=baud_rate, default=115200, help="baud rate (default 115200)")
     parser.add_argument("--journal", metavar="FILE", default=None,
                         help="append the motion journal here (default: a new file in "
                         "~/.local/share/benchjog/journal)")

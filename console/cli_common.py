@@ -17,10 +17,21 @@ def add_arm_option(parser: argparse.ArgumentParser) -> None:
                         help="arm file (TOML) or built-in arm name (default: planar-bench)")
 
 
+def baud_rate(text: str) -> int:
+    """argparse type for ``--baud``: a positive whole number."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a whole number ({text!r})") from None
+    if value <= 0:
+        raise argparse.ArgumentTypeError(f"must be > 0 ({value})")
+    return value
+
+
 def add_port_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--port", metavar="URL", default=argparse.SUPPRESS,
                         help="serial port or pyserial URL (default: the simulated arm)")
-    parser.add_argument("--baud", type=int, metavar="N", default=argparse.SUPPRESS,
+    parser.add_argument("--baud", type=baud_rate, metavar="N", default=argparse.SUPPRESS,
                         help="baud rate (default 115200)")
 
 
@@ -61,6 +72,8 @@ def open_gate(arm, args: argparse.Namespace):
 
     journal = getattr(args, "journal", None) or None
     port = getattr(args, "port", None)
+    if port is not None and not port.strip():
+        raise UsageError("--port: empty (leave it out for the simulated arm)")
     if not port:
         return Interlock.open(arm, "sim", journal=journal)
     options = {"port": port, "baud": getattr(args, "baud", 115200)}

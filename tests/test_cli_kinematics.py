@@ -106,6 +106,9 @@ def test_no_usable_solution_exits_1(capsys):
     (["fk", "1"], "a planar arm takes 2 joint values"),
     (["fk", "1", "2", "3"], "a planar arm takes 2 joint values"),
     (["solve", "1", "2", "--arm", "/no/such/arm.toml"], "/no/such/arm.toml: file:"),
+    (["move", "100", "200", "--port", "loop://", "--baud", "0"], "--baud: must be > 0"),
+    (["move", "100", "200", "--port", " "], "--port: empty"),
+    (["check", "/no/such/program.toml"], "cannot read"),
 ])
 def test_bad_input_is_one_line_and_exit_2(capsys, argv, needle):
     try:
