@@ -132,7 +132,7 @@ def joints_from_tool(arm: Arm, target: Sequence[float]) -> IKResult:
     j1, j2 = arm.joints[0], arm.joints[1]
     raw = planar.thetas_from_tool_xy(j1.a_mm, j2.a_mm, target[0], target[1])
     if not raw:
-        r = planar.radius_mm(target[0], target[1])
+        r = math.hypot(target[0], target[1])  # words only: hypot does not overflow
         where = (f"{_mm(r - arm.max_reach_mm)} beyond the max reach {arm.max_reach_mm:g} mm"
                  if r > arm.max_reach_mm else
                  f"{_mm(arm.min_reach_mm - r)} inside the min reach {arm.min_reach_mm:g} mm")
