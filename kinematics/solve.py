@@ -118,8 +118,13 @@ def pose_problems(arm: Arm, values: Sequence[float]) -> list[str]:
 
 
 def _mm(distance: float) -> str:
-    """A distance for people; tiny ones keep their digits ('1e-09 mm', not '0.000 mm')."""
-    return f"{distance:.3f} mm" if distance >= 0.001 else f"{distance:.1e} mm"
+    """A distance for people; tiny and huge ones in powers of ten ('1.0e-09 mm', not
+    '0.000 mm'; '1.0e+200 mm', not two hundred digits).
+
+    >>> [_mm(d) for d in (12.3456, 1e-9, 1e200)]
+    ['12.346 mm', '1.0e-09 mm', '1.0e+200 mm']
+    """
+    return f"{distance:.3f} mm" if 0.001 <= distance < 1e7 else f"{distance:.1e} mm"
 
 
 def joints_from_tool(arm: Arm, target: Sequence[float]) -> IKResult:
