@@ -113,7 +113,7 @@ class BenchjogApp(App):
         Binding("h", "home", "home", tooltip="Run the controller's homing cycle (asks first)",
                 id="app.home"),
         Binding("r", "reset", "reset", tooltip="Clear a latched e-stop (once released), fault or "
-                "lost link", id="app.reset"),
+                "lost link; connect when not connected", id="app.reset"),
         Binding("t", "teach", "teach", tooltip="Teach points and edit programs", id="app.teach"),
         Binding("ctrl+q", "quit", "quit", tooltip="Stop any motion and quit", priority=True,
                 id="app.quit"),
@@ -499,7 +499,9 @@ class BenchjogApp(App):
                   and self.busy is None)
             return True if ok else None
         if action == "reset":
-            return True if self.latched() else None
+            s = self.state
+            not_connected = s is not None and not s.is_open
+            return True if (self.latched() or not_connected) else None
         if action == "teach":
             return True if (self.has_teach() and self.busy is None) else None
         return True
@@ -519,7 +521,7 @@ def run_console(args) -> int:
     from console.cli_common import open_gate
 
     arm = load_arm(args.arm)
-    gate = open_gate(arm, args)
+    gate = open_gate(arm, args, require_link=False)  # not connected: shown, r retries
     try:
         make_app(arm, gate, points_path=getattr(args, "points", None),
                  program_path=getattr(args, "program", None)).run()

@@ -65,9 +65,10 @@ def add_journal_option(parser: argparse.ArgumentParser) -> None:
                         help="serial: write every protocol line sent and received, timestamped")
 
 
-def open_gate(arm, args: argparse.Namespace):
+def open_gate(arm, args: argparse.Namespace, *, require_link: bool = True):
     """The interlock on the simulated arm without ``--port``, on the serial driver with
-    one (``--baud``, ``--trace``); the journal from ``--journal`` or the default file."""
+    one (``--baud``, ``--trace``); the journal from ``--journal`` or the default file.
+    ``require_link=False`` (the console) opens even when the port cannot be reached."""
     from drivers.interlock import Interlock  # the gate, and only the gate, owns a driver
 
     journal = getattr(args, "journal", None) or None
@@ -79,7 +80,7 @@ def open_gate(arm, args: argparse.Namespace):
     options = {"port": port, "baud": getattr(args, "baud", 115200)}
     if getattr(args, "trace", None):
         options["trace"] = args.trace
-    return Interlock.open(arm, "serial", journal=journal, **options)
+    return Interlock.open(arm, "serial", journal=journal, require_link=require_link, **options)
 
 
 def exit_code_of(result) -> int:

@@ -30,7 +30,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from drivers.base import Driver, DriverEvent, DriverState
+from drivers.base import Driver, DriverEvent, DriverState, LinkError
 from drivers.journal import Journal, NullJournal
 from drivers.registry import create_driver
 from kinematics.limits import fmt
@@ -200,16 +200,21 @@ class Interlock:
         self._events: list[DriverEvent] = []
         self._events_lock = threading.Lock()
         self.sim = SimHooks(driver) if getattr(driver, "name", "") == "sim" else None
+        self.link_error: str | None = None  # why the driver could not be opened, if so
 
     # -- life cycle --------------------------------------------------------------------
     @classmethod
     def open(cls, arm: Arm, driver: str = "sim", *, journal: Any = None,
-             clock: Callable[[], float] = time.monotonic, **driver_options: Any) -> "Interlock":
+             clock: Callable[[], float] = time.monotonic, require_link: bool = True,
+             **driver_options: Any) -> "Interlock":
         """Build the driver by registry name, open it, and wrap it.
 
         Args:
             journal: None for a new journal file in the user's data directory, a path
                 (file) to append to, or False for none.
+            require_link: False lets a console start while the controller cannot be
+                reached: the gate then reports "not connected" (``link_error`` says why)
+                and :meth:`reset` tries to connect again.
         """
         if journal is None:
             journal_obj: Journal | NullJournal = Journal.for_run()
@@ -220,14 +225,23 @@ class Interlock:
         else:
             journal_obj = Journal(Path(journal))
         instance = create_driver(driver, arm, **driver_options)
+        link_error = None
         try:
             instance.open()
+        except LinkError as exc:
+            if require_link:
+                instance.close()
+                journal_obj.close()
+                raise
+            link_error = str(exc)
         except BaseException:
             instance.close()
             journal_obj.close()
             raise
         gate = cls(arm, instance, journal=journal_obj, clock=clock)
-        journal_obj.record("open", arm=arm.name, driver=driver, link=instance.state().link)
+        gate.link_error = link_error
+        journal_obj.record("open", arm=arm.name, driver=driver, link=instance.state().link,
+                           error=link_error)
         return gate
 
     @property
@@ -633,7 +647,14 @@ class Interlock:
         self.__driver.disable()
 
     def reset(self) -> None:
+        """Clear a latched e-stop (once released) or fault; reconnect a lost link; and
+        connect a driver that could not be opened at start."""
         self._journal.record("reset")
+        if not self.__driver.state().is_open:
+            self.__driver.open()
+            self.link_error = None
+            self._journal.record("connected", link=self.__driver.state().link)
+            return
         self.__driver.reset()
 
     def set_output(self, channel: int, on: bool) -> None:

@@ -42,14 +42,8 @@ def planar():
 
 @pytest.fixture
 def scara():
-    from dataclasses import replace
-
     from console.armfile import builtin_arm
-    arm = builtin_arm("scara-bench")
-    # the demo SCARA's home puts the quill on its min (0 mm), inside the interlock's
-    # margin, so every motion from home is refused; give the quill room above home
-    quill = replace(arm.joints[2], min=-10.0)
-    arm = replace(arm, joints=arm.joints[:2] + (quill,) + arm.joints[3:])
+    arm = builtin_arm("scara-bench")  # homes with the quill at its top stop (0 mm)
     gate = Interlock.open(arm, "sim", journal=False, time_scale=20.0)
     yield arm, gate
     gate.close()
@@ -463,3 +457,27 @@ def test_every_key_has_a_label_tooltip_and_id():
         assert binding.description and binding.tooltip and binding.id, binding
         assert binding.id not in seen
         seen.add(binding.id)
+
+
+async def test_not_connected_at_start_then_connect_with_r(tmp_path):
+    from console.armfile import builtin_arm
+    from drivers.emulator import Emulator
+    arm = builtin_arm("planar-bench")
+    emu = Emulator(arm, {"home_s": 0.02})
+    pty = emu.start()
+    port = tmp_path / "ttyBENCH"          # nothing plugged in yet
+    gate = Interlock.open(arm, "serial", journal=False, port=str(port), require_link=False)
+    try:
+        app = make_app(arm, gate)
+        async with app.run_test(size=SIZE) as pilot:
+            banner = app.jog_screen.query_one(Banner)
+            assert await until(pilot, lambda: "NOT CONNECTED" in banner.text)
+            assert "cannot open" in banner.text and "press r to connect" in banner.text
+            assert app.check_action("reset", ()) is True
+            port.symlink_to(pty)              # the cable goes in
+            await pilot.press("r")
+            assert await until(pilot, lambda: app.state is not None and app.state.is_open)
+            assert await until(pilot, lambda: "NOT CONNECTED" not in banner.text)
+    finally:
+        gate.close()
+        emu.stop()

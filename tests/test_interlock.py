@@ -17,6 +17,7 @@ from hypothesis import strategies as st
 from console.armfile import builtin_arm
 from drivers.calibration import joints_from_counts
 from drivers.emulator import Emulator
+from drivers.base import LinkError
 from drivers.interlock import Confirmer, Dwell, Interlock, SetOutput
 from drivers.journal import Journal, read_journal
 from kinematics.model import Branch
@@ -441,3 +442,30 @@ def test_the_simulated_arm_sends_nothing_after_a_stop_while_waiting_for_a_slot()
         assert "MOVE" not in commands[commands.index("STOP"):]
     finally:
         g.close()
+
+
+def test_a_console_gate_opens_unconnected_and_connects_on_reset(tmp_path):
+    emu = Emulator(ARM, {"home_s": 0.02})
+    pty = emu.start()
+    port = tmp_path / "ttyBENCH"  # the cable is not plugged in yet: no such device
+    try:
+        with pytest.raises(LinkError):
+            Interlock.open(ARM, "serial", journal=False, port=str(port))
+        g = Interlock.open(ARM, "serial", journal=False, port=str(port), require_link=False)
+        try:
+            assert not g.state().is_open and "cannot open" in g.link_error
+            proposal = g.propose_move((150.0, 200.0))
+            assert any("not connected" in r for r in proposal.verdict.reasons)
+            assert g.execute(proposal, YES()).outcome == "refused"
+            with pytest.raises(LinkError):
+                g.reset()            # still unplugged
+            port.symlink_to(pty)     # plugged in
+            g.reset()
+            assert g.state().is_open and g.link_error is None
+            g.enable()
+            assert g.home(YES()).completed
+            assert g.execute(g.propose_move((150.0, 200.0)), YES()).completed
+        finally:
+            g.close()
+    finally:
+        emu.stop()

@@ -124,7 +124,9 @@ class JogScreen(Screen):
 
     def _refresh_view(self) -> None:
         app = self.app
-        self.query_one(Banner).show(banner_lines(app.state, app.state_error, app.reach_warning()))
+        not_open = app.state is not None and not app.state.is_open
+        error = app.state_error or (app.interlock.link_error if not_open else None)
+        self.query_one(Banner).show(banner_lines(app.state, error, app.reach_warning()))
         polled = None if app.polled_at is None else max(0.0, app._clock() - app.polled_at)
         self.query_one(LinkStatus).show(link_words(app.state, app.driver_name, app.state_error,
                                                    polled) + "\n" + self.motion_words())

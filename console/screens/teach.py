@@ -285,7 +285,7 @@ class TeachScreen(Screen):
         if self.read_only:
             files += "   (read only)"
         if self.busy:
-            files += f"   MOVING: {self.busy}" + (" (paused)" if self.paused else "")
+            files += f"   in progress: {self.busy}" + (" (paused)" if self.paused else "")
         self.query_one("#teach-files", Static).update(files)
         table = self.query_one("#points-table", DataTable)
         row = table.cursor_row

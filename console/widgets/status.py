@@ -24,7 +24,7 @@ def banner_lines(state, error: str | None = None, reach_warning: str | None = No
     if error or state is None or not state.is_open:
         why = error or ("no state read yet" if state is None else "the driver is closed")
         out.append(("estop", f"NOT CONNECTED: {why}. Check the cable and the port, then "
-                             "restart benchjog."))
+                             "press r to connect."))
         return out
     latched = state.latched or ""
     mode = getattr(state.mode, "value", str(state.mode))
