@@ -34,7 +34,7 @@ def fk_xy(a1, a2, t1, t2):
 
 def planar_arm(a1, a2, lo=-360.0, hi=360.0, warn_deg=5.0):
     joint = dict(type="revolute", alpha=0.0, d=0.0, offset=0.0, min=lo, max=hi, max_speed=90.0,
-                 counts_per_unit=10.0, zero=0.0, direction=1)
+                 counts_per_unit=10.0, zero=min(max(0.0, lo), hi), direction=1)
     return arm_from_mapping({"arm": {"name": "t", "geometry": "planar",
                                      "singularity_warn_deg": warn_deg},
                              "joints": [dict(joint, name="shoulder", a=a1),

@@ -44,8 +44,9 @@ def fk_xy(a1: float, a2: float, t1: float, t2: float) -> tuple[float, float]:
 
 def planar_arm(a1: float, a2: float, lo_deg: float = -360.0, hi_deg: float = 360.0,
                ) -> "solve.Arm":
+    home = min(max(0.0, lo_deg), hi_deg)  # the arm file wants the home pose within limits
     joint = dict(type="revolute", alpha=0.0, d=0.0, offset=0.0, min=lo_deg, max=hi_deg,
-                 max_speed=90.0, counts_per_unit=10.0, zero=0.0, direction=1)
+                 max_speed=90.0, counts_per_unit=10.0, zero=home, direction=1)
     return arm_from_mapping({"arm": {"name": "random", "geometry": "planar"},
                              "joints": [dict(joint, name="shoulder", a=a1),
                                         dict(joint, name="elbow", a=a2)]}, "random.toml")
