@@ -182,7 +182,8 @@ def _segment_hits_box(ax, ay, bx, by, zone):
                  (-dy, ay - zone.y_min), (dy, zone.y_max - ay)):
         parallel = p == 0
         hit &= ~(parallel & (q < 0))
-        r = np.where(parallel, 0.0, q / np.where(parallel, 1.0, p))  # no zero divisor
+        with np.errstate(over="ignore"):  # a subnormal p gives +/-inf: the right limit
+            r = np.where(parallel, 0.0, q / np.where(parallel, 1.0, p))  # no zero divisor
         t0 = np.where(p < 0, np.maximum(t0, r), t0)  # p < 0 or p > 0: not parallel
         t1 = np.where(p > 0, np.minimum(t1, r), t1)
     return hit & (t0 <= t1)
