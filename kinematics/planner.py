@@ -187,10 +187,13 @@ def _check_branch(branch) -> Branch | None:
         raise TargetError(f"unknown branch {branch!r} (elbow-up or elbow-down)") from None
 
 
-def _limits(arm: Arm):
+def _limits(arm: Arm, p: float):
+    """Joint speed and acceleration limits under the speed override p (0..1]. The
+    override scales both, so that a short move, which never reaches its top speed,
+    slows down too (common practice on motion controllers)."""
     v = np.array([j.max_speed for j in arm.joints])
     a = np.array([j.max_accel for j in arm.joints])
-    return v, a
+    return p * v, p * a
 
 
 def _near_limit(arm: Arm, i: int) -> float:
@@ -292,7 +295,7 @@ def plan_joint_move(arm: Arm, start: Sequence[float], end: Sequence[float], *,
 def _joint_plan(arm: Arm, q0: np.ndarray, q1: np.ndarray, p: float, branch: Branch | None,
                 warnings: list[str]) -> Plan:
     dq = q1 - q0
-    vmax, amax = _limits(arm)
+    vmax, amax = _limits(arm, p)
     b0 = branch_of(arm, q0)
     change = b0 is not None and branch is not None and b0 != branch
     if change:
@@ -316,7 +319,7 @@ def _joint_plan(arm: Arm, q0: np.ndarray, q1: np.ndarray, p: float, branch: Bran
         peak_w, peak_tool = tuple(0.0 for _ in arm.joints), 0.0
     else:
         moving = np.abs(dq) > NO_MOTION
-        v_rate = float((p * vmax[moving] / np.abs(dq[moving])).min())
+        v_rate = float((vmax[moving] / np.abs(dq[moving])).min())
         a_rate = float((amax[moving] / np.abs(dq[moving])).min())
         gain = float(sweep.tool_speed_gain(arm, q0[None], dq[None], samples=65)[0])
         cap = p * arm.tool_speed_max_mm_s
@@ -329,7 +332,7 @@ def _joint_plan(arm: Arm, q0: np.ndarray, q1: np.ndarray, p: float, branch: Bran
         prev = np.vstack([q0, q_seg[:-1]])
         gains = sweep.tool_speed_gain(arm, prev, q_seg - prev)
         t, stretch = profile.fit_durations(q0, q_seg, np.array([t for _, t in pieces]),
-                                           p * vmax, amax, gains, cap)
+                                           vmax, amax, gains, cap)
         q_seg, t_seg = profile.split_long(q0, q_seg, t)
         peak_w, peak_tool = _peaks(arm, q0, q_seg, t_seg)
     if p < 1.0:
@@ -633,7 +636,7 @@ def _line_timing(arm: Arm, q0: np.ndarray, u: np.ndarray, q: np.ndarray, p: floa
     sqrt(max_accel_i (du_j + du_{j+1}) / (4 |g_{j+1,i} - g_{j,i}|)) keeps the second
     below the other half. The result is verified and stretched if needed.
     """
-    vmax, amax = _limits(arm)
+    vmax, amax = _limits(arm, p)
     du = np.diff(u)
     dq = np.diff(q, axis=0)
     g = dq / du[:, None]
@@ -641,7 +644,7 @@ def _line_timing(arm: Arm, q0: np.ndarray, u: np.ndarray, q: np.ndarray, p: floa
     cap = p * arm.tool_speed_max_mm_s
     with np.errstate(divide="ignore"):
         v_tool = np.where(gain > 0, cap * du / gain, np.inf)
-        v_joint = (p * vmax[None, :] * du[:, None] / np.abs(dq)).min(axis=1)
+        v_joint = (vmax[None, :] * du[:, None] / np.abs(dq)).min(axis=1)
         a_seg = (amax[None, :] / (2 * np.abs(g))).min(axis=1)
     vlim = np.minimum(v_tool, v_joint)
     reason = np.where(v_tool <= v_joint, "tool", "joint")
@@ -710,8 +713,8 @@ def plan_line_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
         mids = (u[wide] + u[wide + 1]) / 2
         u = np.insert(u, wide + 1, mids)
         q = np.insert(q, wide + 1, line.joints(mids), axis=0)
-    vmax, amax = _limits(arm)
-    t, stretch = profile.fit_durations(q0, q[1:], t, p * vmax, amax, gain,
+    vmax, amax = _limits(arm, p)
+    t, stretch = profile.fit_durations(q0, q[1:], t, vmax, amax, gain,
                                        p * arm.tool_speed_max_mm_s)
     where_knot = lambda k: line.where(float(u[k]))  # noqa: E731
     lim_problems, lim_warn, clear, sing = _path_findings(arm, q, where_knot)

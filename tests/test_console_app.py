@@ -481,3 +481,27 @@ async def test_not_connected_at_start_then_connect_with_r(tmp_path):
     finally:
         gate.close()
         emu.stop()
+
+
+async def test_speed_override_key_slows_the_next_motion(planar):
+    arm, gate = planar
+    app = make_app(arm, gate)
+    async with app.run_test(size=SIZE) as pilot:
+        await enabled(pilot, app)
+        await pilot.press("right")
+        full = await confirm_shown(pilot, app)
+        await pilot.press("n")
+        await idle(pilot, app)
+        await pilot.press("v", "v")          # 100 -> 50 -> 25 %
+        assert app.speed_pct == 25.0
+        await pilot.press("right")
+        slow = await confirm_shown(pilot, app)
+        assert "25 %" in " ".join(slow.lines) or "25%" in " ".join(slow.lines)
+        duration = lambda lines: float(next(l for l in lines if " s in " in l).split(": ")[1].split(" s")[0])
+        # A 1 mm jog never reaches top speed: a triangle profile takes 2 sqrt(d / a)
+        # (elementary kinematics). The override scales the acceleration too, so a quarter
+        # of it doubles the time (less a little for whole-millisecond segments).
+        assert duration(slow.lines) > 1.8 * duration(full.lines)
+        await pilot.press("n")
+        await idle(pilot, app)
+        assert not moves(gate)

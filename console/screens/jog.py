@@ -58,6 +58,7 @@ def jog_bindings() -> list[Binding]:
 
 
 STEP_GROUP = Binding.Group("step", compact=True)
+SPEED_STEPS_PCT = (100.0, 50.0, 25.0, 10.0)
 
 
 class JogScreen(Screen):
@@ -80,6 +81,8 @@ class JogScreen(Screen):
                 "elbow-down)", id="jog.branch"),
         Binding("p", "path", "path", show=False, tooltip="Move path: joint interpolation or a straight line",
                 id="jog.path"),
+        Binding("v", "speed", "speed", show=False, tooltip="Speed override of every motion: "
+                "100, 50, 25 or 10 %", id="jog.speed"),
         Binding("escape", "clear_target", "clear", show=False, tooltip="Forget the typed target",
                 id="jog.clear"),
     ]
@@ -145,7 +148,7 @@ class JogScreen(Screen):
         mode = "joints" if app.joint_mode else "tool (Cartesian)"
         unit = "mm / deg" if (app.joint_mode or self.arm.is_scara) else "mm"
         return (f"jog {mode}   step {app.step:g} {unit}   move path {app.path} (p)   "
-                f"speed {app.speed_pct:g} %")
+                f"speed {app.speed_pct:g} % (v)")
 
     def motion_words(self) -> str:
         app = self.app
@@ -204,6 +207,13 @@ class JogScreen(Screen):
 
     def action_path(self) -> None:
         self.app.path = "line" if self.app.path == "joint" else "joint"
+        self.refresh_view()
+
+    def action_speed(self) -> None:
+        """Cycle the speed override 100 -> 50 -> 25 -> 10 -> 100 %."""
+        steps = SPEED_STEPS_PCT
+        now = self.app.speed_pct
+        self.app.speed_pct = steps[(steps.index(now) + 1) % len(steps)] if now in steps else 100.0
         self.refresh_view()
 
     def action_clear_target(self) -> None:
