@@ -11,8 +11,8 @@ Before anything moves the gate checks, and refuses in words with the numbers:
 - the plan: every segment end within the soft limits less the arm's margin, the
   planner's reach, singularity and keep-out verdicts, the tool speed cap and each
   joint's speed cap, the cap on one jog step;
-- the approval: it binds to exactly that proposal (a digest of its segments), to the
-  arm's position when it was made, and expires APPROVAL_TTL_S (10 s; a whole program:
+- the approval: it binds to exactly that proposal (the very object the gate made, which
+  is offered once), to the arm's position when it was made, and expires APPROVAL_TTL_S (10 s; a whole program:
   PROGRAM_APPROVAL_TTL_S, 60 s) after it was made.
 
 This is a software interlock, not a safety-rated function (README, Safety).
@@ -80,7 +80,6 @@ class Proposal:
     start_joints: tuple[float, ...]
     created_s: float
     token: int = 0
-    jog: bool = False
 
     @property
     def ok(self) -> bool:
@@ -224,7 +223,11 @@ class Interlock:
             journal_obj = journal
         else:
             journal_obj = Journal(Path(journal))
-        instance = create_driver(driver, arm, **driver_options)
+        try:
+            instance = create_driver(driver, arm, **driver_options)
+        except BaseException:
+            journal_obj.close()
+            raise
         link_error = None
         try:
             instance.open()
@@ -402,7 +405,7 @@ class Interlock:
         reasons += self.check_actions(actions, start).reasons
         token = next(self._tokens)
         proposal = Proposal(request, tuple(actions), Verdict.of(reasons), start, self._clock(),
-                            token, jog=jog_mm is not None or jog_joint is not None)
+                            token)
         self._issued[token] = proposal
         self._journal.record("request", token=token, request=request, ok=proposal.ok,
                              reasons=list(proposal.verdict.reasons),
