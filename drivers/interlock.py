@@ -404,8 +404,12 @@ class Interlock:
                                f"{JOINT_JOG_MAX_DEG:g} {joint.unit}")
         reasons += self.check_actions(actions, start).reasons
         token = next(self._tokens)
-        proposal = Proposal(request, tuple(actions), Verdict.of(reasons), start, self._clock(),
-                            token)
+        now = self._clock()
+        proposal = Proposal(request, tuple(actions), Verdict.of(reasons), start, now, token)
+        stale = [t for t, p in self._issued.items()
+                 if now - p.created_s > self.PROGRAM_APPROVAL_TTL_S]
+        for old in stale:  # past every approval limit: they could only expire
+            del self._issued[old]
         self._issued[token] = proposal
         self._journal.record("request", token=token, request=request, ok=proposal.ok,
                              reasons=list(proposal.verdict.reasons),
