@@ -51,6 +51,7 @@ BALANCE_SEED_CHORDS = 16             # line knots: the first, uniform split seed
 BALANCE_MARGIN = 0.01                # chords aimed 1 % below the estimated longest
 BALANCE_PASSES = 6                   # splits tried before falling back to the greedy cut
 NO_MOTION = 1e-12
+LINE_NO_MOTION = 1e-9  # rad or mm: a line whose joints move less is planned as a joint move
 
 
 # --------------------------------------------------------------------------- summary
@@ -658,6 +659,12 @@ def _line_timing(arm: Arm, q0: np.ndarray, u: np.ndarray, q: np.ndarray, p: floa
     a_lim = a_seg.copy()
     a_lim[1:] = np.minimum(a_lim[1:], a_seg[:-1])
     a_lim[:-1] = np.minimum(a_lim[:-1], a_seg[1:])
+    # A piece whose joints do not move has no cap from them: bound it by the rest of the
+    # line instead of infinity, so the speed profile never meets inf - inf.
+    finite = np.isfinite(vlim)
+    vlim = np.where(finite, vlim, vlim[finite].max() if finite.any() else 1.0)
+    finite_a = np.isfinite(a_lim)
+    a_lim = np.where(finite_a, a_lim, a_lim[finite_a].max() if finite_a.any() else 1.0)
     v, peak, t = profile.line_speeds(du, vlim, a_lim)
     return vlim, reason, v, peak, t, gain
 
@@ -699,8 +706,8 @@ def plan_line_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
     if problems:
         return _refused(arm, LINE, q0, q_end, b0, problems)
     warnings: list[str] = []
-    if line.length_mm == 0 and line.droll == 0:
-        return _joint_plan(arm, q0, q0, p, b0, warnings)
+    if (line.length_mm == 0 and line.droll == 0) or np.abs(q_end - q0).max() <= LINE_NO_MOTION:
+        return _joint_plan(arm, q0, q_end, p, b0, warnings)  # nothing (measurable) to draw
     knots = _balanced_knots(line, q0, tol)
     u, q = knots if knots is not None else _greedy_knots(line, q0, tol)
     for _ in range(12):  # subdivide pieces that span too much of the speed ramp
@@ -755,6 +762,32 @@ def plan_line_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
 
 # --------------------------------------------------------------------------- front doors
 
+def nearest_equivalent(arm: Arm, start: Sequence[float], goal: Sequence[float],
+                       ) -> tuple[float, ...]:
+    """The goal with each revolute joint moved by whole turns to the equivalent that lies
+    within its limits and nearest the start: a joint move then never swings a joint a
+    full turn when a shorter way to the same pose exists (limits wider than +/-180 deg).
+
+    >>> from console.armfile import builtin_arm
+    >>> import dataclasses
+    >>> arm = builtin_arm("planar-bench")
+    >>> wide = dataclasses.replace(arm.joints[0], min=-math.radians(200), max=math.radians(200))
+    >>> arm = dataclasses.replace(arm, joints=(wide,) + arm.joints[1:])
+    >>> goal = nearest_equivalent(arm, (math.radians(185), 0.0), (math.radians(-175), 0.0))
+    >>> round(math.degrees(goal[0]), 9)
+    185.0
+    """
+    out = []
+    for joint, a, b in zip(arm.joints, start, goal):
+        if joint.is_revolute:
+            k_lo = math.ceil((joint.min - 1e-9 - b) / (2 * math.pi))
+            k_hi = math.floor((joint.max + 1e-9 - b) / (2 * math.pi))
+            choices = [b + 2 * math.pi * k for k in range(k_lo, k_hi + 1)] or [b]
+            b = min(choices, key=lambda v: abs(v - a))
+        out.append(float(b))
+    return tuple(out)
+
+
 def _joint_distance_s(arm: Arm, a: Sequence[float], b: Sequence[float]) -> float:
     """How far apart two poses are, as the synchronised move time at full joint speed
     (max_i |b_i - a_i| / max_speed_i): comparable across rad and mm."""
@@ -797,9 +830,11 @@ def plan_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
             why = "; ".join(f"{s.branch}: {'; '.join(s.problems)}" for s in ik.solutions)
             return _refused(arm, JOINT, q0, None, None,
                             [f"no usable IK solution for the target: {why}"])
-        sol = min(usable, key=lambda s: _joint_distance_s(arm, q0, s.joints))
+        sol = min(usable, key=lambda s: _joint_distance_s(
+            arm, q0, nearest_equivalent(arm, q0, s.joints)))
     warnings = list(ik.warnings)
-    return _joint_plan(arm, q0, np.array(sol.joints), p, sol.branch if len(ik.solutions) > 1
+    goal = np.array(nearest_equivalent(arm, q0, sol.joints))
+    return _joint_plan(arm, q0, goal, p, sol.branch if len(ik.solutions) > 1
                        else branch_of(arm, sol.joints), warnings)
 
 

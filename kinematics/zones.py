@@ -113,6 +113,16 @@ def zone_clearances(arm: Arm, values: Sequence[float]) -> dict[str, float]:
     return result
 
 
+def is_hit(distance_mm: float, clearance_mm: float) -> bool:
+    """A part this far from a zone is in it: closer than the clearance, or touching
+    (which matters when the clearance is 0).
+
+    >>> [is_hit(d, c) for d, c in ((0.0, 0.0), (0.5, 0.0), (3.0, 5.0), (5.0, 5.0))]
+    [True, False, True, False]
+    """
+    return distance_mm < clearance_mm or distance_mm <= 0.0
+
+
 def _bounds_gap(a: Point, b: Point, zone: Zone) -> float:
     """A lower bound of :func:`segment_zone_distance`: the gap between the segment's
     bounding box and the zone's (cheap; 0 when the boxes overlap)."""
@@ -134,9 +144,9 @@ def zone_problems(arm: Arm, values: Sequence[float]) -> list[str]:
         for name, a, b, z_lo, z_hi in parts:
             if arm.is_scara and (z_lo > zone.z_max + margin or z_hi < zone.z_min - margin):
                 continue
-            if _bounds_gap(a, b, zone) >= margin:
+            if _bounds_gap(a, b, zone) > margin:
                 continue  # cannot be closer than the bounding boxes
-            if segment_zone_distance(a, b, zone) < margin:
+            if is_hit(segment_zone_distance(a, b, zone), margin):
                 hits.setdefault(zone.name, []).append(name)
     return [f"{', '.join(names)} inside keep-out zone {zone!r} "
             f"(clearance {margin:g} mm)" for zone, names in hits.items()]

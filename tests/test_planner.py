@@ -7,6 +7,7 @@ DH chain (solve.tool_from_joints_dh), IK through the scalar path
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -420,3 +421,26 @@ def test_summary_text_and_json():
     t2 = q[:, 1]
     assert math.isclose(s.singular_distance_rad, float(min(np.min(np.abs(t2)),
                                                            np.min(math.pi - np.abs(t2)))))
+
+
+def test_a_line_to_where_the_arm_already_is_plans_no_motion():
+    # Found by review: a line of ~1e-13 mm made the profile meet inf - inf.
+    q = solve.joints_from_tool(PLANAR, (-166.6, 290.9)).usable[0].joints
+    plan = planner.plan_move(PLANAR, q, (-166.6, 290.9), path="line")
+    assert plan.ok and plan.segments == ()
+    tiny = planner.plan_jog(PLANAR, PLANAR.home_joints, "x", 1e-12)
+    assert tiny.ok and tiny.segments == ()
+
+
+def test_joint_moves_take_the_short_way_round_on_wide_limits():
+    # Shoulder limits of +/-200 deg: at 185 deg, a 1 mm jog must not swing a full turn to
+    # the wrapped value -175 deg (both are the same pose; 185 +/- a little is nearer).
+    wide = dataclasses.replace(PLANAR.joints[0], min=-math.radians(200), max=math.radians(200))
+    arm = dataclasses.replace(PLANAR, joints=(wide,) + PLANAR.joints[1:], zones=())
+    q0 = (math.radians(185.0), math.radians(60.0))
+    for plan in (planner.plan_jog(arm, q0, "x", 1.0, path="joint"),
+                 planner.plan_move(arm, q0, tuple(v + 0.5 for v in solve.tool_from_joints(arm, q0)[:2]))):
+        assert plan.ok, plan.problems
+        end = plan.segments[-1].joints
+        assert abs(end[0] - q0[0]) < math.radians(2) and abs(end[1] - q0[1]) < math.radians(2)
+        assert plan.summary.branch == Branch.ELBOW_DOWN   # no silent branch change

@@ -3,6 +3,7 @@ segment distances agree with a brute-force sampling of the segment."""
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 from hypothesis import given, settings
@@ -53,10 +54,24 @@ def test_segment_distance_matches_brute_force(ax, ay, bx, by, zone):
 
 
 @settings(max_examples=150, deadline=None)
-@given(st.floats(-math.pi, math.pi), st.floats(-math.pi, math.pi), st.sampled_from(["planar-bench", "scara-bench"]))
-def test_zone_problems_agree_with_part_gaps(q1, q2, name):
+@given(st.floats(-math.pi, math.pi), st.floats(-math.pi, math.pi),
+       st.sampled_from(["planar-bench", "scara-bench"]), st.sampled_from([None, 0.0, 30.0]))
+def test_zone_problems_agree_with_part_gaps(q1, q2, name, clearance):
     arm = builtin_arm(name)
+    if clearance is not None:
+        arm = dataclasses.replace(arm, link_clearance_mm=clearance)
     values = (q1, q2) if not arm.is_scara else (q1, q2, 110.0, 0.0)
-    inside = {zone.name for zone, _part, gap in zones.part_gaps(arm, values) if gap < 0}
+    margin = arm.link_clearance_mm
+    inside = {zone.name for zone, _part, gap in zones.part_gaps(arm, values)
+              if zones.is_hit(gap + margin, margin)}
     said = {p.split("'")[1] for p in zones.zone_problems(arm, values)}
     assert said == inside
+
+
+def test_a_tool_inside_a_zone_is_found_with_no_clearance():
+    # The demo tray spans x -300..-200, |y| <= 70; the tool at (-250, 0) is inside it.
+    arm = dataclasses.replace(builtin_arm("planar-bench"), link_clearance_mm=0.0)
+    from kinematics.solve import joints_from_tool
+    result = joints_from_tool(arm, (-250.0, 0.0))
+    assert result.solutions and all(not s.usable for s in result.solutions)
+    assert all(any("parts-tray" in p for p in s.problems) for s in result.solutions)
