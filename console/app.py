@@ -28,6 +28,7 @@ from console.screens.confirm import ConfirmMoveScreen
 from console.screens.jog import JogScreen
 from drivers.interlock import Confirmer, Interlock, Proposal
 from kinematics.model import Arm, Branch
+from kinematics.planner import nearest_equivalent
 from kinematics.solve import IKResult, joints_from_tool, pose_warnings, tool_from_joints
 
 POLL_S = 0.15               # the heartbeat / state refresh period
@@ -283,7 +284,8 @@ class BenchjogApp(App):
         else:
             here = self.actual or self.arm.home_joints
             choices = ik.usable or ik.solutions
-            best = min(choices, key=lambda s: sum((a - b) ** 2 for a, b in zip(s.joints, here)))
+            best = min(choices, key=lambda s: sum(  # by whole turns too, as the planner does
+                (a - b) ** 2 for a, b in zip(nearest_equivalent(self.arm, here, s.joints), here)))
             self.branch = best.branch
             if ik.usable:
                 self.set_message(f"target set: {best.branch} chosen; m moves, b picks the other "
