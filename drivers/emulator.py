@@ -295,23 +295,35 @@ class Emulator:
         cmd = P.parse_host(body)
         if cmd is None:
             seq = P.parse_int(body.split(" ", 1)[0]) if body else None
-            seq = seq if seq is not None and 1 <= seq <= P.MAX_SEQ else 0
-            self._send_line(f"ERR {seq} SYNTAX", reply=True)
+            if seq is None or not 1 <= seq <= P.MAX_SEQ:
+                self._send_line("ERR 0 SYNTAX", reply=True)  # no seq to trust
+                return
+            if self._out_of_sequence(seq):
+                return
+            self.last_seq = seq  # answered like any other refused line: the count goes on
+            self.last_reply = [self._send_line(f"ERR {seq} SYNTAX", reply=True)]
             return
-        if cmd.verb != "HELLO" and self.last_seq is not None:
-            if cmd.seq == self.last_seq:
-                for line in self.last_reply:   # a retransmission: the same reply again
-                    self.replies_out += 1
-                    self._enqueue(line, self.clock() + self.opts.slow_ms / 1000.0)
-                return
-            expected = P.next_seq(self.last_seq)
-            if cmd.seq != expected:
-                self._send_line(f"ERR {cmd.seq} BAD_SEQ expected={expected}", reply=True)
-                return
+        if cmd.verb != "HELLO" and self._out_of_sequence(cmd.seq):
+            return
         self.last_seq = cmd.seq
         reply = self._execute(cmd)
         self.last_reply = [self._send_line(reply, reply=True)]
         self._after_reply(cmd)
+
+    def _out_of_sequence(self, seq: int) -> bool:
+        """A retransmission (the last reply again) or an unexpected seq (BAD_SEQ): True
+        when the line is answered that way and must not be executed."""
+        if self.last_seq is not None:
+            if seq == self.last_seq:
+                for line in self.last_reply:   # a retransmission: the same reply again
+                    self.replies_out += 1
+                    self._enqueue(line, self.clock() + self.opts.slow_ms / 1000.0)
+                return True
+            expected = P.next_seq(self.last_seq)
+            if seq != expected:
+                self._send_line(f"ERR {seq} BAD_SEQ expected={expected}", reply=True)
+                return True
+        return False
 
     def _execute(self, cmd: P.HostLine) -> str:
         seq, verb, args = cmd.seq, cmd.verb, cmd.args

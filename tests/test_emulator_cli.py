@@ -109,6 +109,12 @@ def test_bad_lines_and_errors(raw):
     assert raw.ask("12 OUT 8 1") == "ERR 12 SYNTAX"
     assert raw.ask("13 OUT 7 1") == "OK 13"
     assert raw.ask("14 STATE").endswith("out=128")           # output 7 is bit 1 << 7
+    # A line with a good seq but no verb it can parse is answered and counted, like any
+    # refused line (PROTOCOL.md: each new host line uses the previous seq + 1).
+    assert raw.ask("15 fly") == "ERR 15 SYNTAX"
+    assert raw.ask("15 fly") == "ERR 15 SYNTAX"              # a retransmission: same reply
+    assert raw.ask("16 STATE").startswith("OK 16 ")
+    assert raw.ask("99 fly") == "ERR 99 BAD_SEQ expected=17"
 
 
 def test_stop_flushes_without_done(raw):
