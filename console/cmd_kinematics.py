@@ -14,7 +14,8 @@ from console.cli_common import add_arm_option, parse_number, print_json, round_o
 from console.errors import UsageError
 from kinematics.limits import wrap_pi
 from kinematics.model import Arm
-from kinematics.solve import IKResult, joints_from_tool, pose_warnings, tool_from_joints
+from kinematics.solve import (IKResult, joints_from_tool, pose_warnings, target_from_display,
+                              tool_from_joints)
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -43,13 +44,7 @@ def target_from_args(arm: Arm, coords: list[str]) -> tuple[float, ...]:
         raise UsageError(f"a {arm.geometry} arm takes {' '.join(names)}"
                          f"{' (Z and ROLL optional)' if arm.is_scara else ''}, "
                          f"got {len(coords)} values")
-    values = [parse_number(text, name) for text, name in zip(coords, names)]
-    if arm.is_scara:
-        home = tool_from_joints(arm, arm.home_joints)
-        if len(values) < 3:
-            values.append(home[2])
-        values.append(math.radians(values.pop(3)) if len(values) == 4 else 0.0)
-    return tuple(values)
+    return target_from_display(arm, [parse_number(text, name) for text, name in zip(coords, names)])
 
 
 def display_target(arm: Arm, target: tuple[float, ...]) -> list[float]:

@@ -92,6 +92,26 @@ def check_target(arm: Arm, target: Sequence[float]) -> tuple[float, ...]:
     return tuple(_number(name, value) for name, value in zip(names, values))
 
 
+def target_from_display(arm: Arm, values: Sequence[float]) -> tuple[float, ...]:
+    """A target as people type it (mm, and degrees for the roll) to an internal one
+    (mm, rad). A SCARA target may leave out z (then the home height) and the roll (then
+    0 degrees).
+
+    >>> from console.armfile import builtin_arm
+    >>> [round(v, 6) for v in target_from_display(builtin_arm("scara-bench"), (200.0, 150.0))]
+    [200.0, 150.0, 140.0, 0.0]
+
+    Raises:
+        TargetError: the wrong number of values, or one not finite.
+    """
+    values = [float(v) for v in values]
+    if arm.is_scara and 2 <= len(values) <= 4:
+        if len(values) == 2:
+            values.append(tool_from_joints(arm, arm.home_joints)[2])
+        values.append(math.radians(values.pop(3)) if len(values) == 4 else 0.0)
+    return check_target(arm, values)
+
+
 def check_joints(arm: Arm, values: Sequence[float]) -> tuple[float, ...]:
     """Joint values as finite floats, or :class:`TargetError` with a one-line message."""
     out = _values("the joint values", values, arm.n_joints)

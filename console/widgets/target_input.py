@@ -6,7 +6,6 @@ the numbers too. Bad text gives a one-line message and never a motion.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 from textual import events
@@ -14,11 +13,11 @@ from textual.message import Message
 from textual.widgets import Input
 
 from kinematics.model import Arm
-from kinematics.solve import TargetError, check_target
+from kinematics.solve import TargetError, target_from_display
 
 
 def target_hint(arm: Arm) -> str:
-    return "x y z roll (mm, deg)" if arm.is_scara else "x y (mm)"
+    return "x y [z [roll]] (mm, deg)" if arm.is_scara else "x y (mm)"
 
 
 def target_from_text(arm: Arm, text: str) -> tuple[float, ...]:
@@ -33,6 +32,8 @@ def target_from_text(arm: Arm, text: str) -> tuple[float, ...]:
     (120.0, 80.0)
     >>> [round(v, 6) for v in target_from_text(builtin_arm("scara-bench"), "200 100 90 180")]
     [200.0, 100.0, 90.0, 3.141593]
+    >>> [round(v, 6) for v in target_from_text(builtin_arm("scara-bench"), "200 100")]
+    [200.0, 100.0, 140.0, 0.0]
     """
     parts = text.replace(",", " ").split()
     if not parts:
@@ -43,13 +44,10 @@ def target_from_text(arm: Arm, text: str) -> tuple[float, ...]:
             values.append(float(part))
         except ValueError:
             raise TargetError(f"{part!r} is not a number (type {target_hint(arm)})") from None
-    if len(values) != (4 if arm.is_scara else 2):
+    if not 2 <= len(values) <= (4 if arm.is_scara else 2):
         raise TargetError(f"a {arm.geometry} arm takes {target_hint(arm)}, got {len(values)} "
                           f"value{'s' if len(values) != 1 else ''}")
-    target = check_target(arm, values)
-    if arm.is_scara:
-        target = target[:3] + (math.radians(target[3]),)
-    return target
+    return target_from_display(arm, values)
 
 
 class TargetInput(Input):
