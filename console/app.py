@@ -473,14 +473,19 @@ class BenchjogApp(App):
         return self._has_teach
 
     def action_teach(self) -> None:
-        try:
-            module = importlib.import_module(TEACH_MODULE)
-            screen = module.TeachScreen(self.interlock, self.arm, self.points_path,
-                                        self.program_path)
-        except Exception as exc:  # noqa: BLE001 - a broken plug-in screen is one line
-            self.set_message(f"teach screen unavailable: {one_line(exc)}", error=True)
-            return
-        self.push_screen(screen)
+        """The teach screen; one for the whole session, so that what it holds (a frame
+        half taught, the settings for new steps, its file locks) survives going back to
+        jog and returning."""
+        if not self.is_screen_installed("teach"):
+            try:
+                module = importlib.import_module(TEACH_MODULE)
+                screen = module.TeachScreen(self.interlock, self.arm, self.points_path,
+                                            self.program_path)
+            except Exception as exc:  # noqa: BLE001 - a broken plug-in screen is one line
+                self.set_message(f"teach screen unavailable: {one_line(exc)}", error=True)
+                return
+            self.install_screen(screen, name="teach")  # kept, not unmounted, when left
+        self.push_screen("teach")
 
     async def action_quit(self) -> None:
         try:

@@ -398,3 +398,23 @@ def test_scara_demo_plans_cleanly_from_its_clear_point():
         == pytest.approx(90.0)
     last = [s for s in report.steps if s.summary is not None][-1]
     assert last.summary.end_joints == pytest.approx(book.point("clear").joints, abs=1e-6)
+
+
+async def test_the_teach_screen_keeps_a_half_taught_frame_across_visits(tmp_path):
+    # Teaching a frame takes two poses with a jog in between: leaving the teach screen to
+    # jog must not forget the origin already taught.
+    from console.app import make_app
+
+    with Interlock.open(ARM, "sim", journal=False, time_scale=20.0) as gate:
+        gate.enable()
+        app = make_app(ARM, gate, points_path=tmp_path / "p.toml", program_path=tmp_path / "q.toml")
+        async with app.run_test(size=(120, 40)) as pilot:
+            await pilot.pause()
+            await pilot.press("t")
+            await pilot.pause()
+            first = app.screen
+            await pilot.press("escape")
+            await pilot.pause()
+            await pilot.press("t")
+            await pilot.pause()
+            assert app.screen is first
