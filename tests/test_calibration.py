@@ -83,7 +83,7 @@ def test_non_finite_is_refused():
 @pytest.mark.parametrize("joint, expected", [
     (SHOULDER, (-6200, 6200)),   # soft -150..150 deg, hard -155..155: +-155 * 40
     (ELBOW, (-2400, 9600)),      # hard -150..150; -1*(150-90)*40 = -2400, -1*(-150-90)*40 = 9600
-    (QUILL, (-1000, 25000)),     # soft 0..120 mm, hard -5..125: -5*200, 125*200
+    (QUILL, (-1400, 25000)),     # soft -2..120 mm, hard -7..125: -7*200, 125*200
     (J2, (-11750, 2750)),        # hard -145..145; (-145-90)*50 = -11750, (145-90)*50 = 2750
 ])
 def test_hard_range_counts_worked(joint, expected):

@@ -241,10 +241,10 @@ def test_limit_problem_on_the_max_side_and_on_the_quill():
     result = solve.joints_from_tool(arm, (250.0, 0.0, 10.0, 0.0))
     for sol in result.solutions:
         assert "quill at 130.00 mm passes its max 120.00 mm" in sol.problems
-    # and above the top (140 mm at quill 0) needs a negative quill
+    # and above the top stop (142 mm at quill -2) needs a quill beyond its min of -2 mm
     result = solve.joints_from_tool(arm, (250.0, 0.0, 150.0, 0.0))
     for sol in result.solutions:
-        assert "quill at -10.00 mm passes its min 0.00 mm" in sol.problems
+        assert "quill at -10.00 mm passes its min -2.00 mm" in sol.problems
 
 
 def test_wrapped_value_inside_the_limits_is_reported_not_the_raw_one():
