@@ -410,6 +410,8 @@ class BenchjogApp(App):
         self.jog_screen.log_event(message.outcome, f"{message.words}: {message.detail}")
         if message.end_joints is not None:
             self.last_end_joints = message.end_joints
+        elif message.request.kind == "home" and message.outcome == "done":
+            self.last_end_joints = None  # homed: no commanded Cartesian pose to compare with
         ok = message.outcome == "done"
         self.set_message(f"{message.words}: {message.detail}", error=not ok)
         pending, self.pending = self.pending, None

@@ -198,15 +198,15 @@ def report_lines(report: ProgramReport) -> list[str]:
                f"({len(moves)} moves, {segments} segments)")
     closest = report.closest()
     if closest["limits"]:
-        out.append("closest to soft limits: " + ", ".join(
+        out.append("least room to the soft limits: " + ", ".join(
             f"{j.name} {j.to_display(closest['limits'][j.name][0]):.2f} {j.unit} "
             f"(step {closest['limits'][j.name][1]})" for j in arm.joints
             if j.name in closest["limits"]))
     if closest["singular"] is not None:
         gap, number = closest["singular"]
-        out.append(f"closest to a singular pose: elbow {math.degrees(gap):.2f} deg (step {number})")
+        out.append(f"least elbow angle from a singular pose: {math.degrees(gap):.2f} deg (step {number})")
     for name, (gap, number) in closest["zones"].items():
-        out.append(f"closest to keep-out zone {name!r}: "
+        out.append(f"least gap to keep-out zone {name!r}: "
                    + (f"{gap:.1f} mm (step {number})" if math.isfinite(gap) else "never at its height"))
     changes = report.branch_changes
     out.append("branch changes: " + (", ".join(f"step {n}" for n in changes) if changes else "none"))

@@ -117,13 +117,13 @@ class PlanSummary:
                    for j, v in zip(arm.joints, self.peak_joint_speed)),
                f"peak tool speed: {self.peak_tool_speed_mm_s:.1f} mm/s "
                f"(cap {arm.tool_speed_max_mm_s:g} mm/s)",
-               "closest to soft limits: " + ", ".join(
+               "least room to the soft limits: " + ", ".join(
                    f"{j.name} {j.to_display(v):.2f} {j.unit}"
                    for j, v in zip(arm.joints, self.limit_clearance)),
-               f"closest to a singular pose: elbow "
+               f"least elbow angle from a singular pose: "
                f"{math.degrees(self.singular_distance_rad):.2f} deg"]
         for name, gap in self.zone_clearance_mm.items():
-            out.append(f"closest to keep-out zone {name!r}: "
+            out.append(f"least gap to keep-out zone {name!r}: "
                        + (f"{gap:.1f} mm" if math.isfinite(gap) else "never at its height"))
         out += [f"warning: {w}" for w in self.warnings]
         return out

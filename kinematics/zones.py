@@ -80,12 +80,12 @@ def link_segments(arm: Arm, values: Sequence[float]) -> list[tuple[str, Point, P
     elbow = (j1.a_mm * math.cos(t1), j1.a_mm * math.sin(t1))
     tool = (elbow[0] + j2.a_mm * math.cos(t12), elbow[1] + j2.a_mm * math.sin(t12))
     if not arm.is_scara:
-        return [(j1.name, (0.0, 0.0), elbow, -math.inf, math.inf),
-                (j2.name, elbow, tool, -math.inf, math.inf)]
+        return [(f"{j1.name}-{j2.name} link", (0.0, 0.0), elbow, -math.inf, math.inf),
+                (f"{j2.name}-tool link", elbow, tool, -math.inf, math.inf)]
     flange = flange_z_mm(arm)
     tip_z = tool_from_values(arm, tuple(values))[2]
-    return [(j1.name, (0.0, 0.0), elbow, j1.d_mm, j1.d_mm),
-            (j2.name, elbow, tool, flange, flange),
+    return [(f"{j1.name}-{j2.name} link", (0.0, 0.0), elbow, j1.d_mm, j1.d_mm),
+            (f"{j2.name}-tool link", elbow, tool, flange, flange),
             ("tool", tool, tool, min(tip_z, flange), max(tip_z, flange))]
 
 

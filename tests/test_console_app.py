@@ -43,7 +43,7 @@ def planar():
 @pytest.fixture
 def scara():
     from console.armfile import builtin_arm
-    arm = builtin_arm("scara-bench")  # homes with the quill at its top stop (0 mm)
+    arm = builtin_arm("scara-bench")
     gate = Interlock.open(arm, "sim", journal=False, time_scale=20.0)
     yield arm, gate
     gate.close()

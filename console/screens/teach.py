@@ -244,7 +244,8 @@ class TeachScreen(Screen):
         try:
             if self.program_path.exists():
                 self.program = Program.load(self.program_path)
-                if self.program.points_path.resolve() != self.points_path.resolve():
+                if (self.program.points_path.resolve() != self.points_path.resolve()
+                        and not self.read_only):  # a read-only reason says more; keep it
                     self.set_status(f"note: the program uses {self.program.points_path}, "
                                     f"this screen edits {self.points_path}", error=True)
             else:
