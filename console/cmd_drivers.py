@@ -14,7 +14,9 @@ def register(subparsers) -> None:
         "emulate", help="run the controller emulator on a pseudo-terminal",
         description=("Start the controller emulator on a pseudo-terminal, print its device "
                      "path on the first line of stdout and serve until interrupted. It starts "
-                     "as a controller does after power-up: drives off, not homed."))
+                     "as a controller does after power-up: drives off, not homed. While it "
+                     "runs, type estop, release or fault and Enter to press or release its "
+                     "e-stop button or cause a drive fault."))
     emulate.add_argument("--arm", metavar="FILE", default=argparse.SUPPRESS,
                          help="arm file (TOML) or built-in arm name")
     emulate.add_argument("--baud", type=int, default=argparse.SUPPRESS,
@@ -74,9 +76,10 @@ def cmd_emulate(args: argparse.Namespace) -> int:
         estop_at_s=args.estop_at, estop_after=args.estop_after, fault_after=args.fault_after,
         drop_every=args.drop_every, garble_every=args.garble_every,
         corrupt_every=args.corrupt_every, slow_ms=args.slow_ms)
-    print(f"benchjog: emulating {arm.name} ({arm.n_joints} axes) at {baud} baud; "
-          "ctrl+c to stop", file=sys.stderr)
-    return serve(arm, options, sys.stdout)
+    print(f"benchjog: emulating {arm.name} ({arm.n_joints} axes) at {baud} baud; type "
+          "estop, release or fault and Enter to play the controller's panel; ctrl+c to stop",
+          file=sys.stderr)
+    return serve(arm, options, sys.stdout, stdin=sys.stdin, stderr=sys.stderr)
 
 
 def cmd_ports(args: argparse.Namespace) -> int:  # noqa: ARG001

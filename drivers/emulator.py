@@ -486,9 +486,38 @@ class Emulator:
                     self._wake.wait(timeout=wait)
 
 
-def serve(arm: Arm, options: EmulatorOptions | dict | None, stdout: TextIO) -> int:
+CONSOLE_COMMANDS = {
+    "estop": "press the e-stop button",
+    "release": "release the e-stop button (the controller then waits for RESET)",
+    "fault": "a DRIVE fault on axis 1",
+}
+
+
+def run_console_command(emulator: "Emulator", line: str) -> str | None:
+    """One typed command for a running emulator (``benchjog emulate`` reads them from
+    its standard input): returns what it did, or None for an unknown word.
+
+    The emulator is the bench's stand-in for the controller's own panel: a person
+    rehearsing must be able to press the e-stop button, and release it again.
+    """
+    word = line.strip().lower()
+    if word == "estop":
+        emulator.press_estop()
+    elif word == "release":
+        emulator.release_estop()
+    elif word == "fault":
+        emulator.inject_fault("DRIVE", 1)
+    else:
+        return None
+    return CONSOLE_COMMANDS[word]
+
+
+def serve(arm: Arm, options: EmulatorOptions | dict | None, stdout: TextIO,
+          stdin: TextIO | None = None, stderr: TextIO | None = None) -> int:
     """Run the emulator for ``benchjog emulate``: print the device path alone on the
-    first line of ``stdout``, serve until SIGINT or SIGTERM, return 0."""
+    first line of ``stdout``, serve until SIGINT or SIGTERM (or the end of ``stdin``
+    when it is a terminal), return 0. Lines typed on ``stdin`` are commands
+    (:data:`CONSOLE_COMMANDS`); replies go to ``stderr``."""
     emulator = Emulator(arm, options)
     done = threading.Event()
     previous = {}
@@ -496,12 +525,24 @@ def serve(arm: Arm, options: EmulatorOptions | dict | None, stdout: TextIO) -> i
     def _quit(signum, frame):  # noqa: ARG001
         done.set()
 
+    def _commands() -> None:
+        for line in stdin:  # type: ignore[union-attr]
+            if not line.strip():
+                continue
+            said = run_console_command(emulator, line)
+            if stderr is not None:
+                print(f"emulator: {said}" if said else
+                      f"emulator: commands are {', '.join(CONSOLE_COMMANDS)}", file=stderr,
+                      flush=True)
+
     for sig in (signal.SIGINT, signal.SIGTERM):
         previous[sig] = signal.signal(sig, _quit)
     try:
         path = emulator.start()
         stdout.write(path + "\n")
         stdout.flush()
+        if stdin is not None:
+            threading.Thread(target=_commands, name="emulator-commands", daemon=True).start()
         while not done.wait(0.2):
             pass
     finally:

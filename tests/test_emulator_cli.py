@@ -200,3 +200,20 @@ def test_benchjog_ports_exits_zero():
     if not proc.stdout:
         assert proc.stderr.strip() == "no serial ports found"
     assert "Traceback" not in proc.stderr
+
+
+def test_typed_commands_press_and_release_the_estop():
+    # `benchjog emulate` reads estop / release / fault from its standard input, so a
+    # person rehearsing can press the e-stop button and release it again.
+    from console.armfile import builtin_arm
+    from drivers.emulator import Emulator, run_console_command
+
+    emu = Emulator(builtin_arm("planar-bench"))
+    emu.start()
+    try:
+        assert run_console_command(emu, "estop\n") and emu.mode == "ESTOP"
+        assert run_console_command(emu, " RELEASE ") and not emu.estop_input
+        assert emu.mode == "ESTOP"  # the latch stays until RESET (PROTOCOL.md)
+        assert run_console_command(emu, "dance") is None
+    finally:
+        emu.stop()
