@@ -200,6 +200,7 @@ class Interlock:
         self._events_lock = threading.Lock()
         self.sim = SimHooks(driver) if getattr(driver, "name", "") == "sim" else None
         self.link_error: str | None = None  # why the driver could not be opened, if so
+        self._last_end: tuple[float, ...] | None = None  # where the last finished plan ended
 
     # -- life cycle --------------------------------------------------------------------
     @classmethod
@@ -436,7 +437,9 @@ class Interlock:
 
     def propose_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0) -> Proposal:
         start = self.state().joints
-        plan = plan_jog(self._arm, start, axis, delta, speed_pct=speed_pct)
+        last = self._last_end
+        base = last if last is not None and self._moved_since(last, start) is None else None
+        plan = plan_jog(self._arm, start, axis, delta, speed_pct=speed_pct, base=base)
         if axis.startswith("j"):
             index = int(axis[1:]) - 1
             joint = self._arm.joints[index]
@@ -562,6 +565,9 @@ class Interlock:
             except Exception as exc:  # noqa: BLE001 - any driver failure halts, in one line
                 self._safe_stop()
                 return RunResult(False, "halted", f"halted{where}: {exc}", sent, step)
+        ends = [p.segments[-1].joints for p in proposal.plans if p.segments]
+        if ends:
+            self._last_end = tuple(ends[-1])
         return RunResult(True, "done", "done", sent, None)
 
     def _trouble(self) -> str | None:
@@ -572,6 +578,7 @@ class Interlock:
     def _halted(self, trouble: str, sent: int, step: int | None, where: str,
                 n: int | None, total: int | None) -> RunResult:
         self.__driver.stop()
+        self._last_end = None
         seg = f" before segment {n} of {total}" if n is not None else ""
         if trouble == "stop":
             return RunResult(False, "stopped", f"stopped by the user{where}{seg}", sent, step)

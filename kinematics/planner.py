@@ -843,10 +843,16 @@ JOINT_AXES = ("j1", "j2", "j3", "j4")
 
 
 def plan_jog(arm: Arm, start: Sequence[float], axis: str, delta: float, *,
-             path: str = LINE, speed_pct: float = 100.0) -> Plan:
+             path: str = LINE, speed_pct: float = 100.0,
+             base: Sequence[float] | None = None) -> Plan:
     """One jog step from ``start``: ``axis`` "x", "y" (and on a SCARA "z", "roll"),
     delta in mm or rad, Cartesian, on the start's branch (a straight line, or a joint
     move with ``path=JOINT``); or "j1".."jn", a joint jog of delta rad/mm.
+
+    ``base``: the joints the step is measured from, when not ``start`` (the commanded
+    end of the previous motion, so that a run of jogs does not gather the rounding of
+    the controller's counts: ten 1 mm steps make 10 mm). The motion still starts at
+    ``start``, where the arm is.
 
     Raises:
         TargetError: unknown axis, non-finite delta, bad joints or override.
@@ -867,7 +873,7 @@ def plan_jog(arm: Arm, start: Sequence[float], axis: str, delta: float, *,
     if axis not in cart_axes:
         raise TargetError(f"unknown jog axis {axis!r} for a {arm.geometry} arm "
                           f"({', '.join(cart_axes + joint_axes)})")
-    tool = list(solve.tool_from_joints(arm, q0))
+    tool = list(solve.tool_from_joints(arm, q0 if base is None else solve.check_joints(arm, base)))
     target = tool[:4] if arm.is_scara else tool[:2]
     target[CARTESIAN_AXES[axis]] += d
     if axis != "roll" and abs(d) > arm.jog_step_max_mm:

@@ -480,3 +480,15 @@ def test_a_console_gate_opens_unconnected_and_connects_on_reset(tmp_path):
             g.close()
     finally:
         emu.stop()
+
+
+def test_a_run_of_jogs_adds_up_exactly(gate):
+    # The simulated arm reports whole controller counts (40 per degree), so each measured
+    # pose is a little off the commanded one; jogs measured from the commanded end do
+    # not gather that rounding: three +1 mm x jogs end 3 mm from where they began.
+    x0, y0, _ = tool_from_joints(ARM, gate.state().joints)
+    for _ in range(3):
+        proposal = gate.propose_jog("x", 1.0)
+        assert gate.execute(proposal, YES()).completed
+    x, y, _ = tool_from_joints(ARM, gate._last_end)  # the commanded end of the last jog
+    assert x == pytest.approx(x0 + 3.0, abs=1e-6) and y == pytest.approx(y0, abs=1e-6)
