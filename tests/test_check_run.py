@@ -418,3 +418,23 @@ async def test_the_teach_screen_keeps_a_half_taught_frame_across_visits(tmp_path
             await pilot.press("t")
             await pilot.pause()
             assert app.screen is first
+
+
+async def test_the_teach_screen_shows_a_latched_estop(tmp_path):
+    from console.app import make_app
+    from textual.widgets import Static
+
+    with Interlock.open(ARM, "sim", journal=False, time_scale=20.0) as gate:
+        gate.enable()
+        app = make_app(ARM, gate, points_path=tmp_path / "p.toml", program_path=tmp_path / "q.toml")
+        async with app.run_test(size=(120, 40)) as pilot:
+            await pilot.pause()
+            await pilot.press("t")
+            await pilot.pause()
+            alarm = app.screen.query_one("#teach-alarm", Static)
+            gate.sim.inject_estop()
+            for _ in range(100):
+                await pilot.pause(0.03)
+                if alarm.display and "ESTOP" in str(alarm.render()):
+                    break
+            assert alarm.display and "ESTOP" in str(alarm.render())

@@ -200,6 +200,7 @@ class TeachScreen(Screen):
     # --- life cycle ------------------------------------------------------------------
 
     def compose(self) -> ComposeResult:
+        yield Static(id="teach-alarm")
         yield Static(id="teach-files")
         with Horizontal(id="teach-tables"):
             with Vertical(id="points-box"):
@@ -279,6 +280,20 @@ class TeachScreen(Screen):
             return (f"{values[0]:.2f}, {values[1]:.2f}, {values[2]:.2f} mm, "
                     f"{math.degrees(values[3]):.2f} deg")
         return f"{values[0]:.2f}, {values[1]:.2f} mm"
+
+    def show_state(self, state) -> None:
+        """The app's state refresh: a latched e-stop, fault or lost link is shown here
+        too, in red across the top (it is cleared on the jog screen, with r)."""
+        alarm = self.query_one("#teach-alarm", Static)
+        latched = getattr(state, "latched", None) if state is not None else None
+        if state is not None and not state.is_open:
+            latched = "not connected"
+        if latched:
+            alarm.update(Text(f" {latched.upper()}: nothing moves; escape, then r on the jog "
+                              "screen to reset ", style="bold white on red"))
+            alarm.display = True
+        else:
+            alarm.display = False
 
     def refresh_all(self) -> None:
         files = (f"points: {self.points_path}   program: {self.program_path}   new steps: "
