@@ -4,6 +4,8 @@ an e-stop halts at once and names the step). CONTRACT.md gives the exit codes.""
 
 from __future__ import annotations
 
+import contextlib
+
 import io
 import json
 import math
@@ -20,7 +22,7 @@ from console.confirm_cli import PromptConfirmer
 from console.points import PointBook, TaughtPoint
 from console.programs import DwellStep, MoveStep, OutputStep, Program
 from drivers.calibration import counts_from_joints
-from drivers.interlock import Interlock
+from drivers.interlock import Confirmer, Interlock
 from kinematics.frames import UserFrame
 from kinematics.model import Branch
 from kinematics.planner import plan_move
@@ -400,41 +402,62 @@ def test_scara_demo_plans_cleanly_from_its_clear_point():
     assert last.summary.end_joints == pytest.approx(book.point("clear").joints, abs=1e-6)
 
 
+@contextlib.asynccontextmanager
+async def teach_screen_up(tmp_path):
+    """The console on the simulated arm with the teach screen open: (app, pilot, gate)."""
+    from console.app import make_app
+
+    with Interlock.open(ARM, "sim", journal=False, time_scale=20.0) as gate:
+        gate.enable()
+        app = make_app(ARM, gate, points_path=tmp_path / "p.toml", program_path=tmp_path / "q.toml")
+        async with app.run_test(size=(120, 40)) as pilot:
+            await pilot.pause()
+            await pilot.press("t")
+            await pilot.pause()
+            yield app, pilot, gate
+
+
 async def test_the_teach_screen_keeps_a_half_taught_frame_across_visits(tmp_path):
     # Teaching a frame takes two poses with a jog in between: leaving the teach screen to
     # jog must not forget the origin already taught.
-    from console.app import make_app
+    async with teach_screen_up(tmp_path) as (app, pilot, gate):
+        teach = app.screen
+        await pilot.press("f")                      # origin: the home pose
+        await pilot.pause()
+        await pilot.press("enter")                  # the suggested name, "fixture"
+        await pilot.pause()
+        await pilot.press("escape")                 # back to jog: move 10 mm along +x
+        await pilot.pause()
+        assert gate.execute(gate.propose_jog("x", 10.0), _Yes()).completed
+        await pilot.press("t")
+        await pilot.pause()
+        assert app.screen is teach
+        await pilot.press("f")                      # the point on +x: the frame is done
+        for _ in range(100):
+            await pilot.pause(0.03)
+            if teach.book.frames:
+                break
+        frame = teach.book.frames["fixture"]
+        # origin at the home tool point (220, 160), +x along base +x: angle 0, less what
+        # whole controller counts (40 per degree) put into the measured poses: a few
+        # hundredths of a mm across 10 mm, some 0.003 rad
+        assert (frame.origin_x, frame.origin_y) == pytest.approx((220.0, 160.0), abs=0.05)
+        assert frame.angle_rad == pytest.approx(0.0, abs=0.01)
 
-    with Interlock.open(ARM, "sim", journal=False, time_scale=20.0) as gate:
-        gate.enable()
-        app = make_app(ARM, gate, points_path=tmp_path / "p.toml", program_path=tmp_path / "q.toml")
-        async with app.run_test(size=(120, 40)) as pilot:
-            await pilot.pause()
-            await pilot.press("t")
-            await pilot.pause()
-            first = app.screen
-            await pilot.press("escape")
-            await pilot.pause()
-            await pilot.press("t")
-            await pilot.pause()
-            assert app.screen is first
+
+class _Yes(Confirmer):
+    def confirm(self, proposal):
+        return True
 
 
 async def test_the_teach_screen_shows_a_latched_estop(tmp_path):
-    from console.app import make_app
     from textual.widgets import Static
 
-    with Interlock.open(ARM, "sim", journal=False, time_scale=20.0) as gate:
-        gate.enable()
-        app = make_app(ARM, gate, points_path=tmp_path / "p.toml", program_path=tmp_path / "q.toml")
-        async with app.run_test(size=(120, 40)) as pilot:
-            await pilot.pause()
-            await pilot.press("t")
-            await pilot.pause()
-            alarm = app.screen.query_one("#teach-alarm", Static)
-            gate.sim.inject_estop()
-            for _ in range(100):
-                await pilot.pause(0.03)
-                if alarm.display and "ESTOP" in str(alarm.render()):
-                    break
-            assert alarm.display and "ESTOP" in str(alarm.render())
+    async with teach_screen_up(tmp_path) as (app, pilot, gate):
+        alarm = app.screen.query_one("#teach-alarm", Static)
+        gate.sim.inject_estop()
+        for _ in range(100):
+            await pilot.pause(0.03)
+            if alarm.display and "ESTOP" in str(alarm.render()):
+                break
+        assert alarm.display and "ESTOP" in str(alarm.render())
