@@ -253,8 +253,9 @@ class BenchjogApp(App):
     def refresh_view(self) -> None:
         if self.jog_screen.is_mounted:
             self.jog_screen.refresh_view()
-        show_state = getattr(self.screen, "show_state", None)  # the teach screen, when up
-        if show_state is not None and self.screen is not self.jog_screen:
+        stack = self.screen_stack  # empty while the app starts or shuts down
+        show_state = getattr(stack[-1], "show_state", None) if stack else None
+        if show_state is not None:  # the teach screen, when it is up
             show_state(self.state)
         readiness = (self.ready(), self.latched(), self.busy is not None, self.joint_mode,
                      self.target is not None, self.branch, self._state_bits())
