@@ -27,6 +27,7 @@ from textual.binding import Binding
 from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.message import Message
 from textual.screen import ModalScreen, Screen
+from textual.css.query import NoMatches
 from textual.widgets import Button, DataTable, Footer, Input, Label, Select, Static
 
 from console.cmd_program import plan_program, report_lines, result_words, run_program
@@ -284,7 +285,10 @@ class TeachScreen(Screen):
     def show_state(self, state) -> None:
         """The app's state refresh: a latched e-stop, fault or lost link is shown here
         too, in red across the top (it is cleared on the jog screen, with r)."""
-        alarm = self.query_one("#teach-alarm", Static)
+        try:
+            alarm = self.query_one("#teach-alarm", Static)
+        except NoMatches:
+            return  # not composed yet, or being taken down
         latched = getattr(state, "latched", None) if state is not None else None
         if state is not None and not state.is_open:
             latched = "not connected"
