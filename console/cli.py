@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 from collections.abc import Sequence
 from importlib import metadata
@@ -76,7 +77,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     except Exception as exc:  # noqa: BLE001 - known errors become one line
         code = known_error_code(exc)
         if code is None:
-            raise
+            if os.environ.get("BENCHJOG_DEBUG"):
+                raise
+            # A bug, not the user's mistake: still one line, and nothing half done (the
+            # gate and the files clean up on their way out); the traceback on request.
+            text = str(exc).strip().splitlines()
+            print(f"benchjog: internal error: {type(exc).__name__}"
+                  f"{': ' + text[0] if text else ''} (a bug: please report it; "
+                  "BENCHJOG_DEBUG=1 shows the traceback)", file=sys.stderr)
+            return exit_codes.INTERNAL
         print(f"benchjog: {exc}", file=sys.stderr)
         return code
 

@@ -130,3 +130,22 @@ def test_the_installed_command_prints_no_traceback(tmp_path):
     assert proc.returncode == 2
     assert proc.stderr.strip() == f"benchjog: {bad}: arm.geometry: unknown geometry 'delta' (planar or scara)"
     assert proc.stdout == ""
+
+
+def test_an_internal_error_is_one_line_and_exit_70(capsys, monkeypatch):
+    # A bug must not spill a traceback on a technician either (BENCHJOG_DEBUG=1 shows it).
+    import console.cmd_kinematics as cmd
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("something inside broke\nsecond line")
+
+    monkeypatch.setattr(cmd, "joints_from_tool", broken)
+    monkeypatch.delenv("BENCHJOG_DEBUG", raising=False)
+    code = main(["solve", "100", "200"])
+    err = capsys.readouterr().err
+    assert code == 70
+    assert err.strip() == ("benchjog: internal error: RuntimeError: something inside broke "
+                           "(a bug: please report it; BENCHJOG_DEBUG=1 shows the traceback)")
+    monkeypatch.setenv("BENCHJOG_DEBUG", "1")
+    with pytest.raises(RuntimeError):
+        main(["solve", "100", "200"])
