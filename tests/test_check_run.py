@@ -387,12 +387,12 @@ async def test_teach_screen_teaches_builds_checks_and_moves(tmp_path):
             pass
 
 
-def test_scara_demo_plans_cleanly_from_its_clear_point():
-    # from the clear point: the scara-bench home pose has the quill on its soft limit
-    # (0 mm), inside the interlock's 0.5 mm margin (see the report to the lead)
+def test_scara_demo_plans_cleanly_from_home_and_from_its_clear_point():
     scara = builtin_arm("scara-bench")
     program, book = load_program(ROOT / "examples" / "scara-cell" / "program.toml", scara)
     assert book.warnings == []
+    from_home = plan_program(scara, program, book)   # as `benchjog check` does
+    assert from_home.ok, from_home.problems
     report = plan_program(scara, program, book, start_joints=book.point("clear").joints)
     assert report.ok, report.problems
     # the part turns a quarter turn between slot and outfeed: roll in the tray frame
