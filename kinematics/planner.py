@@ -47,7 +47,7 @@ DENSE_MIN, DENSE_MAX = 65, 20001
 DEVIATION_SAMPLES = 17               # FK samples per candidate chord
 DEVIATION_SAFETY = 0.99              # accept a chord when its sampled deviation <= 0.99 tol
 CANDIDATE_FACTORS = np.geomspace(0.8, 1.25, 15)  # step lengths tried at once (3.2 % apart)
-BALANCE_SEED_CHORDS = 16             # line knots: the first, uniform split seeding the estimate
+BALANCE_FIRST_CHORDS = 16             # line knots: the first, uniform split that starts the estimate
 BALANCE_MARGIN = 0.01                # chords aimed 1 % below the estimated longest
 BALANCE_PASSES = 6                   # splits tried before falling back to the greedy cut
 NO_MOTION = 1e-12
@@ -556,10 +556,10 @@ def _balanced_knots(line: _Line, q0: np.ndarray, tol: float
     deviation of every chord of the current split, estimates sqrt(c) at the chords'
     middles as sqrt(deviation) / h (interpolated linearly in between), and splits
     again; a split is accepted once every one of its chords passes (never the first,
-    uniform, split: it only seeds the estimate)."""
+    uniform, split: it only starts the estimate)."""
     limit = tol * DEVIATION_SAFETY
     grid = line.table_u
-    u = np.linspace(0.0, 1.0, BALANCE_SEED_CHORDS + 1)
+    u = np.linspace(0.0, 1.0, BALANCE_FIRST_CHORDS + 1)
     margin = BALANCE_MARGIN
     for rnd in range(BALANCE_PASSES):
         q = np.vstack([q0, line.joints(u[1:])])

@@ -182,12 +182,12 @@ def reachable_targets(arm, rng, count):
 
 @pytest.mark.parametrize("name", sorted(ARMS))
 def test_newton_raphson_ikinspace_converges_to_our_analytic_branches(name):
-    """Lynch & Park section 6.2: IKinSpace (Newton-Raphson) seeded a few degrees from
+    """Lynch & Park section 6.2: IKinSpace (Newton-Raphson) started a few degrees from
     our answer must land on our answer, for each branch.
 
     Limitation: for the planar arm the 6-D twist error has only three live rows (x, y and
     the rotation about z), so mr's pseudo-inverse step works in a rank-2 Jacobian; it
-    converges from a nearby, well-conditioned seed, which is what we give it (targets
+    converges from a nearby, well-conditioned initial guess, which is what we give it (targets
     keep 5 % of the annulus away from the singular boundaries)."""
     arm = ARMS[name]
     m, slist = screws(arm)
@@ -200,9 +200,9 @@ def test_newton_raphson_ikinspace_converges_to_our_analytic_branches(name):
             ours = mr_thetas(arm, sol.joints)
             heading = solve.tool_from_joints(arm, sol.joints)[-1]
             t_goal = target_transform(arm, target, heading)
-            seed = ours + np.array([rng.uniform(-3, 3) * math.pi / 180 if j.is_revolute
+            guess = ours + np.array([rng.uniform(-3, 3) * math.pi / 180 if j.is_revolute
                                     else rng.uniform(-2, 2) for j in arm.joints])
-            theta, ok = mr.IKinSpace(slist, m, t_goal, seed, 1e-10, 1e-8)  # reference: modern_robotics IKinSpace
+            theta, ok = mr.IKinSpace(slist, m, t_goal, guess, 1e-10, 1e-8)  # reference: modern_robotics IKinSpace
             assert ok, (name, target, sol.branch)
             for i, joint in enumerate(arm.joints):
                 if joint.is_revolute:
@@ -215,8 +215,8 @@ def test_newton_raphson_ikinspace_converges_to_our_analytic_branches(name):
     assert checked == 50
 
 
-def test_ikinspace_from_the_other_branch_seed_finds_the_other_branch():
-    # The two branches are distinct solutions: seeding near elbow-up does not come back
+def test_ikinspace_started_near_the_other_branch_finds_the_other_branch():
+    # The two branches are distinct solutions: starting near elbow-up does not come back
     # to elbow-down (a wrong elbow-up shoulder would fail here).
     arm = PLANAR
     m, slist = screws(arm)

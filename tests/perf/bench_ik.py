@@ -8,7 +8,7 @@ Prints the time per target of
 - the batch IK (planar.thetas_from_tool_xy_batch, solve.joints_from_tool_batch) on N
   targets (first call and best of 5, the first one pays for fresh memory),
 - modern_robotics' Newton-Raphson IK (mr.IKinSpace, Lynch & Park, "Modern Robotics",
-  2017, section 6.2) on a few hundred of the same targets, seeded 10 degrees (and 10 mm)
+  2017, section 6.2) on a few hundred of the same targets, started 10 degrees (and 10 mm)
   from the answer, with eomg = 1e-9 rad and ev = 1e-9 mm,
 and the max position error of each (FK of the answer against the target), all from this
 one run, with the ratios. The project's targets: scalar IK ~2 us per target, batch
@@ -98,7 +98,7 @@ def screws(arm):
 def mr_run(arm, targets: np.ndarray, answers: np.ndarray, rng) -> tuple[float, float, int]:
     """Seconds per target, max position error (mm) and the number converged."""
     m, slist = screws(arm)
-    goals, seeds = [], []
+    goals, guesses = [], []
     for target, answer in zip(targets, answers):
         t = np.eye(4)
         if arm.is_scara:
@@ -114,9 +114,9 @@ def mr_run(arm, targets: np.ndarray, answers: np.ndarray, rng) -> tuple[float, f
         goals.append(t)
         noise = [rng.choice([-1.0, 1.0]) * (math.radians(10.0) if j.is_revolute else 10.0)
                  for j in arm.joints]
-        seeds.append(answer + np.array(noise))
+        guesses.append(answer + np.array(noise))
     t0 = time.perf_counter()
-    found = [mr.IKinSpace(slist, m, g, s, 1e-9, 1e-9) for g, s in zip(goals, seeds)]
+    found = [mr.IKinSpace(slist, m, g, s, 1e-9, 1e-9) for g, s in zip(goals, guesses)]
     per = (time.perf_counter() - t0) / len(goals)
     worst, converged = 0.0, 0
     for (theta, ok), goal in zip(found, goals):
