@@ -7,8 +7,8 @@ import argparse
 import sys
 
 from console.armfile import load_arm
-from console.cli_common import (add_arm_option, add_journal_option, add_port_options, exit_code_of,
-                                open_gate, run_stoppable)
+from console.cli_common import (add_arm_option, add_journal_option, add_port_options, drives_off,
+                                exit_code_of, open_gate, run_stoppable)
 from console.cmd_kinematics import target_from_args
 from console.confirm_cli import PromptConfirmer
 from console.errors import UsageError
@@ -61,7 +61,7 @@ def cmd_move(args: argparse.Namespace) -> int:
             result = run_stoppable(gate, lambda: gate.execute(
                 proposal, PromptConfirmer(arm, question="Move?")))
         finally:
-            gate.disable()
+            drives_off(gate)
     return _report(result)
 
 
@@ -72,5 +72,5 @@ def cmd_home(args: argparse.Namespace) -> int:
         try:
             result = run_stoppable(gate, lambda: gate.home(PromptConfirmer(arm, question="Home?")))
         finally:
-            gate.disable()
+            drives_off(gate)
     return _report(result)

@@ -22,8 +22,8 @@ from typing import Any
 
 from console import exit_codes
 from console.armfile import load_arm
-from console.cli_common import (add_arm_option, add_journal_option, add_port_options, exit_code_of,
-                                open_gate, print_json, round_out, run_stoppable)
+from console.cli_common import (add_arm_option, add_journal_option, add_port_options, drives_off,
+                                exit_code_of, open_gate, print_json, round_out, run_stoppable)
 from console.confirm_cli import PromptConfirmer
 from console.points import PointBook, PointError
 from console.programs import DwellStep, MoveStep, OutputStep, Program
@@ -389,10 +389,7 @@ def cmd_run(args: argparse.Namespace) -> int:
             report, result = run_stoppable(
                 gate, lambda: run_program(gate, arm, program, book, confirmer))
         finally:
-            try:
-                gate.disable()
-            except Exception:  # noqa: BLE001 - the link may be gone; close() follows
-                pass
+            drives_off(gate)
     if not report.ok:
         for line in report_lines(report):
             print(line, file=sys.stderr)
