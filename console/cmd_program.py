@@ -27,7 +27,6 @@ from console.cli_common import (add_arm_option, add_journal_option, add_port_opt
 from console.confirm_cli import PromptConfirmer
 from console.points import PointBook, PointError
 from console.programs import DwellStep, MoveStep, OutputStep, Program
-from console.safe_files import FileError
 from drivers.interlock import Confirmer, Dwell, Interlock, Proposal, RunResult, SetOutput
 from kinematics.model import Arm
 from kinematics.planner import PlanSummary, plan_move
@@ -357,17 +356,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     run.set_defaults(func=cmd_run)
 
 
-def _bad_input(exc: Exception) -> int:
-    print(f"benchjog: {exc}", file=sys.stderr)
-    return exit_codes.BAD_INPUT
-
-
 def cmd_check(args: argparse.Namespace) -> int:
     arm = load_arm(args.arm)
-    try:
-        program, book = load_program(args.program, arm)
-    except (FileError, PointError) as exc:
-        return _bad_input(exc)
+    program, book = load_program(args.program, arm)  # bad files: one line, exit 2 (errors.py)
     report = plan_program(arm, program, book)
     if args.json:
         print_json(report_json(report))
@@ -378,10 +369,7 @@ def cmd_check(args: argparse.Namespace) -> int:
 
 def cmd_run(args: argparse.Namespace) -> int:
     arm = load_arm(args.arm)
-    try:
-        program, book = load_program(args.program, arm)
-    except (FileError, PointError) as exc:
-        return _bad_input(exc)
+    program, book = load_program(args.program, arm)  # bad files: one line, exit 2 (errors.py)
     confirmer = PromptConfirmer(arm, question="Run this program?")
     with open_gate(arm, args) as gate:
         gate.enable()

@@ -107,6 +107,14 @@ def _fields(tokens: list[str]) -> tuple[tuple[str, str], ...] | None:
     return tuple(out)
 
 
+def _field(fields: tuple[tuple[str, str], ...], key: str, default: str | None) -> str | None:
+    """The value of ``key`` among a line's ``key=value`` fields."""
+    for k, v in fields:
+        if k == key:
+            return v
+    return default
+
+
 @dataclass(frozen=True)
 class Reply:
     """A controller reply: ``kind`` is OK, ERR or DONE; ``code`` the ERR code."""
@@ -117,10 +125,7 @@ class Reply:
     fields: tuple[tuple[str, str], ...] = ()
 
     def get(self, key: str, default: str | None = None) -> str | None:
-        for k, v in self.fields:
-            if k == key:
-                return v
-        return default
+        return _field(self.fields, key, default)
 
     def int_field(self, key: str) -> int | None:
         value = self.get(key)
@@ -142,10 +147,7 @@ class Event:
     fields: tuple[tuple[str, str], ...] = ()
 
     def get(self, key: str, default: str | None = None) -> str | None:
-        for k, v in self.fields:
-            if k == key:
-                return v
-        return default
+        return _field(self.fields, key, default)
 
 
 def _seq(token: str, allow_zero: bool = False) -> int | None:
