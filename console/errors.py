@@ -6,15 +6,15 @@ exit codes of CONTRACT.md, so ``main`` can print one line instead of a traceback
 
 from __future__ import annotations
 
-from console import exit_codes
-from drivers.base import DriverError, DriverNotFound, LinkError
-from drivers.journal import JournalError
-from console.points import PointError
-from console.programs import ProgramError
-from console.safe_files import FileError
-from kinematics.armspec import ArmSpecError
-from kinematics.frames import FrameError
-from kinematics.solve import TargetError
+from benchjog.console import exit_codes
+from benchjog.drivers.base import DriverError, DriverNotFound, LinkError
+from benchjog.drivers.journal import JournalError
+from benchjog.console.cell.points import PointError
+from benchjog.console.cell.programs import ProgramError
+from benchjog.console.cell.safe_files import FileError
+from benchjog.kinematics.armspec import ArmSpecError
+from benchjog.kinematics.frames import FrameError
+from benchjog.kinematics.solve import TargetError
 
 
 class UsageError(ValueError):

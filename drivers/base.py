@@ -18,7 +18,7 @@ from dataclasses import dataclass
 from enum import Enum
 from typing import ClassVar
 
-from kinematics.model import Arm, Segment
+from benchjog.kinematics.model import Arm, Segment
 
 MAX_SEGMENT_S = 60.0  # PROTOCOL.md: MOVE takes 1..60000 ms
 OUTPUT_CHANNELS = 8   # PROTOCOL.md: OUT channel 0..7
@@ -101,12 +101,12 @@ def check_segment(arm: Arm, segment: Segment) -> None:
         ControllerError: wrong number of joints, a non-finite value, or a duration
             outside (0, 60] s.
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> check_segment(builtin_arm(), Segment((0.0, 1.0), 0.5))
     >>> check_segment(builtin_arm(), Segment((0.0,), 0.5))
     Traceback (most recent call last):
     ...
-    drivers.base.ControllerError: segment has 1 joint values, the arm has 2 joints
+    benchjog.drivers.base.ControllerError: segment has 1 joint values, the arm has 2 joints
     """
     if len(segment.joints) != arm.n_joints:
         raise ControllerError(f"segment has {len(segment.joints)} joint values, "

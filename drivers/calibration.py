@@ -12,7 +12,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 
-from kinematics.model import Arm, Joint
+from benchjog.kinematics.model import Arm, Joint
 
 HARD_RANGE_MARGIN = 5.0  # deg (mm): the controller's hard range is the soft limits widened by this
 
@@ -20,7 +20,7 @@ HARD_RANGE_MARGIN = 5.0  # deg (mm): the controller's hard range is the soft lim
 def counts_from_display(joint: Joint, value_display: float) -> int:
     """Counts for a value in the joint's display unit (deg or mm).
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> elbow = builtin_arm("planar-bench").joints[1]   # zero 90 deg, 40 counts/deg, direction -1
     >>> counts_from_display(elbow, 45.0)                # -1 * (45 - 90) * 40
     1800
@@ -33,7 +33,7 @@ def counts_from_display(joint: Joint, value_display: float) -> int:
 def counts_from_joint(joint: Joint, value: float) -> int:
     """Controller counts for one joint value in internal units (rad or mm).
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> elbow = builtin_arm("planar-bench").joints[1]
     >>> counts_from_joint(elbow, math.radians(45.0))
     1800
@@ -45,7 +45,7 @@ def joint_from_counts(joint: Joint, counts: int | float) -> float:
     """The joint value (rad or mm) for controller counts, the inverse of
     :func:`counts_from_joint`.
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> elbow = builtin_arm("planar-bench").joints[1]
     >>> round(math.degrees(joint_from_counts(elbow, 1800)), 9)   # 90 + 1800 / (40 * -1)
     45.0
@@ -71,7 +71,7 @@ def hard_range_counts(joint: Joint) -> tuple[int, int]:
     """The controller's own hard range in counts, ``(low, high)``: the soft limits
     widened by 5 deg (5 mm), converted and put in order (a direction of -1 swaps ends).
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> hard_range_counts(builtin_arm("planar-bench").joints[1])  # -150..150 deg
     (-2400, 9600)
     """
@@ -89,7 +89,7 @@ def range_violation(arm: Arm, counts: Sequence[int]) -> int | None:
     """The first axis (counting from 1, as PROTOCOL.md's ``RANGE axis=i``) whose counts
     lie outside the hard range, or None.
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> range_violation(builtin_arm("planar-bench"), (0, 9601))
     2
     """

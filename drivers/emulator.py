@@ -29,9 +29,9 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TextIO
 
-from drivers import protocol as P
-from drivers.calibration import hard_ranges_counts
-from kinematics.model import Arm
+from benchjog.drivers import protocol as P
+from benchjog.drivers.calibration import hard_ranges_counts
+from benchjog.kinematics.model import Arm
 
 WATCHDOG_S = 1.0
 BITS_PER_BYTE = 10  # 8N1: start bit, 8 data bits, stop bit

@@ -30,13 +30,13 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from drivers.base import Driver, DriverEvent, DriverState, LinkError
-from drivers.journal import Journal, NullJournal
-from drivers.registry import create_driver
-from kinematics.limits import fmt
-from kinematics.model import Arm, Segment
-from kinematics.planner import JOINT, Plan, plan_jog, plan_joint_move, plan_move
-from kinematics.solve import check_joints, tool_from_joints
+from benchjog.drivers.base import Driver, DriverEvent, DriverState, LinkError
+from benchjog.drivers.journal import Journal, NullJournal
+from benchjog.drivers.registry import create_driver
+from benchjog.kinematics.limits import fmt
+from benchjog.kinematics.model import Arm, Segment
+from benchjog.kinematics.planner import JOINT, Plan, plan_jog, plan_joint_move, plan_move
+from benchjog.kinematics.solve import check_joints, tool_from_joints
 
 FRESH_S = 0.5              # the driver's position must be newer than this
 START_TOL_RAD = math.radians(0.05)  # the arm "has moved" beyond this since the proposal

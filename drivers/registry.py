@@ -12,13 +12,13 @@ from __future__ import annotations
 import importlib
 from importlib import metadata
 
-from drivers.base import Driver, DriverImportError, DriverNotFound
-from kinematics.model import Arm
+from benchjog.drivers.base import Driver, DriverImportError, DriverNotFound
+from benchjog.kinematics.model import Arm
 
 ENTRY_POINT_GROUP = "benchjog.drivers"
 BUILTIN_DRIVERS: dict[str, str] = {
-    "sim": "drivers.sim:SimDriver",
-    "serial": "drivers.serial_link:SerialDriver",
+    "sim": "benchjog.drivers.sim:SimDriver",
+    "serial": "benchjog.drivers.serial_link:SerialDriver",
 }
 
 
@@ -68,7 +68,7 @@ def load_driver_class(name: str) -> type[Driver]:
 def create_driver(name: str, arm: Arm, **options) -> Driver:
     """A new, not yet opened driver of the registered ``name`` for ``arm``.
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> type(create_driver("sim", builtin_arm())).__name__
     'SimDriver'
     """

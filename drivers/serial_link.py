@@ -38,10 +38,10 @@ from dataclasses import dataclass
 
 import serial
 
-from drivers import protocol as P
-from drivers.base import ControllerError, Driver, DriverError, DriverEvent, DriverState, LinkError, Mode
-from drivers.calibration import counts_from_joints, joints_from_counts
-from kinematics.model import Arm, Segment
+from benchjog.drivers import protocol as P
+from benchjog.drivers.base import ControllerError, Driver, DriverError, DriverEvent, DriverState, LinkError, Mode
+from benchjog.drivers.calibration import counts_from_joints, joints_from_counts
+from benchjog.kinematics.model import Arm, Segment
 
 READ_POLL_S = 0.05
 MAX_EVENTS = 256

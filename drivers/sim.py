@@ -22,9 +22,9 @@ from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from drivers.base import ControllerError, Driver, DriverEvent, DriverState, LinkError, Mode
-from drivers.calibration import counts_from_joints, joints_from_counts, range_violation
-from kinematics.model import Arm, Segment
+from benchjog.drivers.base import ControllerError, Driver, DriverEvent, DriverState, LinkError, Mode
+from benchjog.drivers.calibration import counts_from_joints, joints_from_counts, range_violation
+from benchjog.kinematics.model import Arm, Segment
 
 DEFAULT_QUEUE_DEPTH = 8
 

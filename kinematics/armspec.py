@@ -11,7 +11,7 @@ import math
 from collections.abc import Mapping
 from typing import Any
 
-from kinematics.model import GEOMETRIES, PLANAR, PRISMATIC, REVOLUTE, SCARA, Arm, Joint, Zone
+from benchjog.kinematics.model import GEOMETRIES, PLANAR, PRISMATIC, REVOLUTE, SCARA, Arm, Joint, Zone
 
 JOINT_KEYS = ("name", "type", "a", "alpha", "d", "offset", "min", "max", "max_speed",
               "counts_per_unit", "zero", "direction")

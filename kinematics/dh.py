@@ -13,7 +13,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from kinematics.model import Arm, Joint
+from benchjog.kinematics.model import Arm, Joint
 
 
 def dh_transform(theta_rad: float, d_mm: float, a_mm: float, alpha_rad: float) -> np.ndarray:

@@ -18,7 +18,7 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from kinematics.limits import wrap_pi
+from benchjog.kinematics.limits import wrap_pi
 
 MIN_TEACH_SPAN_MM = 1.0  # the two taught points must be at least this far apart
 
@@ -82,7 +82,7 @@ def frame_from_two_points(name: str, origin: Sequence[float], x_point: Sequence[
     >>> frame_from_two_points("f", (0.0, 0.0), (0.5, 0.0))
     Traceback (most recent call last):
     ...
-    kinematics.frames.FrameError: frame 'f': the two points are 0.500 mm apart (at least 1 mm needed)
+    benchjog.kinematics.frames.FrameError: frame 'f': the two points are 0.500 mm apart (at least 1 mm needed)
     """
     if not name or not name.strip():
         raise FrameError("a frame needs a non-empty name")

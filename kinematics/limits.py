@@ -7,7 +7,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from kinematics.model import Arm, Joint
+from benchjog.kinematics.model import Arm, Joint
 
 TWO_PI = 2.0 * math.pi
 LIMIT_TOL = 1e-9  # rad or mm: a value this close to a limit counts as on it

@@ -1,6 +1,6 @@
 """The motion planner: tool targets and jogs to timed joint segments (pure).
 
-A plan is a tuple of :class:`kinematics.model.Segment` (joint values at the end of
+A plan is a tuple of :class:`benchjog.kinematics.model.Segment` (joint values at the end of
 each segment, rad/mm, and its duration, whole milliseconds of 1 ms .. 60 s), the unit
 every driver streams as PROTOCOL.md ``MOVE`` lines, plus a :class:`PlanSummary` for
 the confirmation prompt and the reports, and ``problems``: the refusal reasons. A
@@ -8,7 +8,7 @@ refused plan has no segments. Bad arguments raise :class:`TargetError`.
 
 Joint moves (:func:`plan_joint_move`) are one straight line in joint space, every
 joint starting and arriving together, timed by a trapezoidal profile of the path
-parameter (kinematics.profile.trapezoid_segments documents how the ramps are cut into
+parameter (benchjog.kinematics.profile.trapezoid_segments documents how the ramps are cut into
 segments). The rate is bounded by each joint's ``max_speed`` and ``max_accel`` and by
 the tool speed cap, bounded over the path from the Jacobian (sweep.tool_speed_gain).
 
@@ -19,10 +19,10 @@ a few vectorised passes balance the chords by the sagitta law (:func:`_balanced_
 with the greedy cut (from each knot, the longest such chord) as the fallback. The line is then
 timed by a speed profile of the line parameter capped, piece by piece, by the tool
 speed cap and the joint speeds, with accelerations bounded as derived in
-:func:`_line_timing`, and verified segment by segment (kinematics.profile).
+:func:`_line_timing`, and verified segment by segment (benchjog.kinematics.profile).
 
 Every plan's swept path (all links, the quill) is checked against the keep-out zones
-with the certified sampling of kinematics.sweep.sweep_zones.
+with the certified sampling of benchjog.kinematics.sweep.sweep_zones.
 """
 
 from __future__ import annotations
@@ -33,10 +33,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from kinematics import planar, profile, scara, solve, sweep
-from kinematics.limits import TWO_PI, limit_clearance, limit_problem
-from kinematics.model import Arm, Branch, Segment
-from kinematics.solve import TargetError
+from benchjog.kinematics import planar, profile, scara, solve, sweep
+from benchjog.kinematics.limits import TWO_PI, limit_clearance, limit_problem
+from benchjog.kinematics.model import Arm, Branch, Segment
+from benchjog.kinematics.solve import TargetError
 
 JOINT, LINE = "joint", "line"
 PATHS = (JOINT, LINE)
@@ -368,8 +368,8 @@ class _Line:
         return pts[:, :2]
 
     def raw_joints(self, u: np.ndarray) -> np.ndarray:
-        """IK on the branch (kinematics.planar.thetas_from_tool_xy_batch and the SCARA
-        quill and roll rows of kinematics.scara), not yet made continuous."""
+        """IK on the branch (benchjog.kinematics.planar.thetas_from_tool_xy_batch and the SCARA
+        quill and roll rows of benchjog.kinematics.scara), not yet made continuous."""
         arm = self.arm
         pts = self.p0 + u[:, None] * (self.p1 - self.p0)
         t1, t2, _, _ = planar.thetas_from_tool_xy_batch(arm.link1_mm, arm.link2_mm,
@@ -436,7 +436,7 @@ _TAU = np.linspace(0.0, 1.0, DEVIATION_SAMPLES)
 
 
 def q3_at(arm: Arm, z_mm: float) -> float:
-    """The quill value at tool height z (kinematics.scara.quill_from_z)."""
+    """The quill value at tool height z (benchjog.kinematics.scara.quill_from_z)."""
     return scara.quill_from_z(arm, z_mm)
 
 
@@ -768,7 +768,7 @@ def nearest_equivalent(arm: Arm, start: Sequence[float], goal: Sequence[float],
     within its limits and nearest the start: a joint move then never swings a joint a
     full turn when a shorter way to the same pose exists (limits wider than +/-180 deg).
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> import dataclasses
     >>> arm = builtin_arm("planar-bench")
     >>> wide = dataclasses.replace(arm.joints[0], min=-math.radians(200), max=math.radians(200))

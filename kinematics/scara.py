@@ -19,14 +19,14 @@ from __future__ import annotations
 
 import math
 
-from kinematics.model import Arm
-from kinematics.planar import tool_xy_from_thetas
+from benchjog.kinematics.model import Arm
+from benchjog.kinematics.planar import tool_xy_from_thetas
 
 
 def tool_from_values(arm: Arm, values: tuple[float, ...]) -> tuple[float, float, float, float]:
     """The SCARA tool pose (x, y, z, roll) for joint values (rad, rad, mm, rad).
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> arm = builtin_arm("scara-bench")
     >>> [round(v, 6) for v in tool_from_values(arm, (0.0, math.pi / 2, 20.0, 0.0))]
     [200.0, 150.0, 120.0, 1.570796]

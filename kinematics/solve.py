@@ -12,12 +12,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from kinematics import planar, scara
-from kinematics.dh import pose_from_transform, tool_transform
-from kinematics.limits import (LIMIT_TOL, limit_problems, wrap_into_limits, wrap_into_limits_array,
+from benchjog.kinematics import planar, scara
+from benchjog.kinematics.dh import pose_from_transform, tool_transform
+from benchjog.kinematics.limits import (LIMIT_TOL, limit_problems, wrap_into_limits, wrap_into_limits_array,
                                wrap_joints)
-from kinematics.model import Arm, Branch
-from kinematics.zones import zone_problems
+from benchjog.kinematics.model import Arm, Branch
+from benchjog.kinematics.zones import zone_problems
 
 
 @dataclass(frozen=True)
@@ -80,7 +80,7 @@ def _values(what: str, values: object, count: int) -> list:
 def check_target(arm: Arm, target: Sequence[float]) -> tuple[float, ...]:
     """The target as finite floats, or :class:`TargetError` with a one-line message.
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> check_target(builtin_arm("planar-bench"), ("12.5", 3))
     (12.5, 3.0)
     """
@@ -97,7 +97,7 @@ def target_from_display(arm: Arm, values: Sequence[float]) -> tuple[float, ...]:
     (mm, rad). A SCARA target may leave out z (then the home height) and the roll (then
     0 degrees).
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> [round(v, 6) for v in target_from_display(builtin_arm("scara-bench"), (200.0, 150.0))]
     [200.0, 150.0, 140.0, 0.0]
 

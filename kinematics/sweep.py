@@ -22,8 +22,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from kinematics.model import Arm
-from kinematics.scara import flange_z_mm
+from benchjog.kinematics.model import Arm
+from benchjog.kinematics.scara import flange_z_mm
 
 ZONE_STEP_MIN_MM = 1e-3   # the sweep stops refining once samples are this close in motion
 ZONE_REPORT_MM = 0.25     # closest approaches are reported to within this much ...
@@ -51,7 +51,7 @@ def tool_z_mm(arm: Arm, q: np.ndarray) -> np.ndarray:
 def points_from_joints(arm: Arm, q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """The elbow (..., 2) and the tool point (..., 3: x, y, z; z = 0 planar).
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> elbow, tool = points_from_joints(builtin_arm("planar-bench"), np.array([0.0, math.pi / 2]))
     >>> elbow.round(9).tolist(), tool.round(9).tolist()
     ([220.0, 0.0], [220.0, 160.0, 0.0])
@@ -68,7 +68,7 @@ def lever_mm(arm: Arm, dq: np.ndarray) -> np.ndarray:
     """Upper bound of how far any point of the arm moves in the base plane for a
     joint step ``dq`` (..., n_joints): a1 |dq1| + a2 |dq1 + dq2| (module docstring).
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> float(lever_mm(builtin_arm("planar-bench"), np.array([0.1, -0.1])))
     22.0
     """
@@ -86,7 +86,7 @@ def tool_speed_gain(arm: Arm, qa: np.ndarray, dq: np.ndarray, samples: int = 17)
     """An upper bound of |dp/dtau| (mm per unit tau) of the tool point along joint-linear
     segments q = qa + tau dq: the tool's linear speed divided by the segment's rate.
 
-    dp/dtau = J(q) dq (the Jacobian's position rows, as kinematics.solve.jacobian) is
+    dp/dtau = J(q) dq (the Jacobian's position rows, as benchjog.kinematics.solve.jacobian) is
     sampled at ``samples`` points; between samples it changes at most by its
     derivative bound K = a1 dq1^2 + a2 (dq1 + dq2)^2 (the second derivative of each
     rotating lever), so the true max is at most the sampled max + K h / 2, h the
@@ -116,7 +116,7 @@ def tool_speed_gain(arm: Arm, qa: np.ndarray, dq: np.ndarray, samples: int = 17)
 
 
 def singular_distance_array(t2_rad: np.ndarray) -> np.ndarray:
-    """Vectorised kinematics.planar.singular_distance_rad."""
+    """Vectorised benchjog.kinematics.planar.singular_distance_rad."""
     t = np.abs(np.remainder(np.asarray(t2_rad, dtype=float) + math.pi, 2 * math.pi) - math.pi)
     return np.minimum(t, math.pi - t)
 
@@ -190,7 +190,7 @@ def _segment_hits_box(ax, ay, bx, by, zone):
 
 
 def segment_zone_distance_array(a: np.ndarray, b: np.ndarray, zone) -> np.ndarray:
-    """Vectorised kinematics.zones.segment_zone_distance: a, b (..., 2) -> (...)."""
+    """Vectorised benchjog.kinematics.zones.segment_zone_distance: a, b (..., 2) -> (...)."""
     ax, ay, bx, by = a[..., 0], a[..., 1], b[..., 0], b[..., 1]
     if zone.kind == "circle":
         return np.maximum(0.0, _point_segment(zone.cx, zone.cy, ax, ay, bx, by) - zone.r)
@@ -203,7 +203,7 @@ def segment_zone_distance_array(a: np.ndarray, b: np.ndarray, zone) -> np.ndarra
 
 
 def _parts(arm: Arm, q: np.ndarray):
-    """(name, a, b, z_lo, z_hi) arrays of the parts kinematics.zones.link_segments lists."""
+    """(name, a, b, z_lo, z_hi) arrays of the parts benchjog.kinematics.zones.link_segments lists."""
     elbow, tool = points_from_joints(arm, q)
     origin = np.zeros_like(elbow)
     j1 = arm.joints[0]
@@ -224,9 +224,9 @@ def zone_gaps(arm: Arm, q: np.ndarray) -> tuple[np.ndarray, np.ndarray, list[lis
 
     Returns:
         combined (N, Z, P): max(planar gap, height gap): negative exactly when
-            kinematics.zones.part_gaps reports the part inside the zone;
+            benchjog.kinematics.zones.part_gaps reports the part inside the zone;
         reported (N, Z, P): the planar gap where the part meets the zone in height
-            (the kinematics.zones.part_gaps value), inf where it cannot;
+            (the benchjog.kinematics.zones.part_gaps value), inf where it cannot;
         names: part names per zone.
     """
     margin = arm.link_clearance_mm

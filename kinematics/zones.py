@@ -10,8 +10,8 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 
-from kinematics.model import Arm, Zone
-from kinematics.scara import flange_z_mm, tool_from_values
+from benchjog.kinematics.model import Arm, Zone
+from benchjog.kinematics.scara import flange_z_mm, tool_from_values
 
 Point = tuple[float, float]
 
@@ -50,7 +50,7 @@ def segment_zone_distance(a: Point, b: Point, zone: Zone) -> float:
     endpoint-to-box and corner-to-segment distances (for disjoint convex shapes the
     nearest points include a vertex of one of them).
 
-    >>> from kinematics.model import Zone
+    >>> from benchjog.kinematics.model import Zone
     >>> segment_zone_distance((0.0, 0.0), (10.0, 0.0), Zone("c", "circle", cx=5.0, cy=3.0, r=1.0))
     2.0
     """

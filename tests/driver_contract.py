@@ -19,8 +19,8 @@ import time
 
 import pytest
 
-from drivers.base import ControllerError, DriverError, Mode
-from kinematics.model import Segment
+from benchjog.drivers.base import ControllerError, DriverError, Mode
+from benchjog.kinematics.model import Segment
 
 DEG = math.radians
 

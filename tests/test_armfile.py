@@ -13,8 +13,8 @@ from pathlib import Path
 
 import pytest
 
-from console.armfile import BUILTIN_ARMS, builtin_arm, load_arm
-from kinematics.armspec import ArmSpecError, arm_from_mapping
+from benchjog.console.cell.armfile import BUILTIN_ARMS, builtin_arm, load_arm
+from benchjog.kinematics.armspec import ArmSpecError, arm_from_mapping
 
 JOINT = dict(name="shoulder", type="revolute", a=250.0, alpha=0.0, d=0.0, offset=0.0,
              min=-160.0, max=160.0, max_speed=120.0, counts_per_unit=100.0, zero=0.0,
@@ -241,7 +241,7 @@ def test_both_builtin_arms_load(name):
 def test_builtin_files_load_as_user_files(tmp_path):
     from importlib import resources
     for name in BUILTIN_ARMS:
-        text = resources.files("console.arms").joinpath(f"{name}.toml").read_text("utf-8")
+        text = resources.files("benchjog.console.cell.arms").joinpath(f"{name}.toml").read_text("utf-8")
         path = write(tmp_path, text, f"{name}.toml")
         arm = load_arm(path)
         assert arm.joints == builtin_arm(name).joints and arm.source == str(path)
@@ -285,7 +285,7 @@ def test_scara_alpha_minus_180_is_the_same_table(tmp_path):
 
 def test_extra_keys_are_allowed(tmp_path):
     # CONTRACT.md, "Arm file": "Required keys (more are allowed)".
-    text = (Path(__file__).resolve().parents[1] / "console" / "arms" / "planar-bench.toml").read_text()
+    text = (Path(__file__).resolve().parents[1] / "console" / "cell" / "arms" / "planar-bench.toml").read_text()
     text = text.replace('name = "shoulder"', 'name = "shoulder"\npart_number = "SH-1"', 1)
     text = text.replace('[arm]', '[arm]\ncell = "bench 3"', 1)
     path = tmp_path / "extra.toml"

@@ -11,8 +11,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from console.armfile import builtin_arm
-from drivers.calibration import (
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.drivers.calibration import (
     counts_from_joint, counts_from_joints, hard_range_counts, joint_from_counts,
     joints_from_counts, range_violation,
 )

@@ -14,19 +14,19 @@ from pathlib import Path
 
 import pytest
 
-from console.armfile import builtin_arm
-from console.cli import main
-from console.cmd_program import (exit_code_of, load_program, plan_program, result_words,
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.console.cli.main import main
+from benchjog.console.cli.cmd_program import (exit_code_of, load_program, plan_program, result_words,
                                  run_program)
-from console.confirm_cli import PromptConfirmer
-from console.points import PointBook, TaughtPoint
-from console.programs import DwellStep, MoveStep, OutputStep, Program
-from drivers.calibration import counts_from_joints
-from drivers.interlock import Confirmer, Interlock
-from kinematics.frames import UserFrame
-from kinematics.model import Branch
-from kinematics.planner import plan_move
-from kinematics.solve import joints_from_tool
+from benchjog.console.cli.confirm import PromptConfirmer
+from benchjog.console.cell.points import PointBook, TaughtPoint
+from benchjog.console.cell.programs import DwellStep, MoveStep, OutputStep, Program
+from benchjog.drivers.calibration import counts_from_joints
+from benchjog.drivers.interlock import Confirmer, Interlock
+from benchjog.kinematics.frames import UserFrame
+from benchjog.kinematics.model import Branch
+from benchjog.kinematics.planner import plan_move
+from benchjog.kinematics.solve import joints_from_tool
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "examples" / "bench-cell" / "program.toml"
@@ -288,9 +288,9 @@ class _Yes(PromptConfirmer):
 
 
 async def test_teach_screen_teaches_builds_checks_and_moves(tmp_path):
-    from console.app import make_app
-    from console.points import PointBook
-    from console.safe_files import FileLocked
+    from benchjog.console.tui.app import make_app
+    from benchjog.console.cell.points import PointBook
+    from benchjog.console.cell.safe_files import FileLocked
 
     pts, prog = tmp_path / "pts.toml", tmp_path / "prog.toml"
     with Interlock.open(ARM, "sim", journal=False, time_scale=20.0) as gate:
@@ -405,7 +405,7 @@ def test_scara_demo_plans_cleanly_from_home_and_from_its_clear_point():
 @contextlib.asynccontextmanager
 async def teach_screen_up(tmp_path):
     """The console on the simulated arm with the teach screen open: (app, pilot, gate)."""
-    from console.app import make_app
+    from benchjog.console.tui.app import make_app
 
     with Interlock.open(ARM, "sim", journal=False, time_scale=20.0) as gate:
         gate.enable()

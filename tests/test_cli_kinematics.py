@@ -10,7 +10,7 @@ import sys
 
 import pytest
 
-from console.cli import main
+from benchjog.console.cli.main import main
 
 
 def run(capsys, *argv: str) -> tuple[int, str, str]:
@@ -125,7 +125,7 @@ def test_bad_input_is_one_line_and_exit_2(capsys, argv, needle):
 def test_the_installed_command_prints_no_traceback(tmp_path):
     bad = tmp_path / "arm.toml"
     bad.write_text('[arm]\nname = "x"\ngeometry = "delta"\n')
-    proc = subprocess.run([sys.executable, "-m", "console.cli", "solve", "1", "2", "--arm", str(bad)],
+    proc = subprocess.run([sys.executable, "-m", "benchjog.console.cli.main", "solve", "1", "2", "--arm", str(bad)],
                           capture_output=True, text=True, timeout=60)
     assert proc.returncode == 2
     assert proc.stderr.strip() == f"benchjog: {bad}: arm.geometry: unknown geometry 'delta' (planar or scara)"
@@ -134,7 +134,7 @@ def test_the_installed_command_prints_no_traceback(tmp_path):
 
 def test_an_internal_error_is_one_line_and_exit_70(capsys, monkeypatch):
     # A bug must not spill a traceback on a technician either (BENCHJOG_DEBUG=1 shows it).
-    import console.cmd_kinematics as cmd
+    import benchjog.console.cli.cmd_kinematics as cmd
 
     def broken(*args, **kwargs):
         raise RuntimeError("something inside broke\nsecond line")

@@ -9,12 +9,12 @@ import io
 
 import pytest
 
-from console.armfile import builtin_arm
-from console.cli import main
-from drivers.calibration import counts_from_joints
-from drivers.emulator import Emulator
-from kinematics.model import Branch
-from kinematics.solve import joints_from_tool
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.console.cli.main import main
+from benchjog.drivers.calibration import counts_from_joints
+from benchjog.drivers.emulator import Emulator
+from benchjog.kinematics.model import Branch
+from benchjog.kinematics.solve import joints_from_tool
 
 ARM = builtin_arm("planar-bench")
 

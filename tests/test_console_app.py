@@ -10,15 +10,15 @@ import types
 import pytest
 from textual.screen import Screen
 
-from console.app import BenchjogApp, make_app
-from console.screens.confirm import ConfirmMoveScreen
-from console.screens.jog import JogScreen
-from console.widgets.branch_table import BranchTable
-from console.widgets.status import Banner
-from drivers.interlock import Interlock
-from kinematics.model import Branch
+from benchjog.console.tui.app import BenchjogApp, make_app
+from benchjog.console.tui.screens.confirm import ConfirmMoveScreen
+from benchjog.console.tui.screens.jog import JogScreen
+from benchjog.console.tui.widgets.branch_table import BranchTable
+from benchjog.console.tui.widgets.status import Banner
+from benchjog.drivers.interlock import Interlock
+from benchjog.kinematics.model import Branch
 
-A1, A2 = 220.0, 160.0   # planar-bench link lengths (console/arms/planar-bench.toml)
+A1, A2 = 220.0, 160.0   # planar-bench link lengths (console/cell/arms/planar-bench.toml)
 SIZE = (120, 40)
 
 
@@ -33,7 +33,7 @@ def fk_xy(t1: float, t2: float) -> tuple[float, float]:
 
 @pytest.fixture
 def planar():
-    from console.armfile import builtin_arm
+    from benchjog.console.cell.armfile import builtin_arm
     arm = builtin_arm("planar-bench")
     gate = Interlock.open(arm, "sim", journal=False, time_scale=20.0)
     yield arm, gate
@@ -42,7 +42,7 @@ def planar():
 
 @pytest.fixture
 def scara():
-    from console.armfile import builtin_arm
+    from benchjog.console.cell.armfile import builtin_arm
     arm = builtin_arm("scara-bench")
     gate = Interlock.open(arm, "sim", journal=False, time_scale=20.0)
     yield arm, gate
@@ -429,9 +429,9 @@ async def test_teach_key_pushes_the_teach_screen_when_present(planar, monkeypatc
             super().__init__()
             made.append((interlock, arm_, points_path, program_path))
 
-    module = types.ModuleType("console.screens.teach")
+    module = types.ModuleType("benchjog.console.tui.screens.teach")
     module.TeachScreen = TeachScreen
-    monkeypatch.setitem(sys.modules, "console.screens.teach", module)
+    monkeypatch.setitem(sys.modules, "benchjog.console.tui.screens.teach", module)
     app = make_app(arm, gate, points_path="pts.toml", program_path="prog.toml")
     app._has_teach = True
     async with app.run_test(size=SIZE) as pilot:
@@ -460,8 +460,8 @@ def test_every_key_has_a_label_tooltip_and_id():
 
 
 async def test_not_connected_at_start_then_connect_with_r(tmp_path):
-    from console.armfile import builtin_arm
-    from drivers.emulator import Emulator
+    from benchjog.console.cell.armfile import builtin_arm
+    from benchjog.drivers.emulator import Emulator
     arm = builtin_arm("planar-bench")
     emu = Emulator(arm, {"home_s": 0.02})
     pty = emu.start()

@@ -12,11 +12,11 @@ import sys
 import pytest
 import serial
 
-from console.armfile import builtin_arm
-from drivers import protocol as P
-from drivers.emulator import Emulator
-from drivers.serial_link import SerialDriver
-from kinematics.model import Segment
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.drivers import protocol as P
+from benchjog.drivers.emulator import Emulator
+from benchjog.drivers.serial_link import SerialDriver
+from benchjog.kinematics.model import Segment
 
 ARM = builtin_arm("planar-bench")
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
@@ -159,7 +159,7 @@ def test_watchdog_only_while_enabled(raw):
 # -- the CLI --------------------------------------------------------------------------------
 
 def _emulate(*args):
-    return subprocess.Popen([sys.executable, "-m", "console.cli", "emulate", *args],
+    return subprocess.Popen([sys.executable, "-m", "benchjog.console.cli.main", "emulate", *args],
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
 
 
@@ -194,7 +194,7 @@ def test_benchjog_emulate_with_a_bad_arm_file_is_one_line(tmp_path):
 
 
 def test_benchjog_ports_exits_zero():
-    proc = subprocess.run([sys.executable, "-m", "console.cli", "ports"], capture_output=True,
+    proc = subprocess.run([sys.executable, "-m", "benchjog.console.cli.main", "ports"], capture_output=True,
                           text=True, cwd=ROOT, timeout=30)
     assert proc.returncode == 0
     if not proc.stdout:
@@ -205,8 +205,8 @@ def test_benchjog_ports_exits_zero():
 def test_typed_commands_press_and_release_the_estop():
     # `benchjog emulate` reads estop / release / fault from its standard input, so a
     # person rehearsing can press the e-stop button and release it again.
-    from console.armfile import builtin_arm
-    from drivers.emulator import Emulator, run_console_command
+    from benchjog.console.cell.armfile import builtin_arm
+    from benchjog.drivers.emulator import Emulator, run_console_command
 
     emu = Emulator(builtin_arm("planar-bench"))
     emu.start()

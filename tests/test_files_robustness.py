@@ -8,10 +8,10 @@ from pathlib import Path
 
 import pytest
 
-from console.armfile import builtin_arm, load_arm
-from console.points import PointBook
-from console.programs import Program
-from console.safe_files import FileError, FileLock, write_atomic
+from benchjog.console.cell.armfile import builtin_arm, load_arm
+from benchjog.console.cell.points import PointBook
+from benchjog.console.cell.programs import Program
+from benchjog.console.cell.safe_files import FileError, FileLock, write_atomic
 
 ROOT = Path(__file__).resolve().parents[1]
 ARM = builtin_arm("planar-bench")
@@ -32,7 +32,7 @@ def test_huge_integers_are_one_line_errors(tmp_path):
 
 
 def test_a_byte_order_mark_is_accepted(tmp_path):
-    text = (ROOT / "console" / "arms" / "planar-bench.toml").read_text()
+    text = (ROOT / "console" / "cell" / "arms" / "planar-bench.toml").read_text()
     (tmp_path / "arm.toml").write_bytes(b"\xef\xbb\xbf" + text.encode())
     assert load_arm(tmp_path / "arm.toml").name == "planar-bench"
     (tmp_path / "points.toml").write_bytes(b"\xef\xbb\xbf" + (CELL / "points.toml").read_bytes())

@@ -11,7 +11,7 @@ import pytest
 from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
-from kinematics.frames import (FrameError, UserFrame, base_from_frame, frame_from_base,
+from benchjog.kinematics.frames import (FrameError, UserFrame, base_from_frame, frame_from_base,
                                frame_from_two_points, transform_2d)
 
 finite = st.floats(-500, 500, allow_nan=False, allow_infinity=False)

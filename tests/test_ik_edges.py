@@ -16,11 +16,11 @@ import tomllib
 import numpy as np
 import pytest
 
-from console.armfile import builtin_arm
-from kinematics import solve
-from kinematics.armspec import arm_from_mapping
-from kinematics.model import Branch
-from kinematics.solve import TargetError
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.kinematics import solve
+from benchjog.kinematics.armspec import arm_from_mapping
+from benchjog.kinematics.model import Branch
+from benchjog.kinematics.solve import TargetError
 
 PLANAR = builtin_arm("planar-bench")  # a1 = 220, a2 = 160: reach 60..380 mm
 SCARA = builtin_arm("scara-bench")  # a1 = 200, a2 = 150: reach 50..350 mm

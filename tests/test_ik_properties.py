@@ -21,11 +21,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from console.armfile import builtin_arm
-from kinematics import planar, solve
-from kinematics.armspec import arm_from_mapping
-from kinematics.limits import LIMIT_TOL, wrap_into_limits, wrap_into_limits_array, wrap_pi
-from kinematics.model import Branch
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.kinematics import planar, solve
+from benchjog.kinematics.armspec import arm_from_mapping
+from benchjog.kinematics.limits import LIMIT_TOL, wrap_into_limits, wrap_into_limits_array, wrap_pi
+from benchjog.kinematics.model import Branch
 
 TWO_PI = 2.0 * math.pi
 FK_TOL_MM = 1e-9

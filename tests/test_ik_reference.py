@@ -15,10 +15,10 @@ import modern_robotics as mr
 import numpy as np
 import pytest
 
-from console.armfile import builtin_arm
-from kinematics import solve
-from kinematics.armspec import arm_from_mapping
-from kinematics.model import Branch
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.kinematics import solve
+from benchjog.kinematics.armspec import arm_from_mapping
+from benchjog.kinematics.model import Branch
 
 PLANAR = builtin_arm("planar-bench")
 SCARA = builtin_arm("scara-bench")
@@ -143,7 +143,7 @@ def test_fk_agrees_with_modern_robotics_fkinspace(name):
 
 def test_dh_chain_full_transform_matches_fkinspace_on_scara():
     # the whole 4x4, rotation included (the tool points down), not only the pose
-    from kinematics.dh import tool_transform
+    from benchjog.kinematics.dh import tool_transform
     arm = ARMS["custom-scara"]
     m, slist = screws(arm)
     rng = np.random.default_rng(5)
@@ -173,7 +173,7 @@ def reachable_targets(arm, rng, count):
         target = [r * math.cos(phi), r * math.sin(phi)]
         if arm.is_scara:
             j3 = arm.joints[2]
-            from kinematics.scara import quill_from_z
+            from benchjog.kinematics.scara import quill_from_z
             z_top = quill_from_z(arm, 0.0)  # the z at quill 0
             target += [z_top - rng.uniform(j3.min, j3.max), rng.uniform(-math.pi, math.pi)]
         out.append(tuple(target))

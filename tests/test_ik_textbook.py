@@ -17,10 +17,10 @@ import math
 import numpy as np
 import pytest
 
-from console.armfile import builtin_arm
-from kinematics import planar, solve
-from kinematics.dh import tool_transform
-from kinematics.model import Branch
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.kinematics import planar, solve
+from benchjog.kinematics.dh import tool_transform
+from benchjog.kinematics.model import Branch
 
 deg = math.radians
 

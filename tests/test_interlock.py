@@ -14,14 +14,14 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from console.armfile import builtin_arm
-from drivers.calibration import joints_from_counts
-from drivers.emulator import Emulator
-from drivers.base import LinkError
-from drivers.interlock import Confirmer, Dwell, Interlock, SetOutput
-from drivers.journal import Journal, read_journal
-from kinematics.model import Branch
-from kinematics.solve import tool_from_joints
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.drivers.calibration import joints_from_counts
+from benchjog.drivers.emulator import Emulator
+from benchjog.drivers.base import LinkError
+from benchjog.drivers.interlock import Confirmer, Dwell, Interlock, SetOutput
+from benchjog.drivers.journal import Journal, read_journal
+from benchjog.kinematics.model import Branch
+from benchjog.kinematics.solve import tool_from_joints
 
 ROOT = Path(__file__).resolve().parents[1]
 ARM = builtin_arm("planar-bench")
@@ -59,7 +59,7 @@ def test_no_path_around_the_gate():
     """Structural: outside drivers/ no module imports a driver class, the registry or
     builds a driver; inside drivers/ only the interlock builds one. A new path to a
     driver's motion calls would have to break one of these rules."""
-    forbidden_modules = {"drivers.registry", "drivers.sim", "drivers.serial_link"}
+    forbidden_modules = {"benchjog.drivers.registry", "benchjog.drivers.sim", "benchjog.drivers.serial_link"}
     forbidden_names = {"Driver", "SimDriver", "SerialDriver", "create_driver", "load_driver_class"}
     offenders = []
     for path in sorted(ROOT.glob("*/**/*.py")):
@@ -214,7 +214,7 @@ def test_stop_never_waits_for_a_confirmation(gate):
 
 def test_program_actions_run_in_order(gate):
     start = gate.state().joints
-    from kinematics.planner import plan_move
+    from benchjog.kinematics.planner import plan_move
     a = plan_move(ARM, start, (150.0, 200.0))
     b = plan_move(ARM, a.segments[-1].joints, (100.0, 250.0))
     proposal = gate.propose_actions([a, SetOutput(1, True), Dwell(0.05), b], "test program")
@@ -319,7 +319,7 @@ def test_an_arm_resting_in_the_margin_band_may_move_out_but_not_further_in():
 def test_program_approvals_last_longer_than_single_moves(gate):
     clock = [0.0]
     g = Interlock(ARM, gate._Interlock__driver, journal=None, clock=lambda: clock[0])
-    from kinematics.planner import plan_move
+    from benchjog.kinematics.planner import plan_move
     a = plan_move(ARM, g.state().joints, (150.0, 200.0))
     single = g.propose_move((150.0, 200.0))
     late = 30.0  # between the 10 s and the 60 s limit
@@ -332,7 +332,7 @@ def test_program_approvals_last_longer_than_single_moves(gate):
 def _sim_driver(arm):
     """A simulated arm for an arm built in a test (Interlock.open takes registry names
     and arm files; tests may hand the gate a driver directly)."""
-    from drivers.sim import SimDriver
+    from benchjog.drivers.sim import SimDriver
     driver = SimDriver(arm, time_scale=50.0)
     driver.open()
     return driver
@@ -402,7 +402,7 @@ def test_a_stop_during_the_question_wins_over_a_later_yes(gate):
 
 
 def test_a_proposal_with_a_forged_verdict_is_refused(gate):
-    from drivers.interlock import Verdict
+    from benchjog.drivers.interlock import Verdict
     refused = gate.propose_jog("x", 60.0)  # over the jog cap
     assert not refused.ok
     forged = dataclasses.replace(refused, verdict=Verdict(True, ()))
@@ -411,7 +411,7 @@ def test_a_proposal_with_a_forged_verdict_is_refused(gate):
 
 
 def test_a_plan_made_from_another_start_is_refused(gate):
-    from kinematics.planner import plan_move
+    from benchjog.kinematics.planner import plan_move
     here = gate.state().joints
     elsewhere = (here[0] + math.radians(0.5), here[1] - math.radians(0.5))
     plan = plan_move(ARM, elsewhere, (150.0, 200.0))
@@ -425,8 +425,8 @@ def test_speed_caps_are_checked_on_the_durations_the_controller_is_sent(gate):
     # A 1.49 ms segment goes out as MOVE 1 (whole ms, PROTOCOL.md). Turning the elbow by
     # 0.1 deg moves the tool 0.279 mm (arc = angle x 160 mm link): 187 mm/s over the
     # planned 1.49 ms, within the 250 mm/s cap, but 279 mm/s over the 1 ms really run.
-    from kinematics.model import Segment
-    from kinematics.planner import plan_joint_move
+    from benchjog.kinematics.model import Segment
+    from benchjog.kinematics.planner import plan_joint_move
     here = gate.state().joints
     plan = plan_joint_move(ARM, here, (here[0], here[1] - math.radians(0.1)))
     step = Segment((here[0], here[1] - math.radians(0.1)), 0.00149)

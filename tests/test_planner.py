@@ -15,10 +15,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from console.armfile import builtin_arm
-from kinematics import planner, solve
-from kinematics.model import Branch
-from kinematics.solve import TargetError
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.kinematics import planner, solve
+from benchjog.kinematics.model import Branch
+from benchjog.kinematics.solve import TargetError
 
 PLANAR = builtin_arm("planar-bench")
 SCARA = builtin_arm("scara-bench")

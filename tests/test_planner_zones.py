@@ -1,5 +1,5 @@
 """Keep-out zones over the swept path: accepted plans never enter a zone (dense check
-of every link with kinematics.zones), refusals say where, clearances are reported."""
+of every link with benchjog.kinematics.zones), refusals say where, clearances are reported."""
 
 from __future__ import annotations
 
@@ -10,16 +10,16 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from console.armfile import builtin_arm
-from kinematics import planner, solve, sweep, zones
-from kinematics.model import Branch, Zone
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.kinematics import planner, solve, sweep, zones
+from benchjog.kinematics.model import Branch, Zone
 
 PLANAR = builtin_arm("planar-bench")
 SCARA = builtin_arm("scara-bench")
 
 
 def dense_zone_check(arm, start, plan, step_mm=0.25):
-    """Independent check: kinematics.zones at poses along every segment, spaced so
+    """Independent check: benchjog.kinematics.zones at poses along every segment, spaced so
     no point of the arm moves more than ``step_mm`` between them (a point at lever
     arm rho moves rho |dtheta|; the sum over the chain bounds it, from memory)."""
     q = np.vstack([start] + [s.joints for s in plan.segments])
@@ -111,7 +111,7 @@ def test_joint_sweep_through_a_zone_is_refused_though_both_ends_are_clear():
     plan = planner.plan_joint_move(arm, start, end)
     assert not plan.ok and plan.segments == ()
     assert "keep-out zone 'post'" in plan.problems[0]
-    # where: the first pose along the joint line that kinematics.zones finds inside
+    # where: the first pose along the joint line that benchjog.kinematics.zones finds inside
     taus = np.linspace(0, 1, 20001)
     first = next(t for t in taus
                  if zones.zone_problems(arm, np.array(start) + t * (np.subtract(end, start))))
@@ -145,7 +145,7 @@ def test_line_into_a_zone_is_refused_with_its_position():
     start = solve.joints_from_tool(PLANAR, start_xy).solution(Branch.ELBOW_UP).joints
     plan = planner.plan_line_move(PLANAR, start, target)
     assert not plan.ok and "parts-tray" in plan.problems[-1]
-    # independent: first pose on the line (scalar IK) that kinematics.zones puts in it
+    # independent: first pose on the line (scalar IK) that benchjog.kinematics.zones puts in it
     us = np.linspace(0, 1, 4001)
     first = next(u for u in us if zones.zone_problems(PLANAR, solve.joints_from_tool(
         PLANAR, (start_xy[0] + u * (target[0] - start_xy[0]), 80.0)).solution(Branch.ELBOW_UP).joints))
@@ -183,7 +183,7 @@ def test_vectorised_distances_match_kinematics_zones():
 
 
 def test_tool_speed_gain_bounds_the_jacobian():
-    # reference: the Jacobian of kinematics.solve (Lynch & Park 2017, example 5.1)
+    # reference: the Jacobian of benchjog.kinematics.solve (Lynch & Park 2017, example 5.1)
     rng = np.random.default_rng(3)
     for arm in (PLANAR, SCARA):
         qa = rng.uniform(-2, 2, (30, arm.n_joints))

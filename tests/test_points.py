@@ -15,12 +15,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from console.armfile import builtin_arm
-from console.points import PointBook, PointError, branch_of
-from console.safe_files import FileError, FileLocked, toml_text, write_atomic
-from kinematics.frames import UserFrame
-from kinematics.model import Branch
-from kinematics.solve import joints_from_tool, tool_from_joints
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.console.cell.points import PointBook, PointError, branch_of
+from benchjog.console.cell.safe_files import FileError, FileLocked, toml_text, write_atomic
+from benchjog.kinematics.frames import UserFrame
+from benchjog.kinematics.model import Branch
+from benchjog.kinematics.solve import joints_from_tool, tool_from_joints
 
 ROOT = Path(__file__).resolve().parents[1]
 PLANAR = builtin_arm("planar-bench")
@@ -220,8 +220,7 @@ def test_killed_writer_leaves_the_old_file_whole(tmp_path):
     write_atomic(path, "old = 1\n")
     script = textwrap.dedent(f"""
         import os, sys, time
-        sys.path.insert(0, {str(ROOT)!r})
-        from console import safe_files
+        from benchjog.console.cell import safe_files
         real_fsync = os.fsync
         def slow_fsync(fd):
             print("writing", flush=True)
@@ -265,9 +264,8 @@ def test_lock_held_by_another_process_and_dropped_when_it_dies(tmp_path):
     _sample_book(path).save()
     script = textwrap.dedent(f"""
         import sys, time
-        sys.path.insert(0, {str(ROOT)!r})
-        from console.armfile import builtin_arm
-        from console.points import PointBook
+        from benchjog.console.cell.armfile import builtin_arm
+        from benchjog.console.cell.points import PointBook
         book = PointBook.open({str(path)!r}, builtin_arm("planar-bench"))
         print("locked", flush=True)
         time.sleep(60)

@@ -7,9 +7,9 @@ from pathlib import Path
 
 import pytest
 
-from console.programs import (DwellStep, MoveStep, OutputStep, Program, ProgramError,
+from benchjog.console.cell.programs import (DwellStep, MoveStep, OutputStep, Program, ProgramError,
                               program_from_mapping)
-from console.safe_files import FileError
+from benchjog.console.cell.safe_files import FileError
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -6,10 +6,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from console.armfile import builtin_arm
-from drivers import protocol as P
-from drivers.emulator import Emulator
-from drivers.serial_link import SerialDriver
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.drivers import protocol as P
+from benchjog.drivers.emulator import Emulator
+from benchjog.drivers.serial_link import SerialDriver
 
 FUZZ = settings(max_examples=150, deadline=None)
 

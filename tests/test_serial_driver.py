@@ -11,13 +11,13 @@ import time
 import pytest
 import serial
 
-from console.armfile import builtin_arm
+from benchjog.console.cell.armfile import builtin_arm
 from driver_contract import DEG, DriverContract, events_of, ready, wait_for
-from drivers import protocol as P
-from drivers.base import ControllerError, LinkError, Mode
-from drivers.emulator import Emulator
-from drivers.serial_link import SerialDriver
-from kinematics.model import Segment
+from benchjog.drivers import protocol as P
+from benchjog.drivers.base import ControllerError, LinkError, Mode
+from benchjog.drivers.emulator import Emulator
+from benchjog.drivers.serial_link import SerialDriver
+from benchjog.kinematics.model import Segment
 
 ARM = builtin_arm("planar-bench")
 

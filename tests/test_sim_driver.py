@@ -7,12 +7,12 @@ from importlib import metadata
 
 import pytest
 
-from console.armfile import builtin_arm
+from benchjog.console.cell.armfile import builtin_arm
 from driver_contract import DEG, DriverContract
-from drivers import registry
-from drivers.base import ControllerError, Driver, DriverImportError, DriverNotFound, Mode
-from drivers.sim import SimDriver
-from kinematics.model import Segment
+from benchjog.drivers import registry
+from benchjog.drivers.base import ControllerError, Driver, DriverImportError, DriverNotFound, Mode
+from benchjog.drivers.sim import SimDriver
+from benchjog.kinematics.model import Segment
 
 
 class _SimRig:
@@ -147,7 +147,7 @@ def test_home_needs_enable_and_returns_to_count_zero():
 
 
 def test_not_open_is_a_link_error():
-    from drivers.base import LinkError
+    from benchjog.drivers.base import LinkError
     d = SimDriver(builtin_arm())
     with pytest.raises(LinkError):
         d.enable()
@@ -168,7 +168,7 @@ def test_builtin_names():
     names = registry.available_drivers()
     assert "sim" in names and "serial" in names
     assert isinstance(registry.create_driver("sim", builtin_arm()), SimDriver)
-    from drivers.serial_link import SerialDriver
+    from benchjog.drivers.serial_link import SerialDriver
     assert registry.load_driver_class("serial") is SerialDriver
 
 
@@ -187,7 +187,7 @@ def _fake_entry_points(monkeypatch, mapping):
 def test_entry_point_driver_is_found_and_loaded_lazily(monkeypatch, tmp_path):
     pkg = tmp_path / "bench_plugin_drv.py"
     pkg.write_text(
-        "from drivers.sim import SimDriver\n"
+        "from benchjog.drivers.sim import SimDriver\n"
         "class PluginDriver(SimDriver):\n"
         "    name = 'plugin'\n")
     monkeypatch.syspath_prepend(str(tmp_path))

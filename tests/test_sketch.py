@@ -1,5 +1,5 @@
 """The ASCII pose sketch: cells computed by hand from the textbook FK and the view fit
-documented in console/widgets/sketch.py."""
+documented in console/tui/widgets/sketch.py."""
 
 from __future__ import annotations
 
@@ -9,8 +9,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from console.armfile import builtin_arm
-from console.widgets.sketch import CELL_ASPECT, render_sketch, render_top
+from benchjog.console.cell.armfile import builtin_arm
+from benchjog.console.tui.widgets.sketch import CELL_ASPECT, render_sketch, render_top
 
 PLANAR = builtin_arm("planar-bench")   # a1 = 220, a2 = 160, zone parts-tray x -300..-200, y -70..70
 SCARA = builtin_arm("scara-bench")

@@ -9,9 +9,9 @@ import math
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from kinematics import zones
-from kinematics.model import Zone
-from console.armfile import builtin_arm
+from benchjog.kinematics import zones
+from benchjog.kinematics.model import Zone
+from benchjog.console.cell.armfile import builtin_arm
 
 coord = st.floats(-400, 400)
 
@@ -71,7 +71,7 @@ def test_zone_problems_agree_with_part_gaps(q1, q2, name, clearance):
 def test_a_tool_inside_a_zone_is_found_with_no_clearance():
     # The demo tray spans x -300..-200, |y| <= 70; the tool at (-250, 0) is inside it.
     arm = dataclasses.replace(builtin_arm("planar-bench"), link_clearance_mm=0.0)
-    from kinematics.solve import joints_from_tool
+    from benchjog.kinematics.solve import joints_from_tool
     result = joints_from_tool(arm, (-250.0, 0.0))
     assert result.solutions and all(not s.usable for s in result.solutions)
     assert all(any("parts-tray" in p for p in s.problems) for s in result.solutions)

@@ -28,10 +28,9 @@ import time
 import modern_robotics as mr
 import numpy as np
 
-sys.path.insert(0, os.path.join(os.path.dirname(__file__), "..", ".."))
 
-from console.armfile import builtin_arm  # noqa: E402
-from kinematics import planar, solve  # noqa: E402
+from benchjog.console.cell.armfile import builtin_arm  # noqa: E402
+from benchjog.kinematics import planar, solve  # noqa: E402
 
 
 def targets_for(arm, n: int, rng) -> np.ndarray:

@@ -17,11 +17,11 @@ from pathlib import Path
 
 import numpy as np
 
-sys.path[:0] = [str(Path(__file__).resolve().parents[2]), str(Path(__file__).resolve().parents[1])]
+sys.path[:0] = [str(Path(__file__).resolve().parents[1])]  # tests/ helpers; benchjog is installed
 
-from console.armfile import builtin_arm  # noqa: E402
-from kinematics import planner, solve  # noqa: E402
-from kinematics.model import Branch  # noqa: E402
+from benchjog.console.cell.armfile import builtin_arm  # noqa: E402
+from benchjog.kinematics import planner, solve  # noqa: E402
+from benchjog.kinematics.model import Branch  # noqa: E402
 from test_planner import chord_lower_bound  # noqa: E402
 
 

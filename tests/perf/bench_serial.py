@@ -22,14 +22,13 @@ import os
 import sys
 import time
 
-sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__)))))
 
-from console.armfile import builtin_arm  # noqa: E402
-from drivers import protocol as P  # noqa: E402
-from drivers.calibration import joints_from_counts  # noqa: E402
-from drivers.emulator import BITS_PER_BYTE, Emulator  # noqa: E402
-from drivers.serial_link import SerialDriver  # noqa: E402
-from kinematics.model import Segment  # noqa: E402
+from benchjog.console.cell.armfile import builtin_arm  # noqa: E402
+from benchjog.drivers import protocol as P  # noqa: E402
+from benchjog.drivers.calibration import joints_from_counts  # noqa: E402
+from benchjog.drivers.emulator import BITS_PER_BYTE, Emulator  # noqa: E402
+from benchjog.drivers.serial_link import SerialDriver  # noqa: E402
+from benchjog.kinematics.model import Segment  # noqa: E402
 
 
 def _counts(k: int) -> tuple[int, int]:

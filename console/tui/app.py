@@ -23,17 +23,17 @@ from textual import work
 from textual.app import App
 from textual.binding import Binding
 
-from console.messages import ControlDone, MotionDone, StateUpdated
-from console.screens.confirm import ConfirmMoveScreen
-from console.screens.jog import JogScreen
-from drivers.interlock import Confirmer, Interlock, Proposal
-from kinematics.model import Arm, Branch
-from kinematics.planner import nearest_equivalent
-from kinematics.solve import IKResult, joints_from_tool, pose_warnings, tool_from_joints
+from benchjog.console.tui.messages import ControlDone, MotionDone, StateUpdated
+from benchjog.console.tui.screens.confirm import ConfirmMoveScreen
+from benchjog.console.tui.screens.jog import JogScreen
+from benchjog.drivers.interlock import Confirmer, Interlock, Proposal
+from benchjog.kinematics.model import Arm, Branch
+from benchjog.kinematics.planner import nearest_equivalent
+from benchjog.kinematics.solve import IKResult, joints_from_tool, pose_warnings, tool_from_joints
 
 POLL_S = 0.15               # the heartbeat / state refresh period
 STEPS = (0.1, 1.0, 10.0)    # jog steps: mm (Cartesian), deg (roll and revolute joints), mm (quill)
-TEACH_MODULE = "console.screens.teach"
+TEACH_MODULE = "benchjog.console.tui.screens.teach"
 BLOCKING_MODES = ("ESTOP", "FAULT")
 
 
@@ -530,8 +530,8 @@ def make_app(arm: Arm, interlock: Interlock, *, points_path: Path | str | None =
 def run_console(args) -> int:
     """``benchjog`` with no subcommand: the console on the simulated arm, or on a
     controller over serial when ``--port`` is given."""
-    from console.armfile import load_arm
-    from console.cli_common import open_gate
+    from benchjog.console.cell.armfile import load_arm
+    from benchjog.console.cell.link import open_gate
 
     arm = load_arm(args.arm)
     gate = open_gate(arm, args, require_link=False)  # not connected: shown, r retries

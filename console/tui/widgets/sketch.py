@@ -26,9 +26,9 @@ from dataclasses import dataclass
 from rich.text import Text
 from textual.widget import Widget
 
-from kinematics.model import Arm, Zone
-from kinematics.scara import flange_z_mm
-from kinematics.solve import tool_from_joints
+from benchjog.kinematics.model import Arm, Zone
+from benchjog.kinematics.scara import flange_z_mm
+from benchjog.kinematics.solve import tool_from_joints
 
 CELL_ASPECT = 2.0   # a terminal cell is about twice as tall as wide (common fonts, from memory)
 

@@ -42,12 +42,12 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from kinematics.armspec import number_problem
-from console.safe_files import FileError, FileLock, read_text, real_path, toml_text, write_atomic
-from kinematics.frames import FrameError, UserFrame, base_from_frame, frame_from_base, \
+from benchjog.kinematics.armspec import number_problem
+from benchjog.console.cell.safe_files import FileError, FileLock, read_text, real_path, toml_text, write_atomic
+from benchjog.kinematics.frames import FrameError, UserFrame, base_from_frame, frame_from_base, \
     frame_from_two_points
-from kinematics.model import Arm, Branch
-from kinematics.solve import joints_from_tool, tool_from_joints
+from benchjog.kinematics.model import Arm, Branch
+from benchjog.kinematics.solve import joints_from_tool, tool_from_joints
 
 FILE_KIND = "benchjog-points"
 FILE_VERSION = 1
@@ -69,7 +69,7 @@ def utc_now_iso() -> str:
 def branch_of(arm: Arm, joints: Sequence[float]) -> Branch:
     """The IK branch of a joint pose: elbow-down when the elbow's DH theta has
     sin > 0, elbow-up when sin < 0; a stretched or folded elbow (sin = 0) counts as
-    elbow-down when theta >= 0 (the convention of kinematics.solve)."""
+    elbow-down when theta >= 0 (the convention of benchjog.kinematics.solve)."""
     t2 = joints[1] + arm.joints[1].offset_rad
     s = math.sin(t2)
     if abs(s) < 1e-12:

@@ -8,7 +8,7 @@ the interlock, the workers and the state.
 from __future__ import annotations
 
 from rich.text import Text
-from console.caution import CAUTION
+from benchjog.console.caution import CAUTION
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
@@ -16,13 +16,13 @@ from textual.css.query import NoMatches
 from textual.screen import Screen
 from textual.widgets import Footer, Static
 
-from console.widgets.branch_table import BranchTable
-from console.widgets.joint_readout import JointReadout
-from console.widgets.sketch import PoseSketch
-from console.widgets.status import (Banner, EventLog, JogStatus, LinkStatus, WarningsPanel,
+from benchjog.console.tui.widgets.branch_table import BranchTable
+from benchjog.console.tui.widgets.joint_readout import JointReadout
+from benchjog.console.tui.widgets.sketch import PoseSketch
+from benchjog.console.tui.widgets.status import (Banner, EventLog, JogStatus, LinkStatus, WarningsPanel,
                                     banner_lines, link_words)
-from console.widgets.target_input import TargetInput
-from kinematics.model import Arm
+from benchjog.console.tui.widgets.target_input import TargetInput
+from benchjog.kinematics.model import Arm
 
 CARTESIAN_AXES = ("x", "y", "z", "roll")
 SCARA_ONLY = ("z", "roll", "j3", "j4")

@@ -1,4 +1,7 @@
-"""Pieces shared by the subcommand modules: common options, number parsing, output."""
+"""Pieces shared by the subcommand modules: common options, number parsing, output.
+
+``open_gate`` (console/cell/link.py) and ``round_out`` (console/numbers.py) are shared
+with the console and re-exported here for the subcommands."""
 
 from __future__ import annotations
 
@@ -8,7 +11,9 @@ import math
 import sys
 from typing import Any
 
-from console.errors import UsageError
+from benchjog.console.cell.link import open_gate
+from benchjog.console.errors import UsageError
+from benchjog.console.numbers import round_out
 
 
 def add_arm_option(parser: argparse.ArgumentParser) -> None:
@@ -51,10 +56,6 @@ def print_json(data: Any) -> None:
     sys.stdout.write("\n")
 
 
-def round_out(value: float, digits: int = 9) -> float:
-    """Round for output, and never print -0.0."""
-    value = round(value, digits)
-    return 0.0 if value == 0 else value
 
 
 def add_journal_option(parser: argparse.ArgumentParser) -> None:
@@ -65,28 +66,10 @@ def add_journal_option(parser: argparse.ArgumentParser) -> None:
                         help="serial: write every protocol line sent and received, timestamped")
 
 
-def open_gate(arm, args: argparse.Namespace, *, require_link: bool = True):
-    """The interlock on the simulated arm without ``--port``, on the serial driver with
-    one (``--baud``, ``--trace``); the journal from ``--journal`` or the default file.
-    ``require_link=False`` (the console) opens even when the port cannot be reached."""
-    from drivers.interlock import Interlock  # the gate, and only the gate, owns a driver
-
-    journal = getattr(args, "journal", None) or None
-    port = getattr(args, "port", None)
-    if port is not None and not port.strip():
-        raise UsageError("--port: empty (leave it out for the simulated arm)")
-    if not port:
-        return Interlock.open(arm, "sim", journal=journal)
-    options = {"port": port, "baud": getattr(args, "baud", 115200)}
-    if getattr(args, "trace", None):
-        options["trace"] = args.trace
-    return Interlock.open(arm, "serial", journal=journal, require_link=require_link, **options)
-
-
 def exit_code_of(result) -> int:
     """0 done; 3 when the link or the controller failed (a halt that is not a person's
     stop); 1 for the rest (cancelled, refused, expired, stopped)."""
-    from console import exit_codes
+    from benchjog.console import exit_codes
 
     if result.completed:
         return exit_codes.OK
@@ -130,3 +113,7 @@ def drives_off(gate) -> None:
         gate.disable()
     except Exception:  # noqa: BLE001 - close() follows and reports nothing new
         pass
+
+
+__all__ = ["add_arm_option", "add_journal_option", "add_port_options", "baud_rate", "drives_off",
+           "exit_code_of", "open_gate", "parse_number", "print_json", "round_out", "run_stoppable"]

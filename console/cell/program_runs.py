@@ -1,36 +1,28 @@
-"""``benchjog check`` and ``benchjog run``: programs of taught points.
+"""Dry runs and runs of a program of taught points, for the command line and the console.
 
-``check`` (the dry run) plans every step through the motion planner, each from where
-the step before leaves the arm (the first from the arm's home pose, where the simulated
-arm starts), and runs the interlock's static checks; it reports per step and in total:
-duration, warnings, closest approaches (soft limits, singular pose, keep-out zones),
-branch changes and every problem with its step number. ``run`` plans the same way
-from the arm's current position, shows the whole plan once, asks once, and runs it.
-
-The same functions serve the console's teach screen: :func:`plan_program`,
-:func:`report_lines`, :func:`report_json`, :func:`run_program`.
+:func:`plan_program` plans every step through the motion planner, each from where the
+step before leaves the arm, and runs the interlock's static checks; it reports per step
+and in total: duration, warnings, closest approaches (soft limits, singular pose,
+keep-out zones), branch changes and every problem with its step number.
+:func:`run_program` plans the same way from the arm's current position, proposes the
+whole program once and runs it after one yes. ``benchjog check``/``run`` and the
+teach screen both call these.
 """
 
 from __future__ import annotations
 
-import argparse
 import math
-import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from console import exit_codes
-from console.armfile import load_arm
-from console.cli_common import (add_arm_option, add_journal_option, add_port_options, drives_off,
-                                exit_code_of, open_gate, print_json, round_out, run_stoppable)
-from console.confirm_cli import PromptConfirmer
-from console.points import PointBook, PointError
-from console.programs import DwellStep, MoveStep, OutputStep, Program
-from drivers.interlock import Confirmer, Dwell, Interlock, Proposal, RunResult, SetOutput
-from kinematics.model import Arm
-from kinematics.planner import PlanSummary, plan_move
-from kinematics.solve import TargetError
+from benchjog.console.numbers import round_out
+from benchjog.console.cell.points import PointBook, PointError
+from benchjog.console.cell.programs import DwellStep, MoveStep, OutputStep, Program
+from benchjog.drivers.interlock import Confirmer, Dwell, Interlock, Proposal, RunResult, SetOutput
+from benchjog.kinematics.model import Arm
+from benchjog.kinematics.planner import PlanSummary, plan_move
+from benchjog.kinematics.solve import TargetError
 
 
 @dataclass
@@ -330,61 +322,3 @@ def result_words(report: ProgramReport, result: RunResult) -> str:
         s = report.steps[result.step]
         return f"{result.outcome} at step {s.number} ({s.step.describe()}): {result.detail}"
     return result.detail
-
-
-# --- the commands -------------------------------------------------------------------
-
-def register(sub: argparse._SubParsersAction) -> None:
-    check = sub.add_parser("check", help="dry-run a program of taught points and report",
-                           description="Plan every step of a program (from the arm's home pose) "
-                           "and report durations, warnings, closest approaches, branch changes "
-                           "and problems. Nothing moves. Exit 0: no problems; 1: problems; "
-                           "2: bad input.")
-    check.add_argument("program", metavar="PROGRAM", help="program file (TOML)")
-    add_arm_option(check)
-    check.add_argument("--json", action="store_true", help="machine-readable output")
-    check.set_defaults(func=cmd_check)
-
-    run = sub.add_parser("run", help="run a program for real after one confirmation",
-                         description="Plan the whole program from the current position, print "
-                         "the plan, ask once, run it (the simulated arm when no port). A step "
-                         "that fails halts the program and is named.")
-    run.add_argument("program", metavar="PROGRAM", help="program file (TOML)")
-    add_arm_option(run)
-    add_port_options(run)
-    add_journal_option(run)
-    run.set_defaults(func=cmd_run)
-
-
-def cmd_check(args: argparse.Namespace) -> int:
-    arm = load_arm(args.arm)
-    program, book = load_program(args.program, arm)  # bad files: one line, exit 2 (errors.py)
-    report = plan_program(arm, program, book)
-    if args.json:
-        print_json(report_json(report))
-    else:
-        print("\n".join(report_lines(report)))
-    return exit_codes.OK if report.ok else exit_codes.REFUSED
-
-
-def cmd_run(args: argparse.Namespace) -> int:
-    arm = load_arm(args.arm)
-    program, book = load_program(args.program, arm)  # bad files: one line, exit 2 (errors.py)
-    confirmer = PromptConfirmer(arm, question="Run this program?")
-    with open_gate(arm, args) as gate:
-        gate.enable()
-        try:
-            report, result = run_stoppable(
-                gate, lambda: run_program(gate, arm, program, book, confirmer))
-        finally:
-            drives_off(gate)
-    if not report.ok:
-        for line in report_lines(report):
-            print(line, file=sys.stderr)
-    print(result_words(report, result))
-    return exit_code_of(result)
-
-
-__all__ = ["plan_program", "report_lines", "report_json", "run_program", "load_program",
-           "propose_program", "result_words", "exit_code_of", "ProgramReport", "StepReport", "register",
-           "cmd_check", "cmd_run"]

@@ -167,7 +167,7 @@ class FileLock:
     ...     FileLock(d / "points.toml").acquire()  # doctest: +ELLIPSIS
     Traceback (most recent call last):
     ...
-    console.safe_files.FileLocked: ...points.toml: locked by another console (pid ...)
+    benchjog.console.cell.safe_files.FileLocked: ...points.toml: locked by another console (pid ...)
     """
 
     def __init__(self, path: str | Path):

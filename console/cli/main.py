@@ -1,6 +1,6 @@
 """The ``benchjog`` command line: argparse subcommands, one ``cmd_<name>`` each.
 
-Subcommands live in ``console/cmd_*.py`` modules; each has ``register(subparsers)``
+Subcommands live in ``console/cli/cmd_*.py`` modules; each has ``register(subparsers)``
 that adds its parsers with ``set_defaults(func=cmd_<name>)``. ``main`` turns the known
 errors into one stderr line and an exit code (console/exit_codes.py), never a traceback.
 """
@@ -12,17 +12,16 @@ import importlib
 import os
 import sys
 from collections.abc import Sequence
-from importlib import metadata
 
-from console import exit_codes
-from console.cli_common import baud_rate
-from console.errors import known_error_code
+from benchjog.console import exit_codes
+from benchjog.console.cli.common import baud_rate
+from benchjog.console.errors import known_error_code
 
 COMMAND_MODULES = (
-    "console.cmd_kinematics",
-    "console.cmd_drivers",
-    "console.cmd_motion",
-    "console.cmd_program",
+    "benchjog.console.cli.cmd_kinematics",
+    "benchjog.console.cli.cmd_drivers",
+    "benchjog.console.cli.cmd_motion",
+    "benchjog.console.cli.cmd_program",
 )
 
 
@@ -34,10 +33,8 @@ class _Parser(argparse.ArgumentParser):
 
 
 def version() -> str:
-    try:
-        return metadata.version("benchjog")
-    except metadata.PackageNotFoundError:
-        return "0+unknown"
+    from benchjog import __version__
+    return __version__
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -98,7 +95,7 @@ def _console_or_overview(parser: argparse.ArgumentParser, args: argparse.Namespa
         print("benchjog: no terminal here, so the console did not open; the commands are "
               "listed above", file=sys.stderr)
         return exit_codes.OK
-    from console.app import run_console  # Textual loads only when the console opens
+    from benchjog.console.tui.app import run_console  # Textual loads only when the console opens
 
     return run_console(args)
 

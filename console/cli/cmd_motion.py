@@ -6,15 +6,15 @@ from __future__ import annotations
 import argparse
 import sys
 
-from console.armfile import load_arm
-from console.cli_common import (add_arm_option, add_journal_option, add_port_options, drives_off,
+from benchjog.console.cell.armfile import load_arm
+from benchjog.console.cli.common import (add_arm_option, add_journal_option, add_port_options, drives_off,
                                 exit_code_of, open_gate, run_stoppable)
-from console.cmd_kinematics import target_from_args
-from console.confirm_cli import PromptConfirmer
-from console.errors import UsageError
-from drivers.interlock import RunResult
-from kinematics.model import Branch
-from kinematics.planner import JOINT, LINE
+from benchjog.console.cli.cmd_kinematics import target_from_args
+from benchjog.console.cli.confirm import PromptConfirmer
+from benchjog.console.errors import UsageError
+from benchjog.drivers.interlock import RunResult
+from benchjog.kinematics.model import Branch
+from benchjog.kinematics.planner import JOINT, LINE
 
 
 def register(sub: argparse._SubParsersAction) -> None:

@@ -19,7 +19,7 @@ def banner_lines(state, error: str | None = None, reach_warning: str | None = No
                  ) -> list[tuple[str, str]]:
     """The conditions that block or endanger motion, most serious first, as
     (level, text) with level ``estop`` (red) or ``warn`` (yellow). ``state`` is a
-    drivers.base.DriverState or None (never read)."""
+    benchjog.drivers.base.DriverState or None (never read)."""
     out: list[tuple[str, str]] = []
     if error or state is None or not state.is_open:
         why = error or ("no state read yet" if state is None else "the driver is closed")

@@ -6,8 +6,8 @@ import tomllib
 from importlib import resources
 from pathlib import Path
 
-from kinematics.armspec import ArmSpecError, arm_from_mapping
-from kinematics.model import Arm
+from benchjog.kinematics.armspec import ArmSpecError, arm_from_mapping
+from benchjog.kinematics.model import Arm
 
 BUILTIN_ARMS = ("planar-bench", "scara-bench")
 DEFAULT_ARM = "planar-bench"
@@ -25,7 +25,7 @@ def builtin_arm(name: str = DEFAULT_ARM) -> Arm:
     """One of the demo arms shipped with the package."""
     if name not in BUILTIN_ARMS:
         raise ArmSpecError(name, "arm", f"no built-in arm of that name ({', '.join(BUILTIN_ARMS)})")
-    text = resources.files("console.arms").joinpath(f"{name}.toml").read_text(encoding="utf-8")
+    text = resources.files("benchjog.console.cell.arms").joinpath(f"{name}.toml").read_text(encoding="utf-8")
     return _arm_from_text(text, name)
 
 

@@ -9,8 +9,8 @@ from rich.table import Table
 from rich.text import Text
 from textual.widgets import Static
 
-from kinematics.model import Arm
-from kinematics.solve import tool_from_joints
+from benchjog.kinematics.model import Arm
+from benchjog.kinematics.solve import tool_from_joints
 
 ERROR_WARN_DEG = 0.5   # an error this large is shown in yellow (deg, or mm on the quill)
 
@@ -33,7 +33,7 @@ def readout_rows(arm: Arm, actual: Sequence[float] | None, target: Sequence[floa
     """Rows (name, target, actual, error = target - actual) in display units: the tool
     pose first, then each joint. Missing values show as ``-``.
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> rows = readout_rows(builtin_arm("planar-bench"), (0.0, math.pi / 2), None)
     >>> rows[0], rows[4]
     (('x mm', '-', '220.00', '-'), ('elbow deg', '-', '90.00', '-'))

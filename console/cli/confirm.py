@@ -10,8 +10,8 @@ from __future__ import annotations
 import sys
 from typing import TextIO
 
-from drivers.interlock import Confirmer, Proposal
-from kinematics.model import Arm
+from benchjog.drivers.interlock import Confirmer, Proposal
+from benchjog.kinematics.model import Arm
 
 YES = ("y", "yes")
 

@@ -12,8 +12,8 @@ from textual import events
 from textual.message import Message
 from textual.widgets import Input
 
-from kinematics.model import Arm
-from kinematics.solve import TargetError, target_from_display
+from benchjog.kinematics.model import Arm
+from benchjog.kinematics.solve import TargetError, target_from_display
 
 
 def target_hint(arm: Arm) -> str:
@@ -27,7 +27,7 @@ def target_from_text(arm: Arm, text: str) -> tuple[float, ...]:
         TargetError: one line saying what is wrong (empty, not a number, wrong count,
             not finite).
 
-    >>> from console.armfile import builtin_arm
+    >>> from benchjog.console.cell.armfile import builtin_arm
     >>> target_from_text(builtin_arm("planar-bench"), "120, 80")
     (120.0, 80.0)
     >>> [round(v, 6) for v in target_from_text(builtin_arm("scara-bench"), "200 100 90 180")]

@@ -30,12 +30,12 @@ from textual.screen import ModalScreen, Screen
 from textual.css.query import NoMatches
 from textual.widgets import Button, DataTable, Footer, Input, Label, Select, Static
 
-from console.cmd_program import plan_program, report_lines, result_words, run_program
-from console.points import BASE, PointBook, PointError
-from console.programs import DwellStep, MoveStep, OutputStep, Program, ProgramError
-from console.safe_files import FileError, FileLock
-from drivers.interlock import Confirmer, Interlock
-from kinematics.model import Arm
+from benchjog.console.cell.program_runs import plan_program, report_lines, result_words, run_program
+from benchjog.console.cell.points import BASE, PointBook, PointError
+from benchjog.console.cell.programs import DwellStep, MoveStep, OutputStep, Program, ProgramError
+from benchjog.console.cell.safe_files import FileError, FileLock
+from benchjog.drivers.interlock import Confirmer, Interlock
+from benchjog.kinematics.model import Arm
 
 SPEEDS = (100.0, 50.0, 25.0, 10.0)
 
@@ -590,7 +590,7 @@ class TeachScreen(Screen):
     # --- motion (through the gate, in a thread worker) ------------------------------------
 
     def _confirmer(self) -> Confirmer:
-        """The console's own confirmer (console/app.py ScreenConfirmer)."""
+        """The console's own confirmer (console/tui/app.py ScreenConfirmer)."""
         return self.app.confirmer
 
     def action_goto(self) -> None:

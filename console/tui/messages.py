@@ -16,7 +16,7 @@ class StateUpdated(Message):
     """A fresh driver state and the events since the last poll (or the error that
     prevented reading them)."""
 
-    state: Any                      # drivers.base.DriverState | None
+    state: Any                      # benchjog.drivers.base.DriverState | None
     events: list = field(default_factory=list)
     error: str | None = None
 
@@ -25,7 +25,7 @@ class StateUpdated(Message):
 class MotionDone(Message):
     """A motion request ended: refused at planning, ran, or failed with an error."""
 
-    request: Any                    # console.app.MotionRequest
+    request: Any                    # benchjog.console.tui.app.MotionRequest
     words: str                      # what was asked, for people
     outcome: str                    # done, cancelled, refused, halted, stopped, expired, error
     detail: str                     # one line

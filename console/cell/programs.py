@@ -41,8 +41,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Union
 
-from kinematics.armspec import number_problem
-from console.safe_files import FileError, FileLock, read_text, real_path, toml_text, write_atomic
+from benchjog.kinematics.armspec import number_problem
+from benchjog.console.cell.safe_files import FileError, FileLock, read_text, real_path, toml_text, write_atomic
 
 FILE_KIND = "benchjog-program"
 FILE_VERSION = 1

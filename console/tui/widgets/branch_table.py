@@ -9,8 +9,8 @@ from rich.text import Text
 from textual.message import Message
 from textual.widgets import Static
 
-from kinematics.model import Arm, Branch
-from kinematics.solve import IKResult
+from benchjog.kinematics.model import Arm, Branch
+from benchjog.kinematics.solve import IKResult
 
 ACTIVE_MARK = ">"
 BRANCH_ORDER = (Branch.ELBOW_UP, Branch.ELBOW_DOWN)
@@ -21,8 +21,8 @@ def branch_rows(arm: Arm, ik: IKResult | None, active: Branch | None) -> list[tu
     and a status row (``usable`` or the problems in words). Used by the widget and
     the tests.
 
-    >>> from console.armfile import builtin_arm
-    >>> from kinematics.solve import joints_from_tool
+    >>> from benchjog.console.cell.armfile import builtin_arm
+    >>> from benchjog.kinematics.solve import joints_from_tool
     >>> arm = builtin_arm("planar-bench")
     >>> rows = branch_rows(arm, joints_from_tool(arm, (220.0, 160.0)), Branch.ELBOW_DOWN)
     >>> rows[0], rows[2]

@@ -8,13 +8,13 @@ import math
 from rich.console import Console
 from rich.table import Table
 
-from console import exit_codes
-from console.armfile import load_arm
-from console.cli_common import add_arm_option, parse_number, print_json, round_out
-from console.errors import UsageError
-from kinematics.limits import wrap_pi
-from kinematics.model import Arm
-from kinematics.solve import (IKResult, joints_from_tool, pose_warnings, target_from_display,
+from benchjog.console import exit_codes
+from benchjog.console.cell.armfile import load_arm
+from benchjog.console.cli.common import add_arm_option, parse_number, print_json, round_out
+from benchjog.console.errors import UsageError
+from benchjog.kinematics.limits import wrap_pi
+from benchjog.kinematics.model import Arm
+from benchjog.kinematics.solve import (IKResult, joints_from_tool, pose_warnings, target_from_display,
                               tool_from_joints)
 
 

@@ -5,8 +5,8 @@ from __future__ import annotations
 import argparse
 import sys
 
-from console import exit_codes
-from console.armfile import load_arm
+from benchjog.console import exit_codes
+from benchjog.console.cell.armfile import load_arm
 
 
 def register(subparsers) -> None:
@@ -64,12 +64,12 @@ def _non_negative(text: str) -> float:
 
 
 def cmd_emulate(args: argparse.Namespace) -> int:
-    from drivers.emulator import EmulatorOptions, serve
+    from benchjog.drivers.emulator import EmulatorOptions, serve
 
     arm = load_arm(getattr(args, "arm", None))
     baud = getattr(args, "baud", 115200)
     if baud < 1:
-        from console.errors import UsageError
+        from benchjog.console.errors import UsageError
         raise UsageError(f"--baud must be positive, got {baud}")
     options = EmulatorOptions(
         queue_depth=args.queue, home_s=args.home_s, baud=baud, pace=args.pace,

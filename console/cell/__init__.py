@@ -1,0 +1,1 @@
+"""The cell's files: arm files, taught points, programs and their dry runs, safe saving."""

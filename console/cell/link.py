@@ -1,0 +1,26 @@
+"""Opening the interlock on the cell's arm: the simulated arm, or a controller over serial."""
+
+from __future__ import annotations
+
+import argparse
+
+from benchjog.console.errors import UsageError
+
+
+def open_gate(arm, args: argparse.Namespace, *, require_link: bool = True):
+    """The interlock on the simulated arm without ``--port``, on the serial driver with
+    one (``--baud``, ``--trace``); the journal from ``--journal`` or the default file.
+    ``require_link=False`` (the console) opens even when the port cannot be reached."""
+    from benchjog.drivers.interlock import Interlock  # the gate, and only the gate, owns a driver
+
+    journal = getattr(args, "journal", None) or None
+    port = getattr(args, "port", None)
+    if port is not None and not port.strip():
+        raise UsageError("--port: empty (leave it out for the simulated arm)")
+    if not port:
+        return Interlock.open(arm, "sim", journal=journal)
+    options = {"port": port, "baud": getattr(args, "baud", 115200)}
+    if getattr(args, "trace", None):
+        options["trace"] = args.trace
+    return Interlock.open(arm, "serial", journal=journal, require_link=require_link, **options)
+

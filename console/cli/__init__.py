@@ -1,0 +1,1 @@
+"""The command line: ``benchjog`` and its subcommands (``main.main`` is the entry)."""

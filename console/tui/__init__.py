@@ -1,0 +1,1 @@
+"""The Textual console: the app, its screens, widgets, messages and styles."""
