@@ -35,7 +35,7 @@ from benchjog.drivers.journal import Journal, NullJournal
 from benchjog.drivers.registry import create_driver
 from benchjog.kinematics.limits import fmt
 from benchjog.kinematics.model import Arm, Segment
-from benchjog.kinematics.planner import JOINT, Plan, plan_jog, plan_joint_move, plan_move
+from benchjog.kinematics.planner import JOINT, LINE_TOLERANCE_MM, Plan, plan_jog, plan_joint_move, plan_move
 from benchjog.kinematics.solve import check_joints, tool_from_joints
 
 FRESH_S = 0.5              # the driver's position must be newer than this
@@ -419,10 +419,10 @@ class Interlock:
         return proposal
 
     def propose_move(self, target: Sequence[float], *, branch: Any = None, path: str = JOINT,
-                     speed_pct: float = 100.0) -> Proposal:
+                     speed_pct: float = 100.0, tolerance_mm: float = LINE_TOLERANCE_MM) -> Proposal:
         start = self.state().joints
         plan = plan_move(self._arm, start, tuple(target), branch=branch, path=path,
-                         speed_pct=speed_pct)
+                         speed_pct=speed_pct, tolerance_mm=tolerance_mm)
         words = self._target_words(tuple(target))
         chosen = plan.summary.branch.value if plan.summary.branch else "no branch"
         return self._propose(f"move to {words} ({chosen}, {path} path, {speed_pct:g} %)", [plan],

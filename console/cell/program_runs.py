@@ -101,6 +101,10 @@ def _step_target(book: PointBook, step: MoveStep) -> tuple[Any, tuple[float, ...
     return point, book.base_target(point)
 
 
+def _tolerance(step: MoveStep) -> dict[str, float]:
+    return {} if step.tolerance_mm is None else {"tolerance_mm": step.tolerance_mm}
+
+
 def plan_program(arm: Arm, program: Program, book: PointBook,
                  start_joints: tuple[float, ...] | None = None,
                  gate: Interlock | None = None) -> ProgramReport:
@@ -126,7 +130,7 @@ def plan_program(arm: Arm, program: Program, book: PointBook,
                 report.target = target
                 try:
                     plan = plan_move(arm, here, target, branch=point.branch, path=step.path,
-                                     speed_pct=step.speed_pct)
+                                     speed_pct=step.speed_pct, **_tolerance(step))
                 except TargetError as exc:
                     report.problems.append(str(exc))
                     continue

@@ -14,7 +14,9 @@ from benchjog.console.cli.confirm import PromptConfirmer
 from benchjog.console.errors import UsageError
 from benchjog.drivers.interlock import RunResult
 from benchjog.kinematics.model import Branch
-from benchjog.kinematics.planner import JOINT, LINE
+from benchjog.kinematics.planner import (JOINT, LINE, LINE_TOLERANCE_MAX_MM, LINE_TOLERANCE_MIN_MM,
+                                         LINE_TOLERANCE_MM, check_tolerance)
+from benchjog.kinematics.solve import TargetError
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -30,6 +32,9 @@ def register(sub: argparse._SubParsersAction) -> None:
                       help="joint-interpolated (default) or a straight tool line")
     move.add_argument("--speed", type=float, default=100.0, metavar="PCT",
                       help="speed override in percent (default 100)")
+    move.add_argument("--tolerance", type=float, default=None, metavar="MM",
+                      help=f"--path line: how far the tool may leave the straight line, mm "
+                      f"(default {LINE_TOLERANCE_MM:g}, {LINE_TOLERANCE_MIN_MM:g}..{LINE_TOLERANCE_MAX_MM:g})")
     add_arm_option(move)
     add_port_options(move)
     add_journal_option(move)
@@ -53,11 +58,19 @@ def cmd_move(args: argparse.Namespace) -> int:
     if not 0 < args.speed <= 100:
         raise UsageError(f"--speed: must be in (0, 100] ({args.speed:g})")
     branch = Branch(args.branch) if args.branch else None
+    options = {}
+    if args.tolerance is not None:
+        if args.path != LINE:
+            raise UsageError("--tolerance: for --path line only")
+        try:
+            options["tolerance_mm"] = check_tolerance(args.tolerance)
+        except TargetError as exc:
+            raise UsageError(f"--tolerance: {exc}") from None
     with open_gate(arm, args) as gate:
         gate.enable()
         try:
             proposal = gate.propose_move(target, branch=branch, path=args.path,
-                                         speed_pct=args.speed)
+                                         speed_pct=args.speed, **options)
             result = run_stoppable(gate, lambda: gate.execute(
                 proposal, PromptConfirmer(arm, question="Move?")))
         finally:
