@@ -30,9 +30,12 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from benchjog.drivers.base import Driver, DriverEvent, DriverState, LinkError
 from benchjog.drivers.journal import Journal, NullJournal
 from benchjog.drivers.registry import create_driver
+from benchjog.kinematics import sweep
 from benchjog.kinematics.limits import fmt
 from benchjog.kinematics.model import Arm, Segment
 from benchjog.kinematics.planner import JOINT, LINE_TOLERANCE_MM, Plan, plan_jog, plan_joint_move, plan_move
@@ -314,6 +317,13 @@ class Interlock:
         arm = self._arm
         reasons: list[str] = []
         previous = tuple(start)
+        well_formed = 0  # the segments before the first malformed one get their tool speeds at once
+        for seg in segments:
+            if len(seg.joints) != arm.n_joints or not all(math.isfinite(v) for v in seg.joints) \
+                    or not (0.0005 <= seg.duration_s <= 60.0):
+                break
+            well_formed += 1
+        tool_speeds = self._tool_speeds(previous, segments[:well_formed])
         for n, seg in enumerate(segments, 1):
             if len(seg.joints) != arm.n_joints or not all(math.isfinite(v) for v in seg.joints):
                 return [f"segment {n}: malformed joint values"]
@@ -333,7 +343,7 @@ class Interlock:
                         f"segment {n}: {joint.name} speed {joint.to_display(speed):.1f} "
                         f"{joint.unit}/s exceeds its cap {joint.to_display(joint.max_speed):g} "
                         f"{joint.unit}/s")
-            tool_speed = self._tool_speed(previous, seg.joints, wire_s)
+            tool_speed = float(tool_speeds[n - 1])
             if tool_speed > arm.tool_speed_max_mm_s * SPEED_TOL:
                 reasons.append(f"segment {n}: tool speed {tool_speed:.1f} mm/s exceeds the cap "
                                f"{arm.tool_speed_max_mm_s:g} mm/s")
@@ -342,18 +352,21 @@ class Interlock:
             previous = seg.joints
         return reasons
 
-    def _tool_speed(self, start: Sequence[float], end: Sequence[float], duration_s: float,
-                    ) -> float:
-        """Peak tool speed over a segment, bounded by sub-sampled chords (mm/s)."""
-        arm = self._arm
-        points = []
-        for k in range(TOOL_SPEED_SAMPLES + 1):
-            f = k / TOOL_SPEED_SAMPLES
-            values = tuple(a + (b - a) * f for a, b in zip(start, end))
-            pose = tool_from_joints(arm, values)
-            points.append(pose[:3] if arm.is_scara else pose[:2])
-        dt = duration_s / TOOL_SPEED_SAMPLES
-        return max(math.dist(p, q) / dt for p, q in zip(points, points[1:]))
+    def _tool_speeds(self, start: Sequence[float], segments: Sequence[Segment]) -> np.ndarray:
+        """Peak tool speed over each segment (mm/s) at its wire duration, bounded by
+        sub-sampled chords: the tool point at TOOL_SPEED_SAMPLES + 1 poses along each
+        joint-linear segment, by the closed-form forward kinematics, all at once."""
+        if not segments:
+            return np.zeros(0)
+        q = np.array([tuple(start)] + [seg.joints for seg in segments], dtype=float)
+        a, step = q[:-1, None, :], np.diff(q, axis=0)[:, None, :]
+        f = np.linspace(0.0, 1.0, TOOL_SPEED_SAMPLES + 1)[None, :, None]
+        _, tool = sweep.points_from_joints(self._arm, a + f * step)
+        if not self._arm.is_scara:
+            tool = tool[..., :2]
+        chords = np.linalg.norm(np.diff(tool, axis=1), axis=2).max(axis=1)
+        wire = np.array([wire_duration_s(seg.duration_s) for seg in segments])
+        return chords * TOOL_SPEED_SAMPLES / wire
 
     def check_actions(self, actions: Sequence[Action], start_joints: Sequence[float] | None = None,
                       ) -> Verdict:
