@@ -11,7 +11,8 @@ Test switches (options): ``estop_at_s``, ``estop_after`` (MOVEs), ``fault_after`
 (MOVEs; ``fault_code``, ``fault_axis``), ``drop_every`` (lose every Nth host line),
 ``garble_every`` (every Nth host line arrives with a bad CRC: ``ERR 0 BAD_CRC``),
 ``corrupt_every`` (every Nth reply leaves with a bad CRC), ``slow_ms`` (delay every
-reply). :class:`Emulator` is used in-process by the tests; :func:`serve` runs it for
+reply), ``counters`` (False: an older controller whose STATE has no ``moves=``/``last=``).
+:class:`Emulator` is used in-process by the tests; :func:`serve` runs it for
 ``benchjog emulate``.
 """
 
@@ -57,6 +58,7 @@ class EmulatorOptions:
     garble_every: int | None = None
     corrupt_every: int | None = None
     slow_ms: float = 0.0
+    counters: bool = True
 
     @classmethod
     def from_mapping(cls, values: dict) -> "EmulatorOptions":
@@ -111,6 +113,8 @@ class Emulator:
         self.last_valid_t = clock()
         self.t_start = clock()
         self.moves_accepted = 0
+        self.moves_since_hello = 0   # STATE's moves= (modulo 65536) and last=
+        self.last_move_seq = 0
         self.lines_in = 0
         self.replies_out = 0
         self.received: list[str] = []   # every valid host body, for tests
@@ -344,6 +348,7 @@ class Emulator:
         if args:
             return f"ERR {seq} SYNTAX"
         if verb == "HELLO":
+            self.moves_since_hello = self.last_move_seq = 0
             return f"OK {seq} proto={P.PROTO_VERSION} axes={self.n} queue={self.opts.queue_depth} name={self.opts.name}"
         if verb == "ENABLE":
             if self.latched:
@@ -369,7 +374,8 @@ class Emulator:
             return f"OK {seq}"
         if verb == "STATE":
             pos = ",".join(str(round(p)) for p in self.pos)
-            return f"OK {seq} mode={self.mode} pos={pos} queued={len(self.segs)} out={self.outputs}"
+            counters = f" moves={self.moves_since_hello} last={self.last_move_seq}" if self.opts.counters else ""
+            return f"OK {seq} mode={self.mode} pos={pos} queued={len(self.segs)} out={self.outputs}{counters}"
         if verb == "RESET":
             if self.estop_input:
                 return f"ERR {seq} ESTOP"
@@ -402,6 +408,8 @@ class Emulator:
             seg.t0 = self.clock()
         self.segs.append(seg)
         self.moves_accepted += 1
+        self.moves_since_hello = (self.moves_since_hello + 1) % 65536
+        self.last_move_seq = seq
         return f"OK {seq} free={self.opts.queue_depth - len(self.segs)}"
 
     def _after_reply(self, cmd: P.HostLine) -> None:

@@ -131,6 +131,7 @@ class RunResult:
     detail: str
     segments_sent: int = 0
     step: int | None = None
+    underruns: int = 0   # times the controller's queue ran empty mid-move (stop-and-go)
 
 
 def _outside(joint: Any, margin: float, value: float) -> float:
@@ -307,6 +308,8 @@ class Interlock:
             reasons.append("drives are off (enable first)")
         if need_homed and not state.homed:
             reasons.append("the arm is not homed (home first)")
+        if not getattr(state, "fresh", True):  # PROTOCOL.md: no plan from a pose older than a stop
+            reasons.append("position report is stale: the arm stopped or halted since (wait for a fresh one)")
         if state.age_s > FRESH_S:
             reasons.append(f"position report is {state.age_s:.2f} s old (limit {FRESH_S:g} s)")
         if state.queued > 0 or state.mode.value == "MOVING":
@@ -541,7 +544,7 @@ class Interlock:
         return latched
 
     def _run(self, proposal: Proposal) -> RunResult:
-        sent = 0
+        sent = underruns = 0
         for index, action in enumerate(proposal.actions):
             step = index if len(proposal.actions) > 1 else None
             where = f" at step {index + 1}" if step is not None else ""
@@ -552,6 +555,7 @@ class Interlock:
                 return self._halted(trouble, sent, step, where, None, None)
             try:
                 if isinstance(action, Plan):
+                    dry = self.__driver.state().queue_ran_dry
                     for n, seg in enumerate(action.segments, 1):
                         trouble = self._trouble()
                         if trouble:
@@ -564,6 +568,8 @@ class Interlock:
                     trouble = self._wait_done(action.summary.duration_s + 5.0)
                     if trouble:
                         return self._halted(trouble, sent, step, where, None, None)
+                    # every start from an empty queue after the first is a stop-and-go
+                    underruns += max(0, self.__driver.state().queue_ran_dry - dry - 1)
                 elif isinstance(action, Dwell):
                     deadline = time.monotonic() + action.seconds
                     while time.monotonic() < deadline:
@@ -581,6 +587,10 @@ class Interlock:
         ends = [p.segments[-1].joints for p in proposal.plans if p.segments]
         if ends:
             self._last_end = tuple(ends[-1])
+        if underruns:
+            return RunResult(True, "done", f"done (stop-and-go: the controller's queue ran empty "
+                             f"{underruns} time(s) mid-move; the link or the host is too slow for "
+                             f"these segments)", sent, None, underruns)
         return RunResult(True, "done", "done", sent, None)
 
     def _trouble(self) -> str | None:
