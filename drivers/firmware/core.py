@@ -275,6 +275,10 @@ class Controller:
         self.now_us = now_us
         self._inputs()
         self.hw.write_counts(self.pos)
+        if self.enabled:
+            f = self.hw.drive_fault()     # a drive that could not follow this setpoint
+            if f:
+                self.fault(f[0], f[1])
 
     def next_event_us(self):
         """The next time (us) something happens by itself (a segment or homing phase
@@ -527,10 +531,6 @@ class Controller:
         elif not active and self.estop_in:
             self.estop_in = False
             self._send_event("EVT ESTOP_CLEAR")
-        if self.enabled:
-            f = self.hw.drive_fault()
-            if f:
-                self.fault(f[0], f[1])
         axis = self.hw.limit_active()
         if axis and axis != self.limit_in and self.enabled:
             self.fault("LIMIT_SWITCH", axis)   # on the switch closing, so the arm can back off
