@@ -133,7 +133,7 @@ def check_claim(result, proposal, link, emu) -> None:
 
 def test_state_counts_accepted_moves_since_hello_and_an_older_controller_leaves_them_out(rig):
     r = rig()
-    d_state = lambda: r.emu._execute(P.HostLine(1, "STATE", ()))  # noqa: E731 - the reply text
+    d_state = lambda: r.emu.core._state(1)  # noqa: E731 - the reply text (the firmware core's)
     p = r.gate.propose_move((150.0, 200.0))
     assert r.gate.execute(p, Yes()).completed
     moves = [b for b in r.emu.received if " MOVE " in b]
@@ -142,7 +142,7 @@ def test_state_counts_accepted_moves_since_hello_and_an_older_controller_leaves_
     assert reply.int_field("moves") == len(moves)
     assert reply.int_field("last") == int(moves[-1].split(" ")[0])
     old = Emulator(ARM, {"counters": False})
-    assert "moves=" not in old._execute(P.HostLine(1, "STATE", ()))
+    assert "moves=" not in old.core._state(1)
 
 
 # -- the position after a stop -----------------------------------------------------------------
