@@ -20,6 +20,19 @@ pipelined line is re-sent alone (on a ``BAD_SEQ`` naming it or when its reply is
 overdue), then the lines behind it; every other verb is one line at a time, after the
 pipeline has drained (STOP and HELLO abandon it instead: they never wait).
 
+A pipelined MOVE whose reply was lost while a later line was answered is not taken as
+accepted (PROTOCOL.md): no MOVE goes out until a STATE's ``moves=`` count (or the
+segment's DONE) shows it was; a count short of it is a gap: the driver stops the arm and
+latches ``"fault: the segment to ... (MOVE n) was not accepted ..."``, which the next
+``queue()`` raises and the interlock reports (never as done). A controller whose STATE
+has no ``moves=``/``last=`` is not pipelined (``window`` is taken as 1).
+
+After :meth:`SerialDriver.stop`, DISABLE, an e-stop, a fault or a lost link the position
+is stale (``DriverState.fresh`` False) until a STATE sent after the stop's OK (or after
+the event) is answered; ``stop()`` asks for one at once. ``DriverState.queue_ran_dry``
+counts the MOVEs the controller took into an empty queue (its ``free=``), so a caller
+can tell stop-and-go streaming (the queue running empty mid-motion) from a start.
+
 A background reader dispatches replies, DONE and EVT lines; a heartbeat thread sends
 STATE every ``heartbeat_s`` while the port is open (the watchdog needs a line every
 second; PROTOCOL.md asks for a STATE at least every 250 ms while enabled). After an
