@@ -394,3 +394,21 @@ def test_a_fast_link_has_no_underruns(rig):
     p = r.gate.propose_move((150.0, 200.0))
     result = r.gate.execute(p, Yes())
     assert result.completed and result.underruns == 0 and result.detail == "done"
+
+
+def test_the_move_command_says_stop_and_go(monkeypatch, capsys, tmp_path):
+    emu = Emulator(ARM, {"home_s": 0.05})
+    link = LossyLink(emu.start(), gap_s=0.04)           # a slow link, as above
+    path = link.start()
+    try:
+        journal = str(tmp_path / "j.jsonl")
+        monkeypatch.setattr("sys.stdin", io.StringIO("y\n"))
+        assert main(["home", "--port", path, "--journal", journal]) == 0
+        monkeypatch.setattr("sys.stdin", io.StringIO("y\n"))
+        code = main(["move", "150", "200", "--port", path, "--journal", journal])
+        last = capsys.readouterr().err.strip().splitlines()[-1]
+        assert code == 0, last
+        assert "done (stop-and-go: the controller's queue ran empty" in last
+    finally:
+        link.stop()
+        emu.stop()
