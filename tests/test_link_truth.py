@@ -131,18 +131,23 @@ def check_claim(result, proposal, link, emu) -> None:
 
 # -- the counters in STATE ---------------------------------------------------------------------
 
+def _state_replies(link):
+    return [P.parse_reply(body_of(ln)) for ln, _ in link.lines(TO_HOST) if " mode=" in body_of(ln)]
+
+
 def test_state_counts_accepted_moves_since_hello_and_an_older_controller_leaves_them_out(rig):
     r = rig()
-    d_state = lambda: r.emu._execute(P.HostLine(1, "STATE", ()))  # noqa: E731 - the reply text
     p = r.gate.propose_move((150.0, 200.0))
     assert r.gate.execute(p, Yes()).completed
-    moves = [b for b in r.emu.received if " MOVE " in b]
-    reply = P.parse_reply(d_state())
-    # PROTOCOL.md: moves= counts accepted MOVE lines since HELLO, last= is the last one's seq
-    assert reply.int_field("moves") == len(moves)
-    assert reply.int_field("last") == int(moves[-1].split(" ")[0])
-    old = Emulator(ARM, {"counters": False})
-    assert "moves=" not in old._execute(P.HostLine(1, "STATE", ()))
+    n = len(_state_replies(r.link))
+    assert wait_for(lambda: len(_state_replies(r.link)) > n, 2.0)   # a heartbeat after it
+    reply = _state_replies(r.link)[-1]
+    moves = [P.parse_host(body_of(ln)) for ln, _ in r.link.lines(TO_CTRL) if " MOVE " in body_of(ln)]
+    # PROTOCOL.md: moves= counts the MOVE lines accepted since HELLO, last= is the last one's seq
+    assert reply.int_field("moves") == len({m.seq for m in moves}) == len(p.plans[0].segments)
+    assert reply.int_field("last") == moves[-1].seq
+    old = rig(None, {"counters": False})
+    assert all(st.get("moves") is None and st.get("last") is None for st in _state_replies(old.link))
 
 
 # -- the position after a stop -----------------------------------------------------------------
@@ -364,7 +369,6 @@ def test_fuzzed_drops_corruption_and_delays_never_make_a_false_done(rig):
             assert "not accepted by the controller" not in result.detail, result.detail
         lost_refusals += faults.lost_refusals
         outcomes[result.outcome] = outcomes.get(result.outcome, 0) + 1
-        print(seed, result.outcome, sorted(faults.refused), result.detail[:160])
         r.close()
     # the fuzz did exercise both endings and the lost refusals
     print("fuzz outcomes", outcomes, "lost refusals", lost_refusals)

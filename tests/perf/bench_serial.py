@@ -20,7 +20,6 @@ arm-bound case (at most 50 segments/s whatever the link).
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 import time
 
