@@ -20,6 +20,19 @@ pipelined line is re-sent alone (on a ``BAD_SEQ`` naming it or when its reply is
 overdue), then the lines behind it; every other verb is one line at a time, after the
 pipeline has drained (STOP and HELLO abandon it instead: they never wait).
 
+A pipelined MOVE whose reply was lost while a later line was answered is not taken as
+accepted (PROTOCOL.md): no MOVE goes out until a STATE's ``moves=`` count (or the
+segment's DONE) shows it was; a count short of it is a gap: the driver stops the arm and
+latches ``"fault: the segment to ... (MOVE n) was not accepted ..."``, which the next
+``queue()`` raises and the interlock reports (never as done). A controller whose STATE
+has no ``moves=``/``last=`` is not pipelined (``window`` is taken as 1).
+
+After :meth:`SerialDriver.stop`, DISABLE, an e-stop, a fault or a lost link the position
+is stale (``DriverState.fresh`` False) until a STATE sent after the stop's OK (or after
+the event) is answered; ``stop()`` asks for one at once. ``DriverState.queue_ran_dry``
+counts the MOVEs the controller took into an empty queue (its ``free=``), so a caller
+can tell stop-and-go streaming (the queue running empty mid-motion) from a start.
+
 A background reader dispatches replies, DONE and EVT lines; a heartbeat thread sends
 STATE every ``heartbeat_s`` while the port is open (the watchdog needs a line every
 second; PROTOCOL.md asks for a STATE at least every 250 ms while enabled). After an
@@ -171,14 +184,10 @@ class SerialDriver(Driver):
     def _mark_stale(self, open_now: bool) -> None:
         """The position is stale from here (lock held). ``open_now``: a STATE sent from
         now on makes it fresh (after an event); else only once :meth:`_open_epoch` is
-        called (after the stop's OK)."""
+        set again (after the stop's OK)."""
         self._stale = True
         self._stale_epoch += 1
         self._epoch_open = open_now
-
-    def _open_epoch(self) -> None:
-        with self._cond:
-            self._epoch_open = True
 
     def _move_words(self, seq: int, counts: tuple[int, ...] | None) -> str:
         """A MOVE line for people: its target in joint units and its seq."""
@@ -259,6 +268,8 @@ class SerialDriver(Driver):
                     if reply is None or reply.kind != "OK":
                         if verb == "MOVE":
                             self._outstanding.pop(seq, None)
+                            if reply is None:   # sent, maybe taken: re-read the count
+                                self._moves_sync = False
                         elif verb == "HOME" and self._home_seq == seq:
                             self._home_seq = None
                         self._cond.notify_all()
@@ -578,8 +589,12 @@ class SerialDriver(Driver):
                 self._event("fault", self._gap)
                 self._halt_stream()
             return
-        self._declare_gap(f"its reply was lost on the link and the controller counted only {extra} "
-                          f"of the {len(self._unconfirmed)} unanswered MOVE line(s)")
+        if extra < len(self._unconfirmed):
+            self._declare_gap(f"its reply was lost on the link and the controller counted only "
+                              f"{extra} of the {len(self._unconfirmed)} unanswered MOVE line(s)")
+        else:
+            self._declare_gap(f"its reply was lost on the link and the controller counted {extra} "
+                              f"MOVE line(s) for {len(self._unconfirmed)} unanswered: the counts disagree")
 
     # -- heartbeat ------------------------------------------------------------------
     def _heartbeat(self) -> None:
@@ -700,10 +715,13 @@ class SerialDriver(Driver):
     def disable(self) -> None:
         with self._cond:
             self._mark_stale(False)   # drives off halts the arm
-        self._command("DISABLE")
+        try:
+            self._command("DISABLE")
+        finally:
+            with self._cond:
+                self._epoch_open = True   # from here a STATE tells where the arm is
         with self._cond:
             self._outstanding.clear()
-            self._epoch_open = True
             self._cond.notify_all()
         self._transact("STATE")
 

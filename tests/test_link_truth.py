@@ -131,18 +131,23 @@ def check_claim(result, proposal, link, emu) -> None:
 
 # -- the counters in STATE ---------------------------------------------------------------------
 
+def _state_replies(link):
+    return [P.parse_reply(body_of(ln)) for ln, _ in link.lines(TO_HOST) if " mode=" in body_of(ln)]
+
+
 def test_state_counts_accepted_moves_since_hello_and_an_older_controller_leaves_them_out(rig):
     r = rig()
-    d_state = lambda: r.emu.core._state(1)  # noqa: E731 - the reply text (the firmware core's)
     p = r.gate.propose_move((150.0, 200.0))
     assert r.gate.execute(p, Yes()).completed
-    moves = [b for b in r.emu.received if " MOVE " in b]
-    reply = P.parse_reply(d_state())
-    # PROTOCOL.md: moves= counts accepted MOVE lines since HELLO, last= is the last one's seq
-    assert reply.int_field("moves") == len(moves)
-    assert reply.int_field("last") == int(moves[-1].split(" ")[0])
-    old = Emulator(ARM, {"counters": False})
-    assert "moves=" not in old.core._state(1)
+    n = len(_state_replies(r.link))
+    assert wait_for(lambda: len(_state_replies(r.link)) > n, 2.0)   # a heartbeat after it
+    reply = _state_replies(r.link)[-1]
+    moves = [P.parse_host(body_of(ln)) for ln, _ in r.link.lines(TO_CTRL) if " MOVE " in body_of(ln)]
+    # PROTOCOL.md: moves= counts the MOVE lines accepted since HELLO, last= is the last one's seq
+    assert reply.int_field("moves") == len({m.seq for m in moves}) == len(p.plans[0].segments)
+    assert reply.int_field("last") == moves[-1].seq
+    old = rig(None, {"counters": False})
+    assert all(st.get("moves") is None and st.get("last") is None for st in _state_replies(old.link))
 
 
 # -- the position after a stop -----------------------------------------------------------------
@@ -360,6 +365,8 @@ def test_fuzzed_drops_corruption_and_delays_never_make_a_false_done(rig):
             raise AssertionError("a refused line was taken as accepted by the checker")
         if result.completed:
             assert not (faults.refused & {s for s, _ in truth.accepted})
+        elif not faults.refused:      # no false alarm: a gap is claimed only after a refusal
+            assert "not accepted by the controller" not in result.detail, result.detail
         lost_refusals += faults.lost_refusals
         outcomes[result.outcome] = outcomes.get(result.outcome, 0) + 1
         r.close()
@@ -391,3 +398,21 @@ def test_a_fast_link_has_no_underruns(rig):
     p = r.gate.propose_move((150.0, 200.0))
     result = r.gate.execute(p, Yes())
     assert result.completed and result.underruns == 0 and result.detail == "done"
+
+
+def test_the_move_command_says_stop_and_go(monkeypatch, capsys, tmp_path):
+    emu = Emulator(ARM, {"home_s": 0.05})
+    link = LossyLink(emu.start(), gap_s=0.04)           # a slow link, as above
+    path = link.start()
+    try:
+        journal = str(tmp_path / "j.jsonl")
+        monkeypatch.setattr("sys.stdin", io.StringIO("y\n"))
+        assert main(["home", "--port", path, "--journal", journal]) == 0
+        monkeypatch.setattr("sys.stdin", io.StringIO("y\n"))
+        code = main(["move", "150", "200", "--port", path, "--journal", journal])
+        last = capsys.readouterr().err.strip().splitlines()[-1]
+        assert code == 0, last
+        assert "done (stop-and-go: the controller's queue ran empty" in last
+    finally:
+        link.stop()
+        emu.stop()
