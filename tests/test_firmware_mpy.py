@@ -1,7 +1,9 @@
 """The firmware core runs on MicroPython itself: the same scripted protocol exchanges
 run through drivers/firmware/core.py under MicroPython's WebAssembly port (the npm
 package ``@micropython/micropython-webassembly-pyscript``, run by node) and under
-CPython, and the two transcripts must be the same line for line, and right.
+CPython, and the two transcripts must be the same line for line, and right. So do the
+board's own files (main.py's loop with a wrapping microsecond clock, the servo and
+step/direction layers on recorded pins, a config written by ``benchjog firmware``).
 
 Set-up: ``npm ci --prefix tests/mpy`` (.ci/run does it). Locally the test skips, with
 the reason, when node or the package is missing; in CI (``CI=true``) it fails instead.
@@ -9,11 +11,13 @@ the reason, when node or the package is missing; in CI (``CI=true``) it fails in
 
 from __future__ import annotations
 
+import importlib
 import importlib.util
 import json
 import os
 import shutil
 import subprocess
+import sys
 from pathlib import Path
 
 import pytest
@@ -170,3 +174,72 @@ def test_micropython_computes_the_crc_check_value():
                           capture_output=True, text=True, timeout=60, cwd=MPY)
     # the published CRC-16/CCITT-FALSE check value
     assert proc.returncode == 0 and proc.stdout.strip() == "0x29b1", proc.stderr
+
+
+# -- the board's own files: main.py's loop, the hardware layers, a written config ---------
+
+BOARD_EXPECTED = [
+    "0 OK 1 proto=1 axes=4 queue=8 name=scara-bench", "0 OK 2", "0 OK 3",
+    "1000 mode=MOVING servo_ns=1500000 steps=0 enable_pin=0",     # homing, drives on
+    "3001 DONE 3",                                                  # HOME_MS 3000
+    "3400 OK 20 free=7",
+    "3600 DONE 20",                                                 # MOVE 200 ms
+    # j1 2250 counts: 1500 us + 2250 * 2000/180/50 us = 2000 us; quill 1000 counts = steps
+    "3700 mode=IDLE servo_ns=2000000 steps=1000 enable_pin=0",
+    "4700 mode=IDLE servo_ns=2000000 steps=1000 enable_pin=0",
+    "4800 EVT FAULT code=WATCHDOG axis=0",                          # 1000 ms after 3800
+    "4900 mode=FAULT servo_ns=0 steps=1000 enable_pin=1",          # pulses off, enable off
+]
+
+
+def _board_folder(tmp_path) -> Path:
+    from benchjog.console.cell.armfile import builtin_arm
+    from benchjog.drivers.firmware.configgen import board_files
+
+    folder = tmp_path / "board"
+    folder.mkdir()
+    for name, text in board_files(builtin_arm("scara-bench")).items():
+        (folder / name).write_text(text)
+    (folder / "boardrun.py").write_text((MPY / "boardrun.py").read_text())
+    return folder
+
+
+def _board_transcript(lines: list[str]) -> list[str]:
+    """The board run without the heartbeat replies, CRCs checked and dropped."""
+    out = []
+    for entry in lines:
+        t, rest = entry.split(" ", 1)
+        if rest.startswith("mode="):
+            out.append(entry)
+            continue
+        body = P.parse_line(rest.encode() + b"\n")
+        assert body is not None, entry
+        if " mode=" not in body:
+            out.append(f"{t} {body}")
+    return out
+
+
+def test_the_board_files_run_the_same_on_micropython(tmp_path):
+    node = _node_and_package()
+    folder = _board_folder(tmp_path)
+    code = ("import config, core, hw_io, main, boardrun\n"
+            "for line in boardrun.run(config, core, hw_io, main):\n"
+            "    print(line)\n")
+    proc = subprocess.run([node, str(MPY / "run.mjs"), *sorted(str(p) for p in folder.glob("*.py")),
+                           "--", code], capture_output=True, text=True, timeout=120, cwd=MPY)
+    assert proc.returncode == 0, proc.stderr
+    on_mpy = proc.stdout.splitlines()
+    # the same files on CPython, as flat modules the way the board imports them
+    flat = ("config", "core", "hw_io", "hw_servo", "hw_stepdir", "main", "boardrun")
+    sys.path.insert(0, str(folder))
+    try:
+        for name in flat:
+            sys.modules.pop(name, None)
+        mods = [importlib.import_module(n) for n in ("config", "core", "hw_io", "main", "boardrun")]
+        on_cpython = mods[-1].run(*mods[:-1])
+    finally:
+        sys.path.remove(str(folder))
+        for name in flat:
+            sys.modules.pop(name, None)
+    assert on_mpy == on_cpython
+    assert _board_transcript(on_mpy) == BOARD_EXPECTED

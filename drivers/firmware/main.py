@@ -55,6 +55,34 @@ class UartLink:
         self.uart.write(line)
 
 
+def serve(ctrl, link, clock, tick_us, rounds=None):
+    """The board's loop: bytes from ``link`` to the controller, a tick every ``tick_us``,
+    the controller's lines back to ``link``. ``clock`` is MicroPython's ``time`` (its
+    ``ticks_us`` wraps; ``ticks_diff`` measures across the wrap), from which a
+    microsecond count that never wraps is kept. ``rounds``: stop after that many
+    passes (tests); None runs for ever."""
+    now = 0
+    last = clock.ticks_us()
+    next_tick = 0
+    while rounds is None or rounds > 0:
+        if rounds is not None:
+            rounds -= 1
+        t = clock.ticks_us()
+        now += clock.ticks_diff(t, last)
+        last = t
+        data = link.read()
+        if data:
+            ctrl.feed(data, now)
+        if now >= next_tick:
+            ctrl.tick(now)
+            next_tick += tick_us
+            if next_tick <= now:            # fell behind: no burst of catch-up ticks
+                next_tick = now + tick_us
+        for _, line in ctrl.take():
+            link.write(line)
+    return now
+
+
 def run():
     import select
     import sys
@@ -73,25 +101,8 @@ def run():
         link = UartLink(machine, link_cfg)
     else:
         link = UsbLink(sys, select)
-    tick_us = config.TICK_US
-    now = 0
-    last = time.ticks_us()
-    next_tick = 0
     try:
-        while True:
-            t = time.ticks_us()
-            now += time.ticks_diff(t, last)     # a microsecond count that never wraps
-            last = t
-            data = link.read()
-            if data:
-                ctrl.feed(data, now)
-            if now >= next_tick:
-                ctrl.tick(now)
-                next_tick += tick_us
-                if next_tick <= now:            # fell behind: no burst of catch-up ticks
-                    next_tick = now + tick_us
-            for kind, line in ctrl.take():
-                link.write(line)
+        serve(ctrl, link, time, config.TICK_US)
     finally:
         board.enable(False)
 
