@@ -236,7 +236,19 @@ def zone_penetrations_mm(arm: Arm, q: np.ndarray) -> np.ndarray:
     """How deep the arm is in each keep-out zone at joint arrays q (N, n_joints) -> (N, Z):
     the most any part would have to move (in the base plane, or in height on a SCARA)
     to be clear of the zone grown by the link clearance. > 0 exactly when a part is in
-    the zone (as benchjog.kinematics.zones sees it); <= 0 clear."""
+    the zone (as benchjog.kinematics.zones sees it); <= 0 clear.
+
+    Worked example (by hand): the planar demo arm at joints (0, 90 deg) has its forearm
+    on x = 220 mm from y = 0 to 160; a box x 210..250, y 100..200 holds the forearm's
+    top, 10 mm inside the box's left edge, plus the 12 mm link clearance: 22 mm.
+
+    >>> from benchjog.console.cell.armfile import builtin_arm
+    >>> from benchjog.kinematics.model import Zone
+    >>> box = Zone("fixture", "box", x_min=210.0, x_max=250.0, y_min=100.0, y_max=200.0)
+    >>> arm = dataclasses.replace(builtin_arm("planar-bench"), zones=(box,))
+    >>> round(float(zone_penetrations_mm(arm, [(0.0, math.pi / 2)])[0, 0]), 6)
+    22.0
+    """
     q = np.atleast_2d(np.asarray(q, dtype=float))
     elbow, tool = points_from_joints(arm, q)
     origin = np.zeros_like(elbow)
@@ -910,7 +922,7 @@ class Interlock:
 
     def _halted(self, trouble: str, sent: int, step: int | None, where: str,
                 n: int | None, total: int | None) -> RunResult:
-        self.__driver.stop()
+        self._safe_stop()
         self._last_end = None
         seg = f" before segment {n} of {total}" if n is not None else ""
         if trouble == "stop":

@@ -346,3 +346,66 @@ def test_cli_move_with_a_journal_on_a_full_disk_never_says_done(monkeypatch, cap
     code, err = _cli(monkeypatch, capsys, "y\n", "move", "150", "200", "--journal", "/dev/full")
     assert code in (1, 3) and "journal" in err
     assert "Traceback" not in err
+
+
+# -- stop during homing, and the console's stop key, with the journal failing -------------
+def test_stop_during_homing_with_the_journal_failing_reaches_the_controller(tmp_path):
+    import time
+    files = []
+
+    def opener(p):
+        fake = FailingFile(p)
+        fake.fail = False
+        files.append(fake)
+        return fake
+
+    emu = Emulator(ARM, {"home_s": 3.0})
+    port = emu.start()
+    try:
+        gate = Interlock.open(ARM, "serial", journal=Journal(tmp_path / "j.jsonl", opener=opener),
+                              port=port, enable_on_yes=True)
+        try:
+            box = {}
+            worker = threading.Thread(target=lambda: box.setdefault("r", gate.home(Answer(True))))
+            worker.start()
+            for _ in range(200):
+                if any(line.split()[1:2] == ["HOME"] for line in emu.received):
+                    break
+                time.sleep(0.01)
+            for fake in files:               # the disk fills while the arm homes
+                fake.fail = True
+            gate._journal.record("event", detail="filler")   # the next batch fails
+            gate.wait_journal(5)
+            assert gate.journal_error        # ... and the journal says so
+            gate.stop()                      # no exception, whatever the journal does
+            worker.join(10)
+            assert not worker.is_alive()
+            result = box["r"]
+            assert result.outcome == "stopped" and not result.completed, result
+            assert any(line.split()[1:2] == ["STOP"] for line in emu.received)
+            assert not gate.state().homed    # it did not home to the end
+        finally:
+            gate.close()
+    finally:
+        emu.stop()
+
+
+async def test_the_console_stop_key_with_a_failing_journal(tmp_path):
+    from benchjog.console.tui.app import make_app
+    journal = Journal(tmp_path / "j.jsonl", opener=lambda p: FailingFile(p))
+    gate = _sim_gate(journal)
+    try:
+        app = make_app(ARM, gate)
+        async with app.run_test(size=(120, 40)) as pilot:
+            journal.record("open")
+            gate.wait_journal(5)
+            assert gate.journal_error
+            await pilot.press("space")
+            await pilot.pause(0.1)
+            assert app.is_running
+            assert kinds(gate)[-1] == "STOP"
+            assert "journal failing" in app.message
+            await pilot.press("ctrl+q")
+        assert kinds(gate).count("STOP") >= 2   # quitting stopped first
+    finally:
+        gate.close()
