@@ -1,5 +1,7 @@
 """``benchjog move`` and ``benchjog home``: one motion from the command line, through
-the interlock and the confirmation prompt (console/confirm_cli.py)."""
+the interlock and the confirmation prompt (console/cli/confirm.py). The drives are
+switched on only after the yes (``open_gate(..., enable_on_yes=True)``): a cancelled
+command never powered the arm."""
 
 from __future__ import annotations
 
@@ -47,9 +49,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     home.set_defaults(func=cmd_home)
 
 
-def _report(result: RunResult) -> int:
+def _report(result: RunResult, gate) -> int:
     print(f"benchjog: {result.detail}", file=sys.stderr)
-    return exit_code_of(result)
+    return exit_code_of(result, gate)
 
 
 def cmd_move(args: argparse.Namespace) -> int:
@@ -66,8 +68,7 @@ def cmd_move(args: argparse.Namespace) -> int:
             options["tolerance_mm"] = check_tolerance(args.tolerance)
         except TargetError as exc:
             raise UsageError(f"--tolerance: {exc}") from None
-    with open_gate(arm, args) as gate:
-        gate.enable()
+    with open_gate(arm, args, enable_on_yes=True) as gate:   # drives on only after the yes
         try:
             proposal = gate.propose_move(target, branch=branch, path=args.path,
                                          speed_pct=args.speed, **options)
@@ -75,15 +76,14 @@ def cmd_move(args: argparse.Namespace) -> int:
                 proposal, PromptConfirmer(arm, question="Move?")))
         finally:
             drives_off(gate)
-    return _report(result)
+        return _report(result, gate)
 
 
 def cmd_home(args: argparse.Namespace) -> int:
     arm = load_arm(args.arm)
-    with open_gate(arm, args) as gate:
-        gate.enable()
+    with open_gate(arm, args, enable_on_yes=True) as gate:   # drives on only after the yes
         try:
             result = run_stoppable(gate, lambda: gate.home(PromptConfirmer(arm, question="Home?")))
         finally:
             drives_off(gate)
-    return _report(result)
+        return _report(result, gate)
