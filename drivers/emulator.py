@@ -11,7 +11,9 @@ Test switches (options): ``estop_at_s``, ``estop_after`` (MOVEs), ``fault_after`
 (MOVEs; ``fault_code``, ``fault_axis``), ``drop_every`` (lose every Nth host line),
 ``garble_every`` (every Nth host line arrives with a bad CRC: ``ERR 0 BAD_CRC``),
 ``corrupt_every`` (every Nth reply leaves with a bad CRC), ``slow_ms`` (delay every
-reply). :class:`Emulator` is used in-process by the tests; :func:`serve` runs it for
+reply). ``true_errors``: the arm the emulated controller really drives differs from its
+arm file (see drivers/sim.py; :meth:`Emulator.tool_in_plate_mm` is the bench's ruler).
+:class:`Emulator` is used in-process by the tests; :func:`serve` runs it for
 ``benchjog emulate``.
 """
 
@@ -57,6 +59,7 @@ class EmulatorOptions:
     garble_every: int | None = None
     corrupt_every: int | None = None
     slow_ms: float = 0.0
+    true_errors: dict | None = None   # calibration rehearsals: the true arm's errors
 
     @classmethod
     def from_mapping(cls, values: dict) -> "EmulatorOptions":
@@ -195,6 +198,16 @@ class Emulator:
         with self._lock:
             self._advance(self.clock())
             return tuple(round(p) for p in self.pos)
+
+    def tool_in_plate_mm(self) -> tuple[float, ...]:
+        """Where the true arm's tool tip is on the fixture plate (``true_errors``)."""
+        from benchjog.drivers.calibration import joints_from_counts
+        from benchjog.kinematics import identify
+
+        vec = identify.true_vector_from_errors(self.arm, dict(self.opts.true_errors or {}))
+        joints = joints_from_counts(self.arm, self.position_counts())
+        point = identify.plate_points_mm(self.arm, identify.params_of(self.arm), vec, [joints])[0]
+        return tuple(float(v) for v in point)
 
     # -- output ---------------------------------------------------------------------
     def _send_line(self, body: str, reply: bool = False) -> bytes:
