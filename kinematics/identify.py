@@ -364,7 +364,7 @@ def rigid_fit(model_pts: np.ndarray, holes: np.ndarray) -> tuple[np.ndarray, flo
     >>> a = np.array([[0.0, 0.0], [1.0, 0.0], [0.0, 1.0]])
     >>> b = np.array([[5.0, 5.0], [5.0, 6.0], [4.0, 5.0]])   # a turned 90 deg, moved (5, 5)
     >>> t, yaw = rigid_fit(a, b)
-    >>> [round(v, 9) for v in t], round(math.degrees(yaw), 9)
+    >>> [round(float(v), 9) for v in t], round(math.degrees(yaw), 9)
     ([5.0, 5.0], 90.0)
     """
     a, b = model_pts[:, :2], holes[:, :2]
@@ -609,10 +609,24 @@ def candidates_for(arm: Arm, holes: Sequence[tuple[str, Sequence[float]]],
         target = (in_base[0], in_base[1]) if not arm.is_scara else (
             in_base[0], in_base[1], in_base[2], 0.0)
         for sol in joints_from_tool(true_arm, target).usable:
+            if not _clear_of_limits(true_arm, sol.joints):
+                continue
             # true_arm's zero already includes the correction; the file reads value - shift
             q = tuple(float(v) for v in np.asarray(sol.joints) - shifts)
             out.append(Candidate(label, tuple(float(v) for v in hole), sol.branch, q))
     return out
+
+
+LIMIT_SLACK_DEG = 1.5   # candidates keep this much more than the arm's margin from a limit
+LIMIT_SLACK_MM = 1.5    # (the arm file is not yet calibrated)
+
+
+def _clear_of_limits(arm: Arm, joints: Sequence[float]) -> bool:
+    for j, v in zip(arm.joints, joints):
+        room = arm.margin(j) + (math.radians(LIMIT_SLACK_DEG) if j.is_revolute else LIMIT_SLACK_MM)
+        if not j.min + room <= v <= j.max - room:
+            return False
+    return True
 
 
 def _scaled_rows(arm: Arm, vec: np.ndarray, joints: np.ndarray) -> np.ndarray:
@@ -681,8 +695,8 @@ def steps_per_count_mm(arm: Arm, joints: Sequence[float]) -> list[float]:
 
     >>> from benchjog.console.cell.armfile import builtin_arm
     >>> arm = builtin_arm("planar-bench")   # 40 counts/deg on both joints
-    >>> [round(v, 5) for v in steps_per_count_mm(arm, (0.0, math.pi / 2))]  # |J col| = 271.7, 160 mm/rad
-    [0.11855, 0.06981]
+    >>> [round(v, 5) for v in steps_per_count_mm(arm, (0.0, math.pi / 2))]  # |(-160, 220)|, 160 mm/rad
+    [0.1187, 0.06981]
     """
     jac = position_jacobian_mm(arm, joints)
     out = []
@@ -701,10 +715,10 @@ def task_conditioning(arm: Arm, joints: Sequence[float]) -> tuple[float, str | N
 
     >>> from benchjog.console.cell.armfile import builtin_arm
     >>> arm = builtin_arm("planar-bench")
-    >>> round(task_conditioning(arm, (0.0, math.pi / 2))[0], 3)
-    1.975
+    >>> round(task_conditioning(arm, (0.0, math.pi / 2))[0], 3)   # J = [[-160, -160], [220, 0]]
+    2.416
     >>> task_conditioning(arm, (0.0, math.radians(3.0)))[1]
-    'ill-conditioned: the elbow is 3.0 deg from stretched (Jacobian condition number 89)'
+    'ill-conditioned: the elbow is 3.0 deg from stretched (Jacobian condition number 92)'
     """
     jxy = position_jacobian_mm(arm, joints)[:2, :2]
     s = np.linalg.svd(jxy, compute_uv=False)
