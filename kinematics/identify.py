@@ -765,3 +765,31 @@ def position_sigma_mm(arm: Arm, joints: Sequence[float], keys: Sequence[str],
     jp = identification_jacobian(arm, params, nominal_vector(arm), np.array([joints]))[:, idx]
     m = jp @ cov @ jp.T
     return float(math.sqrt(max(np.linalg.eigvalsh(m).max(), 0.0)))
+
+
+@dataclass(frozen=True)
+class Accuracy:
+    """What a pose promises: the tool step per encoder count of each joint (mm), the
+    1-sigma position error from a calibration's covariance (mm; None without one), the
+    task Jacobian's condition number and words when it is ill-conditioned."""
+
+    step_per_count_mm: tuple[float, ...]
+    position_sigma_mm: float | None
+    condition_number: float
+    conditioning: str | None
+
+
+def accuracy_at(arm: Arm, joints: Sequence[float], keys: Sequence[str] | None = None,
+                covariance_display: np.ndarray | None = None) -> Accuracy:
+    """:class:`Accuracy` at a pose (joint values rad, mm).
+
+    >>> from benchjog.console.cell.armfile import builtin_arm
+    >>> acc = accuracy_at(builtin_arm("planar-bench"), (0.0, math.pi / 2))
+    >>> [round(v, 4) for v in acc.step_per_count_mm], acc.position_sigma_mm, acc.conditioning
+    ([0.1187, 0.0698], None, None)
+    """
+    cond, words = task_conditioning(arm, joints)
+    sigma = None
+    if keys is not None and covariance_display is not None:
+        sigma = position_sigma_mm(arm, joints, keys, np.asarray(covariance_display, dtype=float))
+    return Accuracy(tuple(steps_per_count_mm(arm, joints)), sigma, cond, words)
