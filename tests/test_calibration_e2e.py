@@ -183,3 +183,37 @@ def test_plan_lists_both_branches_and_the_indices(monkeypatch, capsys):
     assert len(doc["touches"]) == 8
     assert {t["branch"] for t in doc["touches"]} == {"elbow-up", "elbow-down"}
     assert doc["condition_number"] < ident.COND_WARN and doc["o4"] > 0
+
+
+def test_typed_steps_finish_a_touch_on_the_controller_path(tmp_path):
+    """Without a rehearsal arm the user finishes each touch by typed steps; a bad or
+    too-large step is refused in words and moves nothing; ok records where the arm is.
+    (The flow of ``calibrate touch`` without --sim-errors, on a time-scaled simulated arm.)"""
+    from benchjog.console.cell import touching
+    from benchjog.console.cli.confirm import PromptConfirmer
+    from benchjog.drivers.interlock import Interlock
+
+    arm = builtin_arm("planar-bench")
+    plate = cf.load_plate(CELLS["planar-bench"][0], arm)
+    visits = [(name, hole, None) for name, hole in plate.holes[10:13]]
+    stdin = io.StringIO("y\nx+0.5\nwiggle\ny+9\nj1-0.1\nok\n" + "y\nskip\n" + "y\nok\n")
+    out = io.StringIO()
+    saved = []
+    with Interlock.open(arm, "sim", journal=False, time_scale=50.0) as gate:
+        gate.enable()
+        records = touching.capture(
+            gate, arm, plate, visits, PromptConfirmer(arm, stdin=stdin, out=out),
+            finish=lambda name, hole: touching.finish_by_hand(gate, arm, name, stdin, out),
+            on_record=lambda recs: saved.append(len(recs)), out=out)
+        moves = [c for c in gate.sim.commands if c[0] == "MOVE"]
+    words = out.getvalue()
+    assert "not a step: 'wiggle'" in words
+    assert "9 is larger than a touching step may be (5 mm or deg)" in words
+    assert [r.hole for r in records] == [visits[0][0], visits[2][0]] and saved == [1, 2]
+    assert moves
+    # the first touch: the approach end, then +0.5 mm in x and -0.1 deg on the shoulder
+    x, y = touching.hole_in_base(plate, records[0].hole_mm)
+    tool = tool_from_joints(arm, joints_from_counts(arm, records[0].counts))
+    reach = math.hypot(x, y)
+    expect = np.array([x + 0.5, y]) + reach * math.radians(-0.1) * np.array([-y, x]) / reach
+    assert math.hypot(tool[0] - expect[0], tool[1] - expect[1]) < 0.3    # count rounding

@@ -227,7 +227,9 @@ def report_dict(arm: Arm, result: ident.Identification, records: list[cf.TouchRe
             "condition_number": round_out(cond), "conditioning": words})
     suggestion = None
     if plate is not None:
-        cands = ident.candidates_for(arm, plate.holes, result.vector)
+        done = {(r.hole, r.branch) for r in records}
+        cands = [c for c in ident.candidates_for(arm, plate.holes, result.vector)
+                 if (c.label, c.branch.value) not in done]
         touched = np.array([t.joints for t in cf.touches_for_fit(arm, records)])
         best = ident.next_touch(arm, touched, cands, result.vector)
         if best is not None:
