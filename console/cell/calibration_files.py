@@ -32,6 +32,7 @@ from __future__ import annotations
 import difflib
 import math
 import tomllib
+from importlib import resources
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -228,9 +229,9 @@ def check_arm_text(text: str, source: str) -> Arm:
     return arm_from_mapping(data, source)
 
 
-def diff_text(old: str, new: str, name: str) -> str:
+def diff_text(old: str, new: str, name: str, label: str = "corrected") -> str:
     return "".join(difflib.unified_diff(old.splitlines(keepends=True), new.splitlines(keepends=True),
-                                        f"{name} (now)", f"{name} (corrected)"))
+                                        f"{name} (now)", f"{name} ({label})"))
 
 
 def write_arm_file(path: str | Path, text: str) -> None:
@@ -274,3 +275,11 @@ def branch_of(arm: Arm, joints: Sequence[float]) -> str:
     """The contract's branch label of a pose (elbow-down: elbow > 0)."""
     t2 = joints[1] + arm.joints[1].offset_rad
     return (Branch.ELBOW_DOWN if math.sin(t2) >= 0 else Branch.ELBOW_UP).value
+
+
+def arm_text(arm: Arm) -> str:
+    """The arm file's text: the file it came from, or the built-in arm's."""
+    if Path(arm.source).is_file():
+        return read_text(arm.source)
+    return resources.files("benchjog.console.cell.arms").joinpath(f"{arm.source}.toml").read_text(
+        encoding="utf-8")

@@ -26,6 +26,7 @@ from benchjog.console.cell.calibration_files import Plate, TouchRecord, branch_o
 from benchjog.console.errors import Refused
 from benchjog.drivers.calibration import counts_from_joints
 from benchjog.drivers.interlock import Confirmer, Proposal
+from benchjog.kinematics import identify as ident
 from benchjog.kinematics.model import Arm, Branch
 from benchjog.kinematics.planner import JOINT
 
@@ -189,3 +190,15 @@ def capture(gate, arm: Arm, plate: Plate, visits: Sequence[tuple[str, tuple[floa
         if on_record is not None:
             on_record(records)
     return records
+
+
+def planned_visits(arm: Arm, plate: cf.Plate, count: int) -> list[ident.Candidate]:
+    """The touches to make: chosen for observability (O1), then ordered by branch and
+    around the base so the arm does not sweep back and forth."""
+    vector = ident.nominal_vector(arm, plate.base)
+    cands = ident.candidates_for(arm, plate.holes, vector)
+    if not cands:
+        raise Refused("the arm can reach none of the plate's holes within its limits "
+                      "(check the plate's base = [...] in the plate file)")
+    chosen = ident.plan_touches(arm, cands, count, vector)
+    return sorted(chosen, key=lambda c: (c.branch.value, c.joints[0]))

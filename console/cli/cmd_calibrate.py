@@ -13,7 +13,6 @@ from __future__ import annotations
 import argparse
 import math
 import sys
-from importlib import resources
 from pathlib import Path
 
 import numpy as np
@@ -21,6 +20,7 @@ import numpy as np
 from benchjog.console import exit_codes
 from benchjog.console.cell import calibration_files as cf
 from benchjog.console.cell import touching
+from benchjog.console.cell.calibration_report import print_report, report_dict
 from benchjog.console.cell.armfile import load_arm
 from benchjog.console.cell.safe_files import read_text
 from benchjog.console.cli.common import (add_arm_option, add_journal_option, add_port_options,
@@ -28,7 +28,6 @@ from benchjog.console.cli.common import (add_arm_option, add_journal_option, add
 from benchjog.console.cli.confirm import PromptConfirmer, is_yes
 from benchjog.console.errors import Refused, UsageError
 from benchjog.kinematics import identify as ident
-from benchjog.drivers.calibration import joints_from_counts
 from benchjog.kinematics.model import Arm
 
 DEFAULT_COUNT = 12
@@ -85,6 +84,26 @@ def register(sub: argparse._SubParsersAction) -> None:
     add_arm_option(apply)
     apply.set_defaults(func=cmd_apply)
 
+    com = sub.add_parser("commission", help="commission one axis: direction, counts, zero, limits, homing",
+                         description="A guided walk-through for one axis, every motion through the "
+                         "interlock at reduced speed after confirmation: confirm the direction, "
+                         "measure counts per unit, set the zero at a reference mark, find the safe "
+                         "travel and set soft limits with a margin, check homing. The new arm file "
+                         "is shown as a diff and written after confirmation, with a backup.")
+    com.add_argument("axis", metavar="AXIS", help="joint name or number (1 = base)")
+    com.add_argument("--out", required=True, metavar="FILE", help="the arm file to write")
+    com.add_argument("--step", type=float, default=2.0, help="direction test jog, deg or mm (default 2)")
+    com.add_argument("--test", type=float, default=10.0,
+                     help="counts-per-unit test move, deg or mm by the file (default 10)")
+    com.add_argument("--margin", type=float, default=2.0,
+                     help="soft limits this far inside the travel found, deg or mm (default 2)")
+    com.add_argument("--speed", type=float, default=touching.REDUCED_SPEED_PCT, metavar="PCT",
+                     help=f"speed override, percent (default {touching.REDUCED_SPEED_PCT:g})")
+    add_arm_option(com)
+    add_port_options(com)
+    add_journal_option(com)
+    com.set_defaults(func=cmd_commission)
+
 
 def _plate_options(parser: argparse.ArgumentParser, required: bool) -> None:
     parser.add_argument("--plate", required=required, metavar="FILE",
@@ -98,22 +117,10 @@ def _count(args: argparse.Namespace) -> int:
     return args.count
 
 
-def planned_visits(arm: Arm, plate: cf.Plate, count: int) -> list[ident.Candidate]:
-    """The touches to make: chosen for observability (O1), then ordered by branch and
-    around the base so the arm does not sweep back and forth."""
-    vector = ident.nominal_vector(arm, plate.base)
-    cands = ident.candidates_for(arm, plate.holes, vector)
-    if not cands:
-        raise Refused("the arm can reach none of the plate's holes within its limits "
-                      "(check the plate's base = [...] in the plate file)")
-    chosen = ident.plan_touches(arm, cands, count, vector)
-    return sorted(chosen, key=lambda c: (c.branch.value, c.joints[0]))
-
-
 def cmd_plan(args: argparse.Namespace) -> int:
     arm = load_arm(args.arm)
     plate = cf.load_plate(args.plate, arm)
-    chosen = planned_visits(arm, plate, _count(args))
+    chosen = touching.planned_visits(arm, plate, _count(args))
     rows = np.array([c.joints for c in chosen])
     sv = np.linalg.svd(ident._scaled_rows(arm, ident.nominal_vector(arm, plate.base), rows),
                        compute_uv=False)
@@ -173,7 +180,7 @@ def cmd_touch(args: argparse.Namespace) -> int:
     if out_path.is_dir():
         raise UsageError(f"--out: {args.out} is a directory")
     errors = _sim_errors(arm, args)
-    visits = planned_visits(arm, plate, _count(args))
+    visits = touching.planned_visits(arm, plate, _count(args))
     rng = np.random.default_rng(args.seed)
     print(f"benchjog: {len(visits)} touches at {args.speed:g} % speed; keep clear of the arm, "
           "hand on the e-stop", file=sys.stderr)
@@ -210,86 +217,6 @@ def _fit(args: argparse.Namespace) -> tuple[Arm, ident.Identification, list[cf.T
     return arm, ident.identify(arm, cf.touches_for_fit(arm, records), base), records, plate
 
 
-def report_dict(arm: Arm, result: ident.Identification, records: list[cf.TouchRecord],
-                plate: cf.Plate | None) -> dict:
-    """The calibration report as a JSON document (docs/calibration.md)."""
-    before, after = result.residuals_before_mm, result.residuals_after_mm
-    keys, cov = result.covariance_display(ident.arm_param_keys(arm))
-    accuracy = []
-    for i, rec in enumerate(records):
-        fixed_joints = joints_from_counts(result.corrected, rec.counts)
-        cond, words = ident.task_conditioning(result.corrected, fixed_joints)
-        accuracy.append({
-            "hole": rec.hole, "branch": rec.branch,
-            "residual_mm": round_out(float(after[i])),
-            "step_per_count_mm": [round_out(v) for v in ident.steps_per_count_mm(result.corrected, fixed_joints)],
-            "position_sigma_mm": round_out(ident.position_sigma_mm(result.corrected, fixed_joints, keys, cov)),
-            "condition_number": round_out(cond), "conditioning": words})
-    suggestion = None
-    if plate is not None:
-        done = {(r.hole, r.branch) for r in records}
-        cands = [c for c in ident.candidates_for(arm, plate.holes, result.vector)
-                 if (c.label, c.branch.value) not in done]
-        touched = np.array([t.joints for t in cf.touches_for_fit(arm, records)])
-        best = ident.next_touch(arm, touched, cands, result.vector)
-        if best is not None:
-            cand, now, then = best
-            suggestion = {"hole": cand.label, "branch": cand.branch.value,
-                          "o4_now": round_out(now), "o4_with_it": round_out(then)}
-    return {
-        "arm": arm.name, "touches": result.n_touches,
-        "before": {"rms_mm": round_out(ident.rms_mm(before)), "max_mm": round_out(float(before.max()))},
-        "after": {"rms_mm": round_out(ident.rms_mm(after)), "max_mm": round_out(float(after.max()))},
-        "sigma_mm": round_out(result.sigma_mm),
-        "parameters": [{"key": e.key, "unit": e.unit, "file": round_out(e.nominal),
-                        "fitted": round_out(e.value), "change": round_out(e.change),
-                        "std_error": round_out(e.std_error)} for e in result.estimates],
-        "lumped": result.lumped,
-        "condition_number": round_out(result.condition),
-        "o1": round_out(result.o1), "o4": round_out(result.o4),
-        "warnings": list(result.warnings),
-        "next_touch": suggestion,
-        "accuracy": accuracy,
-    }
-
-
-def print_report(doc: dict, out=None) -> None:
-    out = out or sys.stdout
-    w = lambda s="": print(s, file=out)  # noqa: E731
-    branches = {}
-    for a in doc["accuracy"]:
-        branches[a["branch"]] = branches.get(a["branch"], 0) + 1
-    w(f"calibration of {doc['arm']} from {doc['touches']} touches "
-      f"({', '.join(f'{k} {v}' for k, v in sorted(branches.items()))})")
-    b, a = doc["before"], doc["after"]
-    w(f"residuals before: RMS {b['rms_mm']:.3f} mm, max {b['max_mm']:.3f} mm "
-      "(the arm file as it is, its base laid on the holes by a rigid fit)")
-    w(f"residuals after:  RMS {a['rms_mm']:.3f} mm, max {a['max_mm']:.3f} mm "
-      f"(residual sigma {doc['sigma_mm']:.3f} mm per coordinate)")
-    w(f"{'parameter':16s} {'arm file':>12s} {'fitted':>12s} {'change':>10s} {'std error':>10s}")
-    for p in doc["parameters"]:
-        w(f"{p['key']:16s} {p['file']:12.4f} {p['fitted']:12.4f} {p['change']:+10.4f} "
-          f"{p['std_error']:10.4f} {p['unit']}")
-    for lumped, taker in doc["lumped"].items():
-        w(f"not separable: {lumped} is folded into {taker} (touches of the tool point cannot "
-          "tell them apart); the base's " + lumped.split(".")[1] + " stays as the plate file gives it")
-    w(f"identification Jacobian (scaled): condition number {doc['condition_number']:.1f}, "
-      f"O1 {doc['o1']:.4f} (Borm & Menq 1991), O4 {doc['o4']:.4f} (Nahvi & Hollerbach 1996)")
-    worst = max(doc["accuracy"], key=lambda r: r["position_sigma_mm"])
-    w(f"accuracy at the touched poses: tool step per count up to "
-      f"{max(max(r['step_per_count_mm']) for r in doc['accuracy']):.4f} mm; position 1-sigma "
-      f"from the fit up to {worst['position_sigma_mm']:.4f} mm (at {worst['hole']})")
-    for r in doc["accuracy"]:
-        if r["conditioning"]:
-            w(f"  {r['hole']} ({r['branch']}): {r['conditioning']}")
-    for warning in doc["warnings"]:
-        w(f"warning: {warning}")
-    if doc["next_touch"]:
-        n = doc["next_touch"]
-        w(f"next touch: {n['hole']} on {n['branch']} raises O4 from {n['o4_now']:.4f} to "
-          f"{n['o4_with_it']:.4f}")
-
-
 def cmd_fit(args: argparse.Namespace) -> int:
     arm, result, records, plate = _fit(args)
     doc = report_dict(arm, result, records, plate)
@@ -300,23 +227,15 @@ def cmd_fit(args: argparse.Namespace) -> int:
     return exit_codes.OK
 
 
-def arm_text(arm: Arm) -> str:
-    """The arm file's text: the file it came from, or the built-in arm's."""
-    if Path(arm.source).is_file():
-        return read_text(arm.source)
-    return resources.files("benchjog.console.cell.arms").joinpath(f"{arm.source}.toml").read_text(
-        encoding="utf-8")
-
-
 def cmd_apply(args: argparse.Namespace) -> int:
     arm, result, records, plate = _fit(args)
     print_report(report_dict(arm, result, records, plate), sys.stderr)
     out = Path(args.out)
     if out.is_dir():
         raise UsageError(f"--out: {args.out} is a directory")
-    new = cf.corrected_text(arm_text(arm), result)
+    new = cf.corrected_text(cf.arm_text(arm), result)
     cf.check_arm_text(new, str(out))   # the corrected file must load as an arm, or nothing is written
-    old = read_text(out) if out.exists() else arm_text(arm)
+    old = read_text(out) if out.exists() else cf.arm_text(arm)
     print(cf.diff_text(old, new, out.name), file=sys.stderr, end="")
     print(f"Write {out}{' (the previous version kept as ' + out.name + '.bak)' if out.exists() else ''}? "
           "[y/N] ", end="", file=sys.stderr, flush=True)
@@ -330,4 +249,179 @@ def cmd_apply(args: argparse.Namespace) -> int:
     return exit_codes.OK
 
 
-__all__ = ["register", "report_dict", "print_report", "planned_visits"]
+# -- commissioning ------------------------------------------------------------------------
+
+AXIS_STEP_MAX = 15.0   # deg or mm: the largest typed step while commissioning (the gate's joint-jog cap)
+
+
+def _axis_index(arm: Arm, text: str) -> int:
+    names = [j.name for j in arm.joints]
+    if text in names:
+        return names.index(text)
+    if text.isdigit() and 1 <= int(text) <= arm.n_joints:
+        return int(text) - 1
+    raise UsageError(f"AXIS: no joint {text!r} ({', '.join(names)}, or 1..{arm.n_joints})")
+
+
+class _Session:
+    """The walk-through's dialogue on stdin/stderr; ``quit`` or end of input ends it."""
+
+    def __init__(self, arm: Arm, gate, index: int, speed: float):
+        self.arm, self.gate, self.index, self.speed = arm, gate, index, speed
+        self.joint = arm.joints[index]
+        self.out = sys.stderr
+
+    def say(self, text: str) -> None:
+        print(text, file=self.out)
+
+    def ask(self, question: str) -> str:
+        print(f"{question} ", end="", file=self.out, flush=True)
+        line = sys.stdin.readline()
+        if not line or line.strip().lower() in ("q", "quit"):
+            if not line:
+                print("", file=self.out)
+            raise Refused("commissioning ended: nothing written")
+        return line.strip()
+
+    def number(self, question: str, default: float | None = None) -> float:
+        while True:
+            text = self.ask(question)
+            if not text and default is not None:
+                return default
+            try:
+                value = float(text)
+                if math.isfinite(value):
+                    return value
+            except ValueError:
+                pass
+            self.say(f"benchjog: not a number ({text!r}); again, or quit")
+
+    def counts(self) -> int:
+        from benchjog.drivers.calibration import counts_from_joint
+
+        return counts_from_joint(self.joint, self.gate.state().joints[self.index])
+
+    def jog(self, delta_display: float, question: str) -> None:
+        proposal = self.gate.propose_jog(f"j{self.index + 1}", self.joint.from_display(delta_display),
+                                         speed_pct=self.speed)
+        result = self.gate.execute(proposal, PromptConfirmer(self.arm, question=question))
+        if not result.completed:
+            raise Refused(f"{result.detail}: nothing written")
+
+    def steps_until_ok(self, what: str, keep: bool = False) -> str:
+        unit = self.joint.unit
+        extra = ", or keep (the file's limits)" if keep else ""
+        while True:
+            text = self.ask(f"{what}: a step in {unit} (+0.5, -2; at most {AXIS_STEP_MAX:g}), ok{extra}>")
+            if text.lower() == "ok" or (keep and text.lower() == "keep"):
+                return text.lower()
+            try:
+                delta = float(text)
+            except ValueError:
+                self.say(f"benchjog: not a step: {text!r}")
+                continue
+            if not math.isfinite(delta) or abs(delta) > AXIS_STEP_MAX:
+                self.say(f"benchjog: a step is at most {AXIS_STEP_MAX:g} {unit}")
+                continue
+            proposal = self.gate.propose_jog(f"j{self.index + 1}", self.joint.from_display(delta),
+                                             speed_pct=self.speed)
+            result = self.gate.execute(proposal, touching.AcceptShown(self.arm, self.out))
+            if not result.completed:
+                self.say(f"benchjog: {result.detail}")
+
+
+def _sense_words(joint) -> str:
+    if joint.is_revolute:
+        return "counter-clockwise seen from above (the positive sense)"
+    return "down, towards the work (the positive sense: +value lowers the tool)"
+
+
+def cmd_commission(args: argparse.Namespace) -> int:
+    from benchjog.console.cell import commissioning as cm
+
+    arm = load_arm(args.arm)
+    index = _axis_index(arm, args.axis)
+    joint = arm.joints[index]
+    for name, value, top in (("--step", args.step, 5.0), ("--test", args.test, AXIS_STEP_MAX),
+                             ("--margin", args.margin, 20.0)):
+        if not (math.isfinite(value) and 0 < value <= top):
+            raise UsageError(f"{name}: must be in (0, {top:g}] ({value:g})")
+    if not 0 < args.speed <= 100:
+        raise UsageError(f"--speed: must be in (0, 100] ({args.speed:g})")
+    out = Path(args.out)
+    if out.is_dir():
+        raise UsageError(f"--out: {args.out} is a directory")
+    original = cf.arm_text(arm)
+    found = cm.AxisFindings(joint.direction, joint.counts_per_unit, joint.zero)
+    unit = joint.unit
+    print(f"benchjog: commissioning {joint.name} at {args.speed:g} % speed; keep clear of the arm, "
+          "hand on the e-stop", file=sys.stderr)
+    with open_gate(arm, args) as gate:
+        gate.enable()
+        s = _Session(arm, gate, index, args.speed)
+        try:
+            s.say(f"1/5 direction: {joint.name} jogs {args.step:+g} {unit} by the arm file")
+            s.jog(args.step, "Jog?")
+            if not is_yes(s.ask(f"Did {joint.name} move {_sense_words(joint)}? [y/n]")):
+                found.direction = -joint.direction
+            s.jog(-args.step, "Back?")
+
+            s.say(f"2/5 counts per unit: {joint.name} moves {args.test:g} {unit} by the arm file")
+            c0 = s.counts()
+            s.jog(args.test, "Move?")
+            moved = s.counts() - c0
+            measured = s.number(f"How far did it move, measured ({unit})?")
+            found.counts_per_unit = cm.counts_per_unit_from_measure(moved, measured)
+            s.jog(-args.test, "Back?")
+
+            s.say(f"3/5 zero: jog {joint.name} onto its reference mark")
+            s.steps_until_ok("to the mark")
+            mark = s.number(f"The mark's value ({unit}) [0]:", default=0.0)
+            found.zero = cm.zero_from_mark(s.counts(), mark, found.counts_per_unit, found.direction)
+
+            s.say(f"4/5 travel: jog {joint.name} to each end of its safe travel (within the arm "
+                  "file's limits)")
+            if s.steps_until_ok("to one end", keep=True) == "ok":
+                end_a = cm.value_from_counts(s.counts(), found.zero, found.counts_per_unit, found.direction)
+                s.steps_until_ok("to the other end")
+                end_b = cm.value_from_counts(s.counts(), found.zero, found.counts_per_unit, found.direction)
+                found.min, found.max = cm.soft_limits_from_travel(end_a, end_b, args.margin)
+            else:
+                s.say("the soft limits stay as the arm file has them")
+
+            s.say("5/5 homing: the controller's homing cycle; afterwards the axis should be at count 0")
+            result = gate.home(PromptConfirmer(arm, question="Home?"))
+            if result.completed:
+                c = s.counts()
+                found.homing = (f"done, {joint.name} at count {c}" +
+                                ("" if c == 0 else " (not 0: check the home switch)"))
+            else:
+                found.homing = f"not done: {result.detail}"
+        except cm.CommissionError as exc:
+            raise Refused(f"{exc}: nothing written") from None
+        finally:
+            drives_off(gate)
+    changes = found.changes(joint)
+    limits = ("soft limits as they were" if found.min is None else
+              f"soft limits {found.min:.4f} .. {found.max:.4f} {unit} ({args.margin:g} {unit} inside "
+              "the travel found)")
+    print(f"{joint.name}: direction {found.direction}, counts per {unit} {found.counts_per_unit:.6g}, "
+          f"zero {found.zero:.5f} {unit}, {limits}; homing {found.homing}", file=sys.stderr)
+    if not changes:
+        print("benchjog: the arm file already says all this: nothing to write", file=sys.stderr)
+        return exit_codes.OK
+    new = cm.commissioned_text(original, index, changes)
+    cf.check_arm_text(new, str(out))
+    old = read_text(out) if out.exists() else original
+    print(cf.diff_text(old, new, out.name, "commissioned"), file=sys.stderr, end="")
+    print(f"Write {out}{' (the previous version kept as ' + out.name + '.bak)' if out.exists() else ''}? "
+          "[y/N] ", end="", file=sys.stderr, flush=True)
+    answer = sys.stdin.readline()
+    if not is_yes(answer):
+        raise Refused("cancelled: nothing written")
+    cf.write_arm_file(out, new)
+    print(f"benchjog: wrote {out}; home the arm again before relying on it", file=sys.stderr)
+    return exit_codes.OK
+
+
+__all__ = ["register"]
