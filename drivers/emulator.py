@@ -17,7 +17,9 @@ Test switches (options): ``estop_at_s``, ``estop_after`` (MOVEs), ``fault_after`
 ``garble_every`` (every Nth host line arrives with a bad CRC: ``ERR 0 BAD_CRC``),
 ``corrupt_every`` (every Nth reply leaves with a bad CRC), ``slow_ms`` (delay every
 reply), ``counters`` (False: STATE without ``moves=``/``last=``, as an older
-controller). :class:`Emulator` is used in-process by the tests; :func:`serve` runs it for
+controller). ``true_errors``: the arm the emulated controller really drives differs from
+its arm file (see drivers/sim.py; :meth:`Emulator.tool_in_plate_mm` is the bench's
+ruler). :class:`Emulator` is used in-process by the tests; :func:`serve` runs it for
 ``benchjog emulate``.
 """
 
@@ -64,6 +66,7 @@ class EmulatorOptions:
     corrupt_every: int | None = None
     slow_ms: float = 0.0
     counters: bool = True
+    true_errors: dict | None = None   # calibration rehearsals: the true arm's errors
 
     @classmethod
     def from_mapping(cls, values: dict) -> "EmulatorOptions":
@@ -293,6 +296,16 @@ class Emulator:
         with self._lock:
             self._tick(self.clock())
             return tuple(self.core.pos)
+
+    def tool_in_plate_mm(self) -> tuple[float, ...]:
+        """Where the true arm's tool tip is on the fixture plate (``true_errors``)."""
+        from benchjog.drivers.calibration import joints_from_counts
+        from benchjog.kinematics import identify
+
+        vec = identify.true_vector_from_errors(self.arm, dict(self.opts.true_errors or {}))
+        joints = joints_from_counts(self.arm, self.position_counts())
+        point = identify.plate_points_mm(self.arm, identify.params_of(self.arm), vec, [joints])[0]
+        return tuple(float(v) for v in point)
 
     # -- output ---------------------------------------------------------------------
     def _flush(self) -> None:

@@ -295,6 +295,10 @@ class SimHooks:
     def inject_stall(self, axis: int = 1) -> None:
         self._driver.inject_stall(axis)
 
+    def tool_in_plate_mm(self) -> tuple[float, ...]:
+        """The simulated bench's ruler: where the true arm's tool tip is on the plate."""
+        return self._driver.tool_in_plate_mm()
+
     @property
     def commands(self) -> tuple:
         return tuple(self._driver.commands)

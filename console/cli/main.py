@@ -23,6 +23,7 @@ COMMAND_MODULES = (
     "benchjog.console.cli.cmd_motion",
     "benchjog.console.cli.cmd_program",
     "benchjog.console.cli.cmd_firmware",
+    "benchjog.console.cli.cmd_calibrate",
 )
 
 
