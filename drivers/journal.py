@@ -22,9 +22,11 @@ class JournalError(OSError):
 
 
 def default_journal_dir() -> Path:
-    """``$XDG_DATA_HOME/benchjog/journal`` (``~/.local/share`` when unset)."""
-    base = os.environ.get("XDG_DATA_HOME") or os.path.join(os.path.expanduser("~"), ".local", "share")
-    return Path(base) / "benchjog" / "journal"
+    """The ``journal`` folder in the user's state directory (console/paths.py:
+    ``~/.local/state/benchjog/journal`` on Linux, ``$XDG_STATE_HOME`` honoured)."""
+    from benchjog.console.paths import journal_dir
+
+    return journal_dir()
 
 
 def _jsonable(value: Any) -> Any:
