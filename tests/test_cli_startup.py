@@ -10,8 +10,12 @@ from __future__ import annotations
 
 import subprocess
 import sys
+from pathlib import Path
 
 import pytest
+
+HERE = Path(__file__).resolve().parent  # not the repository root, whose benchjog/ folder
+# would shadow the installed package for `python -m benchjog` in a non-editable install
 
 HEAVY = ("numpy", "rich", "textual", "serial", "tomlkit", "shtab", "importlib.metadata",
          "benchjog.kinematics.planner", "benchjog.drivers.interlock", "benchjog.kinematics.solve",
@@ -20,7 +24,7 @@ HEAVY = ("numpy", "rich", "textual", "serial", "tomlkit", "shtab", "importlib.me
 
 def imported(*args: str) -> set[str]:
     done = subprocess.run([sys.executable, "-X", "importtime", "-m", "benchjog", *args],
-                          capture_output=True, text=True, timeout=60)
+                          capture_output=True, text=True, timeout=60, cwd=HERE)
     assert done.returncode in (0, 1), done.stderr[-2000:]
     return {line.split("|")[-1].strip() for line in done.stderr.splitlines()
             if line.startswith("import time:") and "|" in line} - {"package"}
@@ -53,7 +57,7 @@ def test_fk_into_a_pipe_never_wraps_a_warning(tmp_path):
     arm = tmp_path / "long.toml"
     arm.write_text(text.replace('name = "elbow"', f'name = "{long_name}"'))
     done = subprocess.run([sys.executable, "-m", "benchjog", "fk", "0", "720", "--arm", str(arm)],
-                          capture_output=True, text=True, timeout=60)
+                          capture_output=True, text=True, timeout=60, cwd=HERE)
     assert done.returncode == 0, done.stderr
     lines = done.stdout.splitlines()
     warnings = [line for line in lines if line.startswith("warning:")]

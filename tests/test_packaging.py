@@ -44,10 +44,24 @@ def _run(cmd, cwd=None, env=None, check=True, timeout=300) -> subprocess.Complet
     return done
 
 
+SKIP_PARTS = {".venv", "build", "dist", "__pycache__", ".git", ".hypothesis", ".pytest_cache"}
+
+
+def _project_files(under: str = "") -> list[str]:
+    """The files git knows (tracked and new, not ignored): what a checkout holds; outside
+    a git checkout (an unpacked sdist) every file but build and cache folders."""
+    done = subprocess.run(["git", "ls-files", "-co", "--exclude-standard", "-z", "--", under or "."],
+                          cwd=ROOT, capture_output=True, text=True)
+    if done.returncode == 0 and (ROOT / ".git").exists():
+        return [f for f in done.stdout.split("\0") if f]
+    return sorted(str(p.relative_to(ROOT)) for p in (ROOT / under).rglob("*")
+                  if p.is_file() and not SKIP_PARTS & set(p.relative_to(ROOT).parts)
+                  and not any(part.endswith(".egg-info") for part in p.parts)
+                  and p.suffix not in (".pyc",))
+
+
 def _source_tree(dest: Path) -> Path:
-    """The files git knows (tracked and new, not ignored): what a checkout holds."""
-    listed = _run(["git", "ls-files", "-co", "--exclude-standard", "-z"], cwd=ROOT).stdout
-    for rel in filter(None, listed.split("\0")):
+    for rel in _project_files():
         src = ROOT / rel
         if src.is_file():
             (dest / rel).parent.mkdir(parents=True, exist_ok=True)
@@ -156,7 +170,7 @@ def test_installed_examples_check_cleanly(venv, tmp_path):
 
 
 def test_sdist_carries_its_tests_and_runs_them(built, venv):
-    tracked = _run(["git", "ls-files", "tests"], cwd=ROOT).stdout.split()
+    tracked = _project_files("tests")
     with tarfile.open(built["sdist"]) as tar:
         names = {n.split("/", 1)[1] for n in tar.getnames() if "/" in n}
     missing = [t for t in tracked if t not in names]

@@ -26,6 +26,7 @@ COMMAND_MODULES = (
     "benchjog.console.cli.cmd_drivers",
     "benchjog.console.cli.cmd_motion",
     "benchjog.console.cli.cmd_program",
+    "benchjog.console.cli.cmd_reset",
 )
 
 
