@@ -149,3 +149,46 @@ def test_an_internal_error_is_one_line_and_exit_70(capsys, monkeypatch):
     monkeypatch.setenv("BENCHJOG_DEBUG", "1")
     with pytest.raises(RuntimeError):
         main(["solve", "100", "200"])
+
+
+def test_huge_values_print_sensibly_and_fk_warns_as_for_720(capsys):
+    # solve 1e308 1e308: refused as out of reach, the target shown as 1e+308, not 309 digits
+    assert main(["solve", "1e308", "1e308"]) == 1
+    out = capsys.readouterr().out
+    assert "x 1e+308 mm, y 1e+308 mm" in out and max(len(line) for line in out.splitlines()) < 120
+    # fk 1e308 0 warns like fk 720 0: beyond the shoulder's max, exit 0, short lines
+    assert main(["fk", "720", "0"]) == 0
+    small = capsys.readouterr().out
+    assert main(["fk", "1e308", "0"]) == 0
+    huge = capsys.readouterr().out
+    assert "warning: shoulder at 720.00 deg passes its max 150.00 deg" in small
+    assert "warning: shoulder at 1e+308 deg passes its max 150.00 deg" in huge
+    assert max(len(line) for line in huge.splitlines()) < 120
+    assert "-0.000" not in small
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["fk", "0", "0", "--arm", "nosuch"], "nosuch: arm: no such arm file or built-in arm "
+                                           "(built-in: planar-bench, scara-bench)"),
+    (["move", "100", "200", "--speed", "1e-9"], "--speed: must be 1 to 100"),
+    (["move", "100", "200", "--speed", "0.5"], "--speed: must be 1 to 100"),
+    (["move", "100", "200", "--speed", "nan"], "--speed: must be 1 to 100"),
+    (["move", "100", "200", "--speed", "101"], "--speed: must be 1 to 100"),
+])
+def test_arm_names_and_speed_bounds_are_one_line_exit_2(capsys, argv, words):
+    assert main(argv) == 2
+    err = capsys.readouterr().err
+    assert words in err and len(err.strip().splitlines()) == 1
+
+
+def test_usage_lines_name_one_target():
+    # nargs='+' printed "X Y [Z [ROLL]] [X Y [Z [ROLL]] ...]", as if several targets were taken
+    from benchjog.console.cli.main import build_parser
+    import argparse
+
+    parser = build_parser()
+    subs = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction)).choices
+    assert subs["solve"].format_usage().rstrip().endswith("X Y [Z] [ROLL]")
+    assert subs["move"].format_usage().rstrip().endswith("X Y [Z] [ROLL]")
+    assert subs["fk"].format_usage().rstrip().endswith("J1 J2 [J3] [J4]")
+    assert "..." not in subs["solve"].format_usage()

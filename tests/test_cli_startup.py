@@ -17,7 +17,7 @@ import pytest
 HERE = Path(__file__).resolve().parent  # not the repository root, whose benchjog/ folder
 # would shadow the installed package for `python -m benchjog` in a non-editable install
 
-HEAVY = ("numpy", "rich", "textual", "serial", "tomlkit", "shtab", "importlib.metadata",
+HEAVY = ("numpy", "rich", "textual", "serial", "tomlkit", "shtab", "importlib.metadata", "logging",
          "benchjog.kinematics.planner", "benchjog.drivers.interlock", "benchjog.kinematics.solve",
          "benchjog.console.cell.points", "benchjog.console.cell.program_runs")
 
@@ -42,7 +42,7 @@ def test_version_and_help_load_nothing_heavy(args):
 def test_kinematics_json_loads_numpy_but_no_ui_planner_or_link(args):
     mods = imported(*args)
     assert "numpy" in mods and "benchjog.kinematics.solve" in mods
-    unused = {"rich", "textual", "serial", "tomlkit", "shtab"}
+    unused = {"rich", "textual", "serial", "tomlkit", "shtab", "logging"}
     assert not {m for m in mods if m.split(".")[0] in unused}
     assert not mods & {"benchjog.kinematics.planner", "benchjog.drivers.interlock",
                        "benchjog.console.cell.points", "importlib.metadata"}

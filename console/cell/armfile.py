@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-import logging
+import sys
 import tomllib
 from importlib import resources
 from pathlib import Path
@@ -14,7 +14,14 @@ BUILTIN_ARMS = ("planar-bench", "scara-bench")
 DEFAULT_ARM = "planar-bench"
 MAX_ARM_FILE_BYTES = 1024 * 1024  # an arm file is a few kB
 
-log = logging.getLogger(__name__)
+
+
+def _info(message: str, *args: object) -> None:
+    """Log at INFO when logging is in use (``-v``); a command without it does not pay
+    for importing the logging package just to drop the record."""
+    logging = sys.modules.get("logging")
+    if logging is not None:
+        logging.getLogger(__name__).info(message, *args)
 
 
 def _arm_from_text(text: str, source: str) -> Arm:
@@ -25,7 +32,7 @@ def _arm_from_text(text: str, source: str) -> Arm:
     except RecursionError:
         raise ArmSpecError(source, "toml", "arrays or tables nested too deeply") from None
     arm = arm_from_mapping(data, source)
-    log.info("arm %s (%s, %d joints) from %s", arm.name, arm.geometry, arm.n_joints, source)
+    _info("arm %s (%s, %d joints) from %s", arm.name, arm.geometry, arm.n_joints, source)
     return arm
 
 

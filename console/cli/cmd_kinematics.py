@@ -49,6 +49,15 @@ def target_from_args(arm: Arm, coords: list[str]) -> tuple[float, ...]:
     return target_from_display(arm, [parse_number(text, name) for text, name in zip(coords, names)])
 
 
+def num_text(value: float, places: int = 3) -> str:
+    """A number for the text output: fixed places, or 4 significant digits when huge
+    (``solve 1e308 1e308`` prints 1e+308, not 309 digits), never -0.000."""
+    if abs(value) >= 1e7:
+        return f"{value:.4g}"
+    text = f"{value:.{places}f}"
+    return text[1:] if text.startswith("-") and float(text) == 0 else text
+
+
 def display_target(arm: Arm, target: tuple[float, ...]) -> list[float]:
     shown = list(target)
     if arm.is_scara:
@@ -91,7 +100,7 @@ def _print_solve(arm: Arm, result: IKResult) -> None:
     out = text_console()
     names = ["x", "y", "z", "roll"][: len(result.target)]
     units = ["mm", "mm", "mm", "deg"]
-    target = ", ".join(f"{n} {v:.3f} {u}" for n, v, u in
+    target = ", ".join(f"{n} {num_text(v)} {u}" for n, v, u in
                        zip(names, display_target(arm, result.target), units))
     out.print(f"[bold]{arm.name}[/bold] ({arm.geometry}) target: {target}")
     if result.solutions:
@@ -101,7 +110,7 @@ def _print_solve(arm: Arm, result: IKResult) -> None:
             table.add_column(f"{joint.name} ({joint.unit})", justify="right")
         table.add_column("usable")
         for sol in result.solutions:
-            table.add_row(sol.branch.value, *(f"{v:.3f}" for v in display_joints(arm, sol.joints)),
+            table.add_row(sol.branch.value, *(num_text(v) for v in display_joints(arm, sol.joints)),
                           "yes" if sol.usable else "[red]no[/red]")
         out.print(table)
         for sol in result.solutions:
@@ -134,11 +143,11 @@ def cmd_fk(args: argparse.Namespace) -> int:
                     "warnings": warnings})
         return exit_codes.OK
     out = text_console()
-    joints = ", ".join(f"{j.name} {j.to_display(v):.3f} {j.unit}" for j, v in zip(arm.joints, values))
+    joints = ", ".join(f"{j.name} {num_text(j.to_display(v))} {j.unit}" for j, v in zip(arm.joints, values))
     labels = ("x", "y", "z", "roll") if arm.is_scara else ("x", "y", "heading")
     units = ("mm", "mm", "mm", "deg") if arm.is_scara else ("mm", "mm", "deg")
     out.print(f"[bold]{arm.name}[/bold] joints: {joints}")
-    out.print("tool: " + ", ".join(f"{n} {v:.3f} {u}" for n, v, u in zip(labels, tool, units)))
+    out.print("tool: " + ", ".join(f"{n} {num_text(v)} {u}" for n, v, u in zip(labels, tool, units)))
     for warning in warnings:
         out.print(f"[yellow]warning:[/yellow] {warning}")
     return exit_codes.OK

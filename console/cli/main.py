@@ -127,11 +127,14 @@ def _run(parser: argparse.ArgumentParser, args: argparse.Namespace) -> int:
 
 
 def _setup_logging(args: argparse.Namespace) -> None:
-    """stdlib logging on stderr: warnings by default, info with -v, debug with -vv,
-    errors only with --quiet."""
+    """stdlib logging on stderr: info with -v, debug with -vv, errors only with --quiet.
+    Without either, logging is not even imported (start-up time); a warning then still
+    reaches stderr through Python's last-resort handler."""
+    verbose = getattr(args, "verbose", 0) or 0
+    if not verbose and not getattr(args, "quiet", False):
+        return
     import logging
 
-    verbose = getattr(args, "verbose", 0) or 0
     if getattr(args, "quiet", False):
         level = logging.ERROR
     else:
