@@ -184,3 +184,26 @@ def test_sdist_carries_its_tests_and_runs_them(built, venv):
                 check=False)
     assert done.returncode == 0, done.stdout[-2000:] + done.stderr[-2000:]
     assert " passed" in done.stdout
+
+
+def test_floor_constraints_match_the_declared_floors():
+    # .ci/run tests at tests/constraints-floor.txt: each pin must be the `>=` floor that
+    # pyproject.toml declares, or the floor run tests something users are not promised
+    import re
+    import tomllib
+
+    declared = {}
+    for req in tomllib.loads((ROOT / "pyproject.toml").read_text())["project"]["dependencies"]:
+        name, floor = re.fullmatch(r"([A-Za-z0-9_.-]+)>=([0-9.]+)", req).groups()
+        declared[name.lower()] = floor
+    pinned = {}
+    for line in (ROOT / "tests" / "constraints-floor.txt").read_text().splitlines():
+        line = line.split("#")[0].strip()
+        if line:
+            name, version = line.split("==")
+            pinned[name.lower()] = version
+    assert set(pinned) == set(declared)
+    for name, floor in declared.items():
+        norm = lambda v: tuple(int(p) for p in v.split("."))  # noqa: E731
+        padded = norm(floor) + (0,) * (3 - len(norm(floor)))
+        assert norm(pinned[name]) == padded, (name, floor, pinned[name])
