@@ -203,7 +203,11 @@ def test_floor_constraints_match_the_declared_floors():
             name, version = line.split("==")
             pinned[name.lower()] = version
     assert set(pinned) == set(declared)
+    def norm(version: str) -> tuple[int, ...]:
+        parts = [int(p) for p in version.split(".")]
+        while parts and parts[-1] == 0:
+            parts.pop()  # 6.2 == 6.2.0 (PEP 440 release segments pad with zeros)
+        return tuple(parts)
+
     for name, floor in declared.items():
-        norm = lambda v: tuple(int(p) for p in v.split("."))  # noqa: E731
-        padded = norm(floor) + (0,) * (3 - len(norm(floor)))
-        assert norm(pinned[name]) == padded, (name, floor, pinned[name])
+        assert norm(pinned[name]) == norm(floor), (name, floor, pinned[name])
