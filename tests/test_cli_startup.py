@@ -63,3 +63,10 @@ def test_fk_into_a_pipe_never_wraps_a_warning(tmp_path):
     warnings = [line for line in lines if line.startswith("warning:")]
     assert any(long_name in w and len(w) > 100 for w in warnings), lines
     assert all(line.startswith(("warning:", "tool:", "planar-bench")) for line in lines), lines
+
+
+def test_version_alone_builds_no_parser():
+    # the quickest answer: `benchjog --version` is printed before argparse is imported
+    mods = imported("--version")
+    assert "argparse" not in mods and "benchjog.console.cli.common" not in mods
+    assert "argparse" in imported("--help")  # the listing would show it

@@ -6,7 +6,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from typing import TYPE_CHECKING
+TYPE_CHECKING = False  # typing.TYPE_CHECKING without importing typing at start-up
 
 from benchjog.console.cli.common import (add_arm_option, add_journal_option, add_output_options,
                                          add_target_arguments,

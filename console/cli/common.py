@@ -6,10 +6,11 @@ with the console and re-exported here for the subcommands."""
 from __future__ import annotations
 
 import argparse
-import json
 import math
 import sys
-from typing import Any
+TYPE_CHECKING = False  # typing's own constant, without importing typing at start-up
+if TYPE_CHECKING:
+    from typing import Any
 
 from benchjog.console.cell.link import open_gate
 from benchjog.console.errors import UsageError
@@ -103,6 +104,8 @@ def parse_number(text: str, name: str) -> float:
 def print_json(data: Any) -> None:
     """One JSON document (or one line of a stream) on stdout, flushed at once so a
     reader of a stream sees each line as it happens."""
+    import json
+
     json.dump(data, sys.stdout, allow_nan=False)
     sys.stdout.write("\n")
     sys.stdout.flush()

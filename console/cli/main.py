@@ -12,14 +12,15 @@ inside the command's function, so ``--version`` and ``--help`` load none of them
 
 from __future__ import annotations
 
-import argparse
-import importlib
 import os
 import sys
-from collections.abc import Sequence
 
 from benchjog.console import exit_codes
-from benchjog.console.cli.common import add_verbosity_options, baud_rate
+
+TYPE_CHECKING = False  # typing.TYPE_CHECKING without importing typing at start-up
+if TYPE_CHECKING:
+    import argparse
+    from collections.abc import Sequence
 
 COMMAND_MODULES = (
     "benchjog.console.cli.cmd_kinematics",
@@ -30,11 +31,16 @@ COMMAND_MODULES = (
 )
 
 
-class _Parser(argparse.ArgumentParser):
-    """Usage errors as one line on stderr, exit 2."""
+def _parser_class():
+    """argparse's parser with usage errors as one line on stderr, exit 2 (made on first
+    use: ``benchjog --version`` does not import argparse at all)."""
+    import argparse
 
-    def error(self, message: str):  # type: ignore[override]
-        self.exit(exit_codes.BAD_INPUT, f"benchjog: {message} (see benchjog --help)\n")
+    class _Parser(argparse.ArgumentParser):
+        def error(self, message: str):  # type: ignore[override]
+            self.exit(exit_codes.BAD_INPUT, f"benchjog: {message} (see benchjog --help)\n")
+
+    return _Parser
 
 
 def version() -> str:
@@ -43,6 +49,11 @@ def version() -> str:
 
 
 def build_parser() -> argparse.ArgumentParser:
+    import importlib
+
+    from benchjog.console.cli.common import add_verbosity_options, baud_rate
+
+    _Parser = _parser_class()
     parser = _Parser(prog="benchjog", description=(
         "Jog, teach and run a small bench robot arm (planar 2R or SCARA). With no "
         "command: the console on the built-in simulated arm."))
