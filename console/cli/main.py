@@ -261,7 +261,13 @@ def _console_or_overview(parser: argparse.ArgumentParser, args: argparse.Namespa
         args.points = args.points or str(cell / "points.toml")
         args.program = args.program or str(cell / "program.toml")
 
-    return run_console(args)
+    guard = sys.stdout
+    if isinstance(guard, _PipeGuard):  # the console owns its terminal: hand Textual the real one
+        sys.stdout = guard._stream
+    try:
+        return run_console(args)
+    finally:
+        sys.stdout = guard
 
 
 if __name__ == "__main__":  # pragma: no cover
