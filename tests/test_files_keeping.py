@@ -134,3 +134,32 @@ def test_a_lock_that_cannot_be_written_is_one_line(cell):
         PointBook.open(path, ARM)
     line = str(caught.value)
     assert "\n" not in line and "cannot lock" in line and str(path) in line
+
+
+async def test_teach_screen_with_an_unwritable_lock_is_read_only_not_a_crash(cell):
+    # the full-disk lock case in the console: the teach key opens the screen read-only
+    # with the one-line reason; the app keeps running (Textual App.run_test and Pilot)
+    from benchjog.console.tui.app import make_app
+    from benchjog.console.tui.screens.teach import TeachScreen
+    from benchjog.drivers.interlock import Interlock
+
+    os.symlink("/dev/full", lock_path(cell / "points.toml"))
+    gate = Interlock.open(ARM, "sim", journal=False)
+    try:
+        app = make_app(ARM, gate, points_path=cell / "points.toml",
+                       program_path=cell / "program.toml")
+        async with app.run_test(size=(120, 40)) as pilot:
+            await pilot.pause()
+            await pilot.press("t")
+            for _ in range(100):
+                if isinstance(app.screen, TeachScreen):
+                    break
+                await pilot.pause(0.03)
+            screen = app.screen
+            assert isinstance(screen, TeachScreen)
+            assert screen.read_only is True
+            await pilot.press("a")  # teach: refused politely on a read-only screen
+            await pilot.pause(0.1)
+            assert app.is_running
+    finally:
+        gate.close()
