@@ -34,12 +34,12 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from benchjog.kinematics import planar, profile, scara, solve, sweep
+from benchjog.kinematics.options import (JOINT, LINE, LINE_TOLERANCE_MAX_MM, LINE_TOLERANCE_MIN_MM,
+                                         LINE_TOLERANCE_MM, PATHS)
 from benchjog.kinematics.limits import TWO_PI, limit_clearance, limit_problem
 from benchjog.kinematics.model import Arm, Branch, Segment
 from benchjog.kinematics.solve import TargetError
 
-JOINT, LINE = "joint", "line"
-PATHS = (JOINT, LINE)
 NEAR_LIMIT_RAD = math.radians(5.0)   # warn when a joint comes this close to a soft limit
 NEAR_LIMIT_MM = 5.0
 DENSE_STEP_MM = 0.5                  # refusal checks along a line: one IK pose per 0.5 mm
@@ -51,9 +51,6 @@ BALANCE_FIRST_CHORDS = 16             # line knots: the first, uniform split tha
 BALANCE_MARGIN = 0.01                # chords aimed 1 % below the estimated longest
 BALANCE_PASSES = 6                   # splits tried before falling back to the greedy cut
 NO_MOTION = 1e-12
-LINE_TOLERANCE_MM = 0.05             # straight lines: default chordal tolerance
-LINE_TOLERANCE_MIN_MM = 0.0001       # below this a tolerance means nothing on a bench arm
-LINE_TOLERANCE_MAX_MM = 5.0          # (counts are ~0.01 deg: ~0.04 mm at 250 mm reach)
 LINE_NO_MOTION = 1e-9  # rad or mm: a line whose joints move less is planned as a joint move
 
 

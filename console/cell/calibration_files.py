@@ -38,7 +38,6 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-import tomlkit
 
 from benchjog.console.cell.safe_files import FileError, read_text, toml_text, write_atomic
 from benchjog.drivers.calibration import joints_from_counts
@@ -191,6 +190,8 @@ def corrected_text(original: str, result: identify.Identification) -> str:
     """The arm file's text with the fitted link lengths and zeros, and a ``[calibration]``
     table (the fit's summary and covariance, which ``solve`` reads back); every comment
     and every other key stays as the user wrote it."""
+    import tomlkit  # only when an arm file is written: solve reads this module too
+
     doc = tomlkit.parse(original)
     joints = doc["joints"]
     fixed = result.corrected

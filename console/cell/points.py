@@ -36,7 +36,6 @@ from __future__ import annotations
 
 import difflib
 import math
-import tomllib
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
@@ -44,7 +43,8 @@ from pathlib import Path
 from typing import Any
 
 from benchjog.kinematics.armspec import number_problem
-from benchjog.console.cell.safe_files import FileError, FileLock, read_text, real_path, toml_text, write_atomic
+from benchjog.console.cell.safe_files import (FileError, FileLock, parse_toml, read_text, real_path,
+                                             toml_text_keeping, write_atomic)
 from benchjog.kinematics.frames import FrameError, UserFrame, base_from_frame, frame_from_base, \
     frame_from_two_points
 from benchjog.kinematics.model import Arm, Branch
@@ -55,6 +55,7 @@ FILE_VERSION = 1
 BASE = "base"
 CONSISTENCY_MM = 0.05  # stored joints and Cartesian values further apart than this: a warning
 POINT_KEYS = ("name", "frame", "cartesian", "joints", "branch", "taught", "note")
+MAX_CELL_MM = 1e6  # a kilometre: any bench cell's coordinates are far inside this
 FRAME_KEYS = ("name", "origin", "angle_deg", "z_mm", "taught")
 
 
@@ -141,6 +142,7 @@ class PointBook:
     warnings: list[str] = field(default_factory=list)
     _lock: FileLock | None = field(default=None, repr=False)
     _where: dict[str, int] | None = field(default=None, repr=False, compare=False)
+    _as_read: str | None = field(default=None, repr=False)  # the file's text: a save keeps its style
 
     # --- files ---------------------------------------------------------------------
 
@@ -152,8 +154,10 @@ class PointBook:
             FileError: one line naming the file, the key and the problem.
         """
         path = Path(path)
-        book = book_from_mapping(_parse(path), arm, str(path))
+        text = read_text(path)
+        book = book_from_mapping(parse_toml(text, str(path)), arm, str(path))
         book.path = path
+        book._as_read = text
         return book
 
     @classmethod
@@ -188,16 +192,21 @@ class PointBook:
         target = Path(path) if path is not None else self.path
         if target is None:
             raise PointError("the book has no file yet: give a path")
-        text = self.to_text()
-        if self._lock is not None and real_path(target) == real_path(self.path):
+        same_file = self.path is not None and real_path(target) == real_path(self.path)
+        text = self.to_text(keep=self._as_read if same_file else None)
+        if self._lock is not None and same_file:
             write_atomic(target, text)
         else:
             with FileLock(target):
                 write_atomic(target, text)
+        if same_file:
+            self._as_read = text
         return target
 
-    def to_text(self) -> str:
-        return toml_text(self.to_mapping(), header=(
+    def to_text(self, keep: str | None = None) -> str:
+        """The file's text; ``keep``: the text as read, whose comments and formatting
+        stay (safe_files.toml_text_keeping)."""
+        return toml_text_keeping(keep, self.to_mapping(), header=(
             "benchjog points file: taught points and user frames (mm and degrees).\n"
             "Written by benchjog; edit with care: motion goes to cartesian, in frame,\n"
             "on branch."))
@@ -411,11 +420,7 @@ def _display_cartesian(arm: Arm, values: Sequence[float]) -> list[float]:
 # --- reading ---------------------------------------------------------------------------
 
 def _parse(path: Path) -> Mapping[str, Any]:
-    text = read_text(path)
-    try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise FileError(str(path), "toml", str(exc).splitlines()[0]) from None
+    return parse_toml(read_text(path), str(path))
 
 
 class _Reader:
@@ -516,6 +521,10 @@ def book_from_mapping(data: Mapping[str, Any], arm: Arm, source: str = "<points>
         ox, oy = r.numbers(raw, "origin", where, 2, "x, y mm")
         angle = math.radians(r.number(raw, "angle_deg", where))
         z = r.number(raw, "z_mm", where, default=0.0)
+        for key, value in (("origin", ox), ("origin", oy), ("z_mm", z)):
+            if abs(value) > MAX_CELL_MM:  # 1e308 would overflow the frame's arithmetic
+                raise r.fail(f"{where}: {key}", f"{value:g} mm is beyond +-{MAX_CELL_MM:g} mm: "
+                             "not a place on a bench")
         book.frames[name] = UserFrame(name, ox, oy, angle, z)
         book.frame_taught[name] = r.timestamp(raw, where)
 

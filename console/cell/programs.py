@@ -36,16 +36,16 @@ Every step may carry an optional ``note``. Steps are numbered from 1 for people
 from __future__ import annotations
 
 import math
-import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Union
 
 from benchjog.kinematics.armspec import number_problem
+from benchjog.console.cell.safe_files import (FileError, FileLock, parse_toml, read_text, real_path,
+                                             toml_text_keeping, write_atomic)
 from benchjog.kinematics.planner import check_tolerance
 from benchjog.kinematics.solve import TargetError
-from benchjog.console.cell.safe_files import FileError, FileLock, read_text, real_path, toml_text, write_atomic
 
 FILE_KIND = "benchjog-program"
 FILE_VERSION = 1
@@ -135,6 +135,7 @@ class Program:
     steps: list[Step] = field(default_factory=list)
     note: str = ""
     path: Path | None = None
+    _as_read: str | None = field(default=None, repr=False, compare=False)  # a save keeps its style
 
     @property
     def points_path(self) -> Path:
@@ -212,8 +213,10 @@ class Program:
             doc["steps"] = steps
         return doc
 
-    def to_text(self) -> str:
-        return toml_text(self.to_mapping(), header=(
+    def to_text(self, keep: str | None = None) -> str:
+        """The file's text; ``keep``: the text as read, whose comments and formatting
+        stay (safe_files.toml_text_keeping)."""
+        return toml_text_keeping(keep, self.to_mapping(), header=(
             "benchjog program: steps run in order; moves go to points of the points file."))
 
     def save(self, path: str | Path | None = None, lock: FileLock | None = None) -> Path:
@@ -222,12 +225,15 @@ class Program:
         target = Path(path) if path is not None else self.path
         if target is None:
             raise ProgramError("the program has no file yet: give a path")
+        same_file = self.path is not None and real_path(target) == real_path(self.path)
+        text = self.to_text(keep=self._as_read if same_file else None)
         if lock is not None and lock.held and lock.path == real_path(target):
-            write_atomic(target, self.to_text())
+            write_atomic(target, text)
         else:
             with FileLock(target):
-                write_atomic(target, self.to_text())
+                write_atomic(target, text)
         self.path = target
+        self._as_read = text
         return target
 
     @classmethod
@@ -239,12 +245,9 @@ class Program:
         """
         path = Path(path)
         text = read_text(path)
-        try:
-            data = tomllib.loads(text)
-        except tomllib.TOMLDecodeError as exc:
-            raise FileError(str(path), "toml", str(exc).splitlines()[0]) from None
-        program = program_from_mapping(data, str(path))
+        program = program_from_mapping(parse_toml(text, str(path)), str(path))
         program.path = path
+        program._as_read = text
         return program
 
 

@@ -28,9 +28,10 @@ from benchjog.drivers.calibration import counts_from_joints
 from benchjog.drivers.interlock import Confirmer, Proposal
 from benchjog.kinematics import identify as ident
 from benchjog.kinematics.model import Arm, Branch
+from benchjog.kinematics.options import TOUCH_SPEED_PCT
 from benchjog.kinematics.planner import JOINT
 
-REDUCED_SPEED_PCT = 25.0   # calibration and commissioning motions (a choice made here)
+REDUCED_SPEED_PCT = TOUCH_SPEED_PCT   # calibration and commissioning motions (kinematics/options.py)
 HOVER_MM = 10.0            # SCARA: approach this far above the hole
 HAND_STEP_MAX_MM = 5.0     # largest typed step (mm, or deg on a joint)
 SIM_ROUNDS = 8             # simulated hand: jog rounds per hole at most

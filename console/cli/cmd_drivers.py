@@ -6,7 +6,7 @@ import argparse
 import sys
 
 from benchjog.console import exit_codes
-from benchjog.console.cell.armfile import load_arm
+from benchjog.console.cli.common import add_output_options, note, print_json
 
 
 def register(subparsers) -> None:
@@ -36,10 +36,13 @@ def register(subparsers) -> None:
     emulate.add_argument("--slow-ms", type=_non_negative, default=0.0, metavar="MS",
                          help="delay every reply by MS milliseconds")
     emulate.add_argument("--pace", action="store_true", help="move bytes at the baud rate (10 bits a byte)")
+    add_output_options(emulate, json_help="the first line of stdout is a JSON object "
+                       "(device, arm, axes, baud) instead of the bare device path")
     emulate.set_defaults(func=cmd_emulate)
 
     ports = subparsers.add_parser("ports", help="list serial ports",
                                   description="List the serial ports, one a line.")
+    add_output_options(ports, json_help="one JSON array of {device, description, hwid}")
     ports.set_defaults(func=cmd_ports)
 
 
@@ -64,6 +67,7 @@ def _non_negative(text: str) -> float:
 
 
 def cmd_emulate(args: argparse.Namespace) -> int:
+    from benchjog.console.cell.armfile import load_arm
     from benchjog.drivers.emulator import EmulatorOptions, serve
 
     arm = load_arm(getattr(args, "arm", None))
@@ -76,18 +80,48 @@ def cmd_emulate(args: argparse.Namespace) -> int:
         estop_at_s=args.estop_at, estop_after=args.estop_after, fault_after=args.fault_after,
         drop_every=args.drop_every, garble_every=args.garble_every,
         corrupt_every=args.corrupt_every, slow_ms=args.slow_ms)
-    print(f"benchjog: emulating {arm.name} ({arm.n_joints} axes) at {baud} baud; type "
-          "estop, release or fault and Enter to play the controller's panel; ctrl+c to stop",
-          file=sys.stderr)
-    return serve(arm, options, sys.stdout, stdin=sys.stdin, stderr=sys.stderr)
+    note(args, f"benchjog: emulating {arm.name} ({arm.n_joints} axes) at {baud} baud; type "
+         "estop, release or fault and Enter to play the controller's panel; ctrl+c to stop")
+    out = sys.stdout
+    if args.json:
+        out = _FirstLineAsJson(out, {"arm": arm.name, "axes": arm.n_joints, "baud": baud})
+    return serve(arm, options, out, stdin=sys.stdin, stderr=sys.stderr)
 
 
-def cmd_ports(args: argparse.Namespace) -> int:  # noqa: ARG001
+class _FirstLineAsJson:
+    """stdout for ``emulate --json``: the emulator's first line (the device path) goes
+    out as ``{"device": path, ...extra}``; what follows passes through unchanged."""
+
+    def __init__(self, stream, extra: dict):
+        self._stream, self._extra, self._pending = stream, extra, ""
+
+    def write(self, text: str) -> int:
+        if self._extra is None:
+            return self._stream.write(text)
+        self._pending += text
+        if "\n" in self._pending:
+            first, rest = self._pending.split("\n", 1)
+            import json
+
+            self._stream.write(json.dumps({"device": first, **self._extra}) + "\n" + rest)
+            self._extra, self._pending = None, ""
+        return len(text)
+
+    def __getattr__(self, name: str):
+        return getattr(self._stream, name)
+
+
+def cmd_ports(args: argparse.Namespace) -> int:
     from serial.tools import list_ports
 
     found = sorted(list_ports.comports(), key=lambda p: p.device)
+    if args.json:
+        print_json([{"device": p.device,
+                     "description": p.description if p.description != "n/a" else None,
+                     "hwid": p.hwid if p.hwid != "n/a" else None} for p in found])
+        return exit_codes.OK
     if not found:
-        print("no serial ports found", file=sys.stderr)
+        note(args, "no serial ports found")
         return exit_codes.OK
     for port in found:
         desc = port.description if port.description and port.description != "n/a" else ""

@@ -10,7 +10,7 @@ from pathlib import Path
 from benchjog.console import exit_codes
 from benchjog.console.cell.armfile import load_arm
 from benchjog.console.cell.safe_files import write_atomic
-from benchjog.console.cli.common import print_json
+from benchjog.console.cli.common import add_output_options, print_json
 from benchjog.console.errors import Refused, UsageError
 
 
@@ -30,7 +30,7 @@ def register(sub: argparse._SubParsersAction) -> None:
                     "(revolute joints servos, prismatic ones step/direction; default)")
     fw.add_argument("--force", action="store_true",
                     help="replace firmware files already in the folder (each old one kept as .bak)")
-    fw.add_argument("--json", action="store_true", help="machine-readable output")
+    add_output_options(fw)
     fw.set_defaults(func=cmd_firmware)
 
 
