@@ -294,3 +294,22 @@ def test_an_unwired_output_is_refused(make_rig):
         rig.driver.set_output(5, True)
     rig.driver.set_output(2, True)
     assert rig.emulator.register(2, T.LED) == 1
+
+
+def test_a_stalled_host_is_a_watchdog_fault_and_the_servos_had_stopped(make_rig):
+    rig = make_rig()
+    d = rig.driver
+    ready(d)
+    d.queue(Segment((DEG(90.0), DEG(90.0)), 2.0))
+    time.sleep(0.2)
+    with d.bus.lock:              # the streaming thread cannot write for 0.3 s (> 100 ms)
+        time.sleep(0.3)
+        tripped = rig.emulator.register(1, T.BUS_WATCHDOG)
+    assert tripped == T.WATCHDOG_TRIPPED     # the servo stopped itself meanwhile
+    assert events_of(d, "fault")
+    assert d.state().latched == "fault: WATCHDOG axis=0"
+    assert rig.counts()[0] < 3600
+    d.reset()
+    assert rig.emulator.register(1, T.BUS_WATCHDOG) == 0
+    d.enable()
+    assert rig.emulator.register(1, T.BUS_WATCHDOG) == 5

@@ -534,6 +534,7 @@ class ServoBusDriver(Driver):
 
     def _tick(self, now: float) -> None:
         with self.bus.lock:
+            now = time.monotonic()   # after the lock: a wait for the bus counts as a gap too
             with self._lock:
                 if self._power_lost:
                     power_lost = True

@@ -438,3 +438,50 @@ def _sleep_until(t: float) -> None:
     delay = t - time.monotonic()
     if delay > 0:
         time.sleep(delay)
+
+
+def main(argv: list[str] | None = None) -> int:
+    """``python -m benchjog.drivers.servobus.emulator [--ids 1,2] [--baud N] [--pace]``:
+    servos on a pty for trying the driver by hand. Prints the device path on the first
+    line of stdout; then type ``cut`` / ``restore`` (servo supply off/on, as an e-stop
+    contact does), ``error ID`` (an overload on that servo) and Enter; ctrl+c stops."""
+    import argparse
+    import sys
+
+    from benchjog.drivers.servobus.probe import parse_ids
+
+    ap = argparse.ArgumentParser(prog="python -m benchjog.drivers.servobus.emulator",
+                                 description=main.__doc__.splitlines()[0])
+    ap.add_argument("--ids", default="1,2", help="servo ids (default 1,2)")
+    ap.add_argument("--baud", type=int, default=1_000_000)
+    ap.add_argument("--pace", action="store_true", help="move bytes at the baud rate")
+    args = ap.parse_args(argv)
+    try:
+        ids = parse_ids(args.ids)
+    except ValueError as exc:
+        print(f"servobus emulator: --ids: {exc}", file=sys.stderr)
+        return 2
+    emu = BusEmulator([ServoSpec(i) for i in ids], baud=args.baud, pace=args.pace)
+    print(emu.start(), flush=True)
+    try:
+        for line in sys.stdin:
+            words = line.split()
+            if words == ["cut"]:
+                emu.power_cut()
+            elif words == ["restore"]:
+                emu.power_restore()
+            elif len(words) == 2 and words[0] == "error" and words[1].isdigit() and int(words[1]) in emu.servos:
+                emu.inject_hardware_error(int(words[1]), 1 << 5)
+            elif words:
+                print("commands: cut, restore, error ID", file=sys.stderr)
+        while True:   # stdin closed: serve until interrupted
+            time.sleep(1.0)
+    except KeyboardInterrupt:
+        pass
+    finally:
+        emu.stop()
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
