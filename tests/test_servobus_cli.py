@@ -138,7 +138,7 @@ def test_move_through_the_interlock_on_the_bus(monkeypatch, capsys, tmp_path):
     emu = BusEmulator([ServoSpec(1), ServoSpec(2)])
     path = emu.start()
     try:
-        arm_path = bus_arm_file(tmp_path, '[bus]\nmode = "extended"\n')
+        arm_path = bus_arm_file(tmp_path, '[bus]\nmode = "extended"\nwatchdog_ms = 300\n')
         code, out, err = run(monkeypatch, capsys, "y\n", "move", "150", "200", "--branch", "elbow-up", "--arm", arm_path,
                              "--port", path, "--journal", str(tmp_path / "j.jsonl"))
         assert code == 0, err
@@ -156,7 +156,7 @@ def test_move_answered_no_moves_nothing_on_the_bus(monkeypatch, capsys, tmp_path
     emu = BusEmulator([ServoSpec(1), ServoSpec(2)])
     path = emu.start()
     try:
-        arm_path = bus_arm_file(tmp_path, '[bus]\nmode = "extended"\n')
+        arm_path = bus_arm_file(tmp_path, '[bus]\nmode = "extended"\nwatchdog_ms = 300\n')
         code, _, _ = run(monkeypatch, capsys, "n\n", "move", "150", "200", "--arm", arm_path,
                          "--port", path, "--journal", str(tmp_path / "j.jsonl"))
         assert code == 1 and emu.goal_changes == 0

@@ -14,6 +14,8 @@ import textwrap
 import time
 
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from benchjog.console.cell.armfile import builtin_arm
 from benchjog.drivers.base import ControllerError, LinkError, Mode
@@ -32,6 +34,9 @@ OVERLOAD = 1 << 5
 def rig_config(**kw) -> BusConfig:
     # The demo arm has 40 counts/deg, more than one turn of a 4096-pulse servo: extended mode.
     kw.setdefault("mode", T.EXTENDED_POSITION_MODE)
+    # 300 ms: a loaded 2-core test machine can stall a process past the 100 ms default;
+    # the watchdog's own tests ask for 100 ms
+    kw.setdefault("watchdog_ms", 300)
     kw.setdefault("outputs", {0: (1, T.LED.address), 2: (2, T.LED.address)})
     return BusConfig.for_arm(ARM, **kw)
 
@@ -120,7 +125,7 @@ def test_a_lagging_servo_arrives_late_without_a_fault(make_rig):
     assert wait_for(lambda: d.state().queued == 0, 2.0)
     assert rig.counts()[1] < 1200 and d.state().mode is Mode.MOVING   # still catching up
     assert d.wait_idle(5.0)
-    assert rig.counts() == (400, 1200) and d.state().latched is None
+    assert d.state().latched is None and rig.counts() == (400, 1200)
 
 
 def test_a_stuck_servo_is_a_following_fault(make_rig):
@@ -178,7 +183,7 @@ def test_hardware_error_in_words_and_reboot_only_on_reset(make_rig):
 
 
 def test_watchdog_is_armed_while_enabled_and_cleared_when_disabled(make_rig):
-    rig = make_rig()
+    rig = make_rig(config=rig_config(watchdog_ms=100))
     d = rig.driver
     ready(d)
     assert rig.emulator.register(1, T.BUS_WATCHDOG) == 5       # 100 ms in 20 ms units
@@ -297,7 +302,7 @@ def test_an_unwired_output_is_refused(make_rig):
 
 
 def test_a_stalled_host_is_a_watchdog_fault_and_the_servos_had_stopped(make_rig):
-    rig = make_rig()
+    rig = make_rig(config=rig_config(watchdog_ms=100))
     d = rig.driver
     ready(d)
     d.queue(Segment((DEG(90.0), DEG(90.0)), 2.0))
@@ -313,3 +318,91 @@ def test_a_stalled_host_is_a_watchdog_fault_and_the_servos_had_stopped(make_rig)
     assert rig.emulator.register(1, T.BUS_WATCHDOG) == 0
     d.enable()
     assert rig.emulator.register(1, T.BUS_WATCHDOG) == 5
+
+
+def test_port_gone_mid_move_is_link_lost_and_reset_reconnects(tmp_path):
+    from benchjog.drivers.interlock import Interlock
+
+    link = tmp_path / "ttyBUS"                      # a stable name, as a udev rule gives
+    emu = BusEmulator([ServoSpec(1), ServoSpec(2)])
+    link.symlink_to(emu.start())
+    gate = Interlock.open(ARM, "servobus", journal=False, port=str(link), bus=rig_config())
+    emu2 = BusEmulator([ServoSpec(1), ServoSpec(2, start_raw=2148)])
+    try:
+        assert gate.state().link.startswith("servobus ")
+        emu.stop()                                   # the adapter is pulled out
+        assert wait_for(lambda: gate.state().latched is not None, 3.0)
+        st = gate.state()
+        assert st.latched.startswith("link lost") and not st.is_open
+        with pytest.raises(LinkError):
+            gate.reset()                             # nothing there yet: still lost
+        link.unlink()
+        link.symlink_to(emu2.start())                # plugged back in
+        gate.reset()
+        st = gate.state()
+        assert st.is_open and st.latched is None and not st.enabled
+        # the position was read afresh: elbow count 100 is 90 + 100 / (40 * -1) = 87.5 deg
+        assert st.joints == pytest.approx((0.0, DEG(87.5)), abs=1e-12)
+    finally:
+        gate.close()
+        emu2.stop()
+
+
+def test_one_silent_servo_is_a_drive_fault_and_the_others_go_off(make_rig):
+    rig = make_rig()
+    d = rig.driver
+    ready(d)
+    with rig.emulator._lock:
+        unplugged = rig.emulator.servos.pop(2)       # its cable comes out: nobody at id 2
+    faults = events_of(d, "fault")
+    assert faults and "servo id 2 (elbow) does not answer" in faults[0].detail
+    assert d.state().latched == "fault: DRIVE axis=2"
+    assert rig.emulator.register(1, T.TORQUE_ENABLE) == 0
+    with rig.emulator._lock:
+        rig.emulator.servos[2] = unplugged
+
+
+def test_nothing_is_written_to_the_goals_after_an_estop_until_reset(make_rig):
+    rig = make_rig()
+    d = rig.driver
+    ready(d)
+    d.queue(Segment((DEG(60.0), DEG(90.0)), 1.0))
+    time.sleep(0.15)
+    rig.press_estop()
+    assert events_of(d, "estop")
+    n_at_latch = len(rig.emulator.instructions)
+    time.sleep(0.3)
+    after = rig.emulator.instructions[n_at_latch:]
+    assert after and all(instr == 0x01 for _, instr in after)   # only pings, looking for power
+    rig.release_estop()
+    assert events_of(d, "estop-clear")
+    with pytest.raises(ControllerError):
+        d.queue(Segment((DEG(10.0), DEG(90.0)), 0.1))            # still latched until reset
+
+
+@settings(max_examples=6, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.lists(st.tuples(st.floats(-40.0, 40.0), st.floats(50.0, 130.0), st.floats(0.02, 0.12)),
+                min_size=1, max_size=4))
+def test_fuzzed_segment_sequences_end_on_target_and_stay_between_their_ends(make_rig, segments):
+    # Independent checker: each goal the servos received lies inside the box spanned by
+    # the counts of the segment endpoints (linear interpolation cannot leave it), and the
+    # servos end on the last target worked out by PROTOCOL.md's formula.
+    rig = make_rig()
+    d = rig.driver
+    try:
+        ready(d)
+        start = len(rig.emulator.goal_log)
+        ends = [(0, 0)]
+        for j1, j2, dur in segments:
+            d.queue(Segment((DEG(j1), DEG(j2)), dur))
+            ends.append((round(j1 * 40), round(-(j2 - 90.0) * 40)))
+        assert d.wait_idle(5.0)
+        assert rig.counts() == ends[-1]
+        for axis, sid in ((0, 1), (1, 2)):
+            lo = min(e[axis] for e in ends)
+            hi = max(e[axis] for e in ends)
+            goals = [g - T.CENTER for s, g in rig.emulator.goal_log[start:] if s == sid]
+            assert all(lo <= g <= hi for g in goals), (axis, lo, hi, goals)
+    finally:
+        d.close()
+        rig.emulator.stop()

@@ -15,6 +15,12 @@ from collections.abc import Iterable
 
 import serial
 
+try:
+    import termios
+    _PORT_ERRORS: tuple[type[BaseException], ...] = (serial.SerialException, OSError, termios.error)
+except ImportError:  # not a POSIX system
+    _PORT_ERRORS = (serial.SerialException, OSError)
+
 from benchjog.drivers.base import ControllerError, LinkError
 from benchjog.drivers.servobus import packet as P
 from benchjog.drivers.servobus import table as T
@@ -90,7 +96,7 @@ class ServoBus:
                 port.reset_input_buffer()
                 port.write(data)
                 port.flush()
-            except (serial.SerialException, OSError) as exc:
+            except _PORT_ERRORS as exc:
                 raise LinkError(f"servo bus: {self.port_name}: {exc}") from None
             self.tx_bytes += len(data)
             self._deframer = P.Deframer()
@@ -115,7 +121,7 @@ class ServoBus:
             while True:
                 try:
                     chunk = port.read(port.in_waiting or 1)
-                except (serial.SerialException, OSError, TypeError) as exc:
+                except _PORT_ERRORS + (TypeError,) as exc:
                     raise LinkError(f"servo bus: {self.port_name}: {exc}") from None
                 if chunk:
                     self.rx_bytes += len(chunk)

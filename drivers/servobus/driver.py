@@ -153,12 +153,21 @@ class ServoBusDriver(Driver):
     def _torque_off_all(self) -> None:
         try:
             self.bus.write_broadcast(T.TORQUE_ENABLE, 0)
-        except LinkError:
+        except Exception:  # noqa: BLE001 - best effort on a link that may be gone
             pass
 
     # -- life cycle -----------------------------------------------------------------------
     def open(self) -> None:
-        if self._trace_path:
+        if self._thread is not None:           # a reconnect after a lost link
+            self._running = False
+            if self._thread is not threading.current_thread():
+                self._thread.join(timeout=2.0)
+            self._thread = None
+        with self._lock:
+            self._latched, self._power_lost, self._enabled, self._goal = None, False, False, None
+            self._segs.clear()
+            self._misses = [0] * self.arm.n_joints
+        if self._trace_path and self._trace_file is None:
             try:
                 self._trace_file = open(self._trace_path, "a", encoding="utf-8", buffering=1)
             except OSError as exc:
@@ -501,8 +510,13 @@ class ServoBusDriver(Driver):
             try:
                 self._tick(now)
             except LinkError as exc:
-                self._latch(f"link lost: {exc}", "link-lost", str(exc))
+                # The port is gone: nothing more can be sent. The state says so (not open,
+                # latched); the interlock's reset opens the link again.
+                with self._lock:
+                    self._open = False
+                    self._latch(f"link lost: {exc}", "link-lost", f"{exc}; the servos' bus watchdog stops them")
                 self._running = False
+                self.bus.close()
                 return
             except Exception as exc:  # noqa: BLE001 - a bug here must stop the arm, not hide
                 with self.bus.lock:

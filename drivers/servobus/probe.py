@@ -40,7 +40,7 @@ class ServoFound:
         return f"id {self.servo_id}: {self.model_name} (model {self.model}, firmware {self.firmware}), {pos}, {err}"
 
 
-def probe_bus(port: str, baud: int, ids, tries: int = 2, latency_s: float = 0.030) -> list[ServoFound]:
+def probe_bus(port: str, baud: int, ids, tries: int = 3, latency_s: float = 0.050) -> list[ServoFound]:
     """Ping each id (``tries`` times before giving up on it); read the present position
     and hardware error status of those that answer. Raises LinkError when the port
     cannot be opened."""
