@@ -14,6 +14,7 @@ from benchjog.console.cell.programs import ProgramError
 from benchjog.console.cell.safe_files import FileError
 from benchjog.kinematics.armspec import ArmSpecError
 from benchjog.kinematics.frames import FrameError
+from benchjog.kinematics.identify import IdentifyError
 from benchjog.kinematics.solve import TargetError
 
 
@@ -35,6 +36,7 @@ _CODES: list[tuple[type[BaseException], int]] = [
     (PointError, exit_codes.BAD_INPUT),
     (ProgramError, exit_codes.BAD_INPUT),
     (FrameError, exit_codes.BAD_INPUT),
+    (IdentifyError, exit_codes.REFUSED),   # too few or degenerate touches: a refusal
     (DriverNotFound, exit_codes.BAD_INPUT),
     (LinkError, exit_codes.LINK_FAILED),
     (DriverError, exit_codes.LINK_FAILED),

@@ -163,3 +163,25 @@ def test_move_answered_no_moves_nothing_on_the_bus(monkeypatch, capsys, tmp_path
         assert emu.present(1) == T.CENTER and emu.present(2) == T.CENTER
     finally:
         emu.stop()
+
+
+def test_probe_without_ids_greets_a_benchjog_controller(monkeypatch, capsys):
+    from benchjog.drivers.emulator import Emulator
+
+    emu = Emulator(ARM)
+    path = emu.start()
+    try:
+        code, out, err = run(monkeypatch, capsys, "", "ports", "--probe", path, "--json")
+        assert code == 0, err
+        doc = json.loads(out)
+        assert doc["firmware"]["axes"] == 2 and doc["firmware"]["proto"] == 1
+        assert emu.moves_accepted == 0
+    finally:
+        emu.stop()
+
+
+def test_probe_without_ids_on_a_servo_bus_finds_no_controller(monkeypatch, capsys, bus):
+    emu, path = bus
+    code, out, err = run(monkeypatch, capsys, "", "ports", "--probe", path)
+    assert code == 1 and out == "" and "give --ids" in err
+    assert emu.goal_changes == 0

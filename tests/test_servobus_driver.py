@@ -406,3 +406,20 @@ def test_fuzzed_segment_sequences_end_on_target_and_stay_between_their_ends(make
     finally:
         d.close()
         rig.emulator.stop()
+
+
+def test_queue_ran_dry_counts_and_position_is_stale_while_the_servos_are_silent(make_rig):
+    rig = make_rig()
+    d = rig.driver
+    ready(d)
+    d.queue(Segment((DEG(40.0), DEG(90.0)), 0.4))
+    d.queue(Segment((DEG(60.0), DEG(90.0)), 0.2))
+    assert d.wait_idle(3.0)
+    assert d.state().queue_ran_dry == 1            # the second was chained to the first
+    assert d.state().fresh
+    rig.press_estop()
+    assert events_of(d, "estop")
+    assert not d.state().fresh                     # nothing can be read: no plan from it
+    rig.release_estop()
+    assert events_of(d, "estop-clear")
+    assert wait_for(lambda: d.state().fresh, 1.0)  # read again once the servos answer

@@ -34,6 +34,7 @@ The points file::
 
 from __future__ import annotations
 
+import difflib
 import math
 import tomllib
 from collections.abc import Iterable, Mapping, Sequence
@@ -139,6 +140,7 @@ class PointBook:
     path: Path | None = None
     warnings: list[str] = field(default_factory=list)
     _lock: FileLock | None = field(default=None, repr=False)
+    _where: dict[str, int] | None = field(default=None, repr=False, compare=False)
 
     # --- files ---------------------------------------------------------------------
 
@@ -223,14 +225,35 @@ class PointBook:
         return [p.name for p in self.points]
 
     def has(self, name: str) -> bool:
-        return any(p.name == name for p in self.points)
+        return self._position(name) is not None
 
     def point(self, name: str) -> TaughtPoint:
-        for p in self.points:
-            if p.name == name:
-                return p
-        raise PointError(f"no point named {name!r}" + (
-            f" (points: {', '.join(self.names)})" if self.points else " (the book is empty)"))
+        i = self._position(name)
+        if i is not None:
+            return self.points[i]
+        if not self.points:
+            raise PointError(f"no point named {name!r} (the book is empty)")
+        close = difflib.get_close_matches(name, self.names, n=3, cutoff=0.6)
+        hint = (f"did you mean {', '.join(map(repr, close))}?" if close
+                else f"{len(self.points)} points, none like it")
+        raise PointError(f"no point named {name!r} ({hint})")
+
+    def _position(self, name: str) -> int | None:
+        """Where the point of that name is in ``points``, by a name index kept beside
+        the list (rebuilt when the list was changed other than through the book)."""
+        where = self._where
+        if where is None or len(where) != len(self.points):
+            where = self._where = {p.name: i for i, p in enumerate(self.points)}
+        i = where.get(name)
+        if i is not None and self.points[i].name != name:
+            self._where = None
+            return self._position(name)
+        return i
+
+    def _append(self, point: TaughtPoint) -> None:
+        if self._where is not None and len(self._where) == len(self.points):
+            self._where[point.name] = len(self.points)
+        self.points.append(point)
 
     def frame(self, name: str) -> UserFrame | None:
         """The user frame of that name; None for "base"."""
@@ -263,7 +286,7 @@ class PointBook:
         if self.has(name):
             raise PointError(f"a point named {name!r} exists already (update or rename it)")
         point = self._make(name, joints, frame, note, taught)
-        self.points.append(point)
+        self._append(point)
         return point
 
     def teach_current(self, interlock: Any, name: str, *, frame: str = BASE,
@@ -288,6 +311,7 @@ class PointBook:
             raise PointError(f"a point named {new!r} exists already")
         renamed = replace(point, name=new)
         self.points[self._index(old)] = renamed
+        self._where = None
         return renamed
 
     def set_note(self, name: str, note: str) -> TaughtPoint:
@@ -298,6 +322,7 @@ class PointBook:
     def delete(self, name: str) -> TaughtPoint:
         point = self.point(name)
         del self.points[self._index(name)]
+        self._where = None
         return point
 
     def define_frame(self, name: str, origin_joints: Sequence[float],
@@ -354,7 +379,10 @@ class PointBook:
         return frame
 
     def _index(self, name: str) -> int:
-        return self.names.index(name)
+        i = self._position(name)
+        if i is None:
+            self.point(name)  # raises, in words
+        return i
 
     def _make(self, name: str, joints: Sequence[float], frame: str, note: str,
               taught: str | None) -> TaughtPoint:
@@ -521,7 +549,7 @@ def book_from_mapping(data: Mapping[str, Any], arm: Arm, source: str = "<points>
                          f"({branch_text!r})") from None
         point = TaughtPoint(name, tuple(cart), tuple(joints), branch, frame,
                             r.timestamp(raw, where), r.text(raw, "note", where, required=False))
-        book.points.append(point)
+        book._append(point)
         book.warnings += _consistency(book, point, source)
     return book
 

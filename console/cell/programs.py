@@ -18,6 +18,7 @@ The program file::
     point = "clear"               # a point of the points file
     path = "joint"                # "joint" (default) or "line"
     speed_pct = 80.0              # 1..100, default 100
+    tolerance_mm = 0.02           # line only: chordal tolerance, default 0.05 mm
 
     [[steps]]
     action = "dwell"
@@ -37,11 +38,13 @@ from __future__ import annotations
 import math
 import tomllib
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Union
 
 from benchjog.kinematics.armspec import number_problem
+from benchjog.kinematics.planner import check_tolerance
+from benchjog.kinematics.solve import TargetError
 from benchjog.console.cell.safe_files import FileError, FileLock, read_text, real_path, toml_text, write_atomic
 
 FILE_KIND = "benchjog-program"
@@ -62,9 +65,11 @@ class MoveStep:
     path: str = "joint"
     speed_pct: float = 100.0
     note: str = ""
+    tolerance_mm: float | None = None  # line steps: None for the planner's default
 
     def describe(self) -> str:
-        return f"move to {self.point} ({self.path} path, {self.speed_pct:g} %)"
+        within = f", within {self.tolerance_mm:g} mm" if self.tolerance_mm is not None else ""
+        return f"move to {self.point} ({self.path} path{within}, {self.speed_pct:g} %)"
 
 
 @dataclass(frozen=True)
@@ -98,6 +103,13 @@ def check_step(step: Step) -> Step:
             raise ProgramError(f"path must be 'joint' or 'line' ({step.path!r})")
         if not (math.isfinite(step.speed_pct) and SPEED_MIN_PCT <= step.speed_pct <= 100.0):
             raise ProgramError(f"speed must be {SPEED_MIN_PCT:g}..100 % ({step.speed_pct:g})")
+        if step.tolerance_mm is not None:
+            if step.path != "line":
+                raise ProgramError("a tolerance is for line moves only")
+            try:
+                check_tolerance(step.tolerance_mm)
+            except TargetError as exc:
+                raise ProgramError(str(exc)) from None
     elif isinstance(step, DwellStep):
         if not (math.isfinite(step.seconds) and 0 < step.seconds <= DWELL_MAX_S):
             raise ProgramError(f"a dwell lasts more than 0 and at most {DWELL_MAX_S:g} s "
@@ -173,7 +185,7 @@ class Program:
         count = 0
         for i, step in enumerate(self.steps):
             if isinstance(step, MoveStep) and step.point == old:
-                self.steps[i] = MoveStep(new, step.path, step.speed_pct, step.note)
+                self.steps[i] = replace(step, point=new)
                 count += 1
         return count
 
@@ -185,6 +197,8 @@ class Program:
             if isinstance(step, MoveStep):
                 item = {"action": "move", "point": step.point, "path": step.path,
                         "speed_pct": float(step.speed_pct)}
+                if step.tolerance_mm is not None:
+                    item["tolerance_mm"] = float(step.tolerance_mm)
             elif isinstance(step, DwellStep):
                 item = {"action": "dwell", "seconds": float(step.seconds)}
             else:
@@ -234,7 +248,7 @@ class Program:
         return program
 
 
-_STEP_KEYS = {"move": ("action", "point", "path", "speed_pct", "note"),
+_STEP_KEYS = {"move": ("action", "point", "path", "speed_pct", "tolerance_mm", "note"),
               "dwell": ("action", "seconds", "note"),
               "output": ("action", "channel", "on", "note")}
 
@@ -288,7 +302,16 @@ def step_from_mapping(raw: Any, source: str, number: int) -> Step:
         if not SPEED_MIN_PCT <= speed <= 100.0:
             raise FileError(source, f"{where}: speed_pct",
                             f"must be {SPEED_MIN_PCT:g}..100 ({speed:g})")
-        return MoveStep(point, path, speed, note)
+        tolerance = None
+        if "tolerance_mm" in raw:
+            if path != "line":
+                raise FileError(source, f"{where}: tolerance_mm", "for line moves only (path = \"line\")")
+            tolerance = _number(source, where, raw, "tolerance_mm")
+            try:
+                check_tolerance(tolerance)
+            except TargetError as exc:
+                raise FileError(source, f"{where}: tolerance_mm", str(exc)) from None
+        return MoveStep(point, path, speed, note, tolerance)
     if action == "dwell":
         seconds = _number(source, where, raw, "seconds")
         if not 0 < seconds <= DWELL_MAX_S:

@@ -41,14 +41,15 @@ def register(subparsers) -> None:
     ports = subparsers.add_parser(
         "ports", help="list serial ports; probe one for servos on a bus",
         description=("List the serial ports with USB VID:PID, serial number, description and "
-                     "a guess of what is behind each. With --probe PORT --ids LIST: ping those "
-                     "servo ids on a Protocol 2.0 bus and report who answers (model, present "
-                     "position, hardware error). Probing only pings and reads: nothing moves, "
-                     "torque is never switched."))
+                     "a guess of what is behind each. With --probe PORT: send one HELLO and "
+                     "report a benchjog controller that answers; with --probe PORT --ids LIST: "
+                     "ping those servo ids on a Protocol 2.0 bus and report who answers (model, "
+                     "present position, hardware error). Probing only greets, pings and reads: "
+                     "nothing moves, torque is never switched."))
     ports.add_argument("--probe", metavar="PORT", help="a port (or pyserial URL) to probe")
     ports.add_argument("--ids", metavar="LIST", help="servo ids to ping, e.g. 1-6 or 1,2,5")
     ports.add_argument("--baud", dest="probe_baud", type=_positive, default=None, metavar="N",
-                       help="the bus's baud rate for --probe (default 1000000)")
+                       help="baud rate for --probe (default 1000000 with --ids, else 115200)")
     ports.add_argument("--json", action="store_true", help="one JSON document on stdout")
     ports.set_defaults(func=cmd_ports)
 
@@ -155,11 +156,12 @@ def cmd_ports(args: argparse.Namespace) -> int:
 
 
 def firmware_probe():
-    """INTEGRATION HOOK: the benchjog firmware's HELLO probe (drivers/firmware/, helper
-    ``firmware``) plugs in here: return a callable ``probe(port, baud) -> dict | None``
-    (None: no benchjog firmware answered). Until then: None, and ``--probe`` without
-    ``--ids`` says so."""
-    return None
+    """The benchjog firmware's HELLO probe (drivers/firmware/probe.py): a callable
+    ``probe(port, baud) -> dict | None`` (None: no benchjog firmware answered). It sends
+    one HELLO and nothing else. ``--probe`` without ``--ids`` uses it."""
+    from benchjog.drivers.firmware.probe import probe_firmware
+
+    return probe_firmware
 
 
 def _cmd_probe(args: argparse.Namespace) -> int:
@@ -169,18 +171,17 @@ def _cmd_probe(args: argparse.Namespace) -> int:
     if not port:
         raise UsageError("ports --probe: empty port")
     if args.ids is None:
-        hello = firmware_probe()
-        if hello is None:
-            raise UsageError("ports --probe: give --ids to ping servos on a bus "
-                             "(the firmware HELLO probe is not in this build)")
-        found = hello(port, args.probe_baud or 115200)
+        baud = args.probe_baud or 115200
+        found = firmware_probe()(port, baud)
         if getattr(args, "json", False):
             from benchjog.console.cli.common import print_json
-            print_json({"port": port, "firmware": found})
+            print_json({"port": port, "baud": baud, "firmware": found})
         elif found is not None:
-            print(f"{port}\t{found}")
+            print(f"{port}: benchjog controller " + " ".join(
+                f"{k}={found[k]}" for k in ("name", "proto", "axes", "queue") if k in found))
         if found is None:
-            print(f"benchjog: no benchjog firmware answered on {port}", file=sys.stderr)
+            print(f"benchjog: no benchjog controller answered HELLO on {port} at {baud} baud "
+                  "(for servos on a bus, give --ids)", file=sys.stderr)
             return exit_codes.REFUSED
         return exit_codes.OK
     from benchjog.drivers.servobus.probe import parse_ids, probe_bus

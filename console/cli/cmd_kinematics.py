@@ -12,6 +12,8 @@ from benchjog.console import exit_codes
 from benchjog.console.cell.armfile import load_arm
 from benchjog.console.cli.common import add_arm_option, parse_number, print_json, round_out
 from benchjog.console.errors import UsageError
+from benchjog.console.cell.calibration_files import calibration_of
+from benchjog.kinematics.identify import Accuracy, accuracy_at
 from benchjog.kinematics.limits import wrap_pi
 from benchjog.kinematics.model import Arm
 from benchjog.kinematics.solve import (IKResult, joints_from_tool, pose_warnings, target_from_display,
@@ -58,9 +60,24 @@ def display_joints(arm: Arm, values: tuple[float, ...]) -> list[float]:
     return [round_out(j.to_display(v)) for j, v in zip(arm.joints, values)]
 
 
-def solve_to_dict(arm: Arm, result: IKResult) -> dict:
-    """The ``solve --json`` document of CONTRACT.md."""
-    return {
+def accuracy_dict(acc: Accuracy) -> dict:
+    """The extra ``accuracy`` key of a ``solve --json`` solution (docs/calibration.md)."""
+    return {"step_per_count_mm": [round_out(v) for v in acc.step_per_count_mm],
+            "position_sigma_mm": None if acc.position_sigma_mm is None else round_out(acc.position_sigma_mm),
+            "condition_number": None if acc.condition_number == math.inf else round_out(acc.condition_number),
+            "conditioning": acc.conditioning}
+
+
+def _accuracies(arm: Arm, result: IKResult, arm_spec) -> list[Accuracy]:
+    cal = calibration_of(arm_spec)
+    keys, cov = (cal.keys, cal.covariance) if cal else (None, None)
+    return [accuracy_at(arm, s.joints, keys, cov) for s in result.solutions]
+
+
+def solve_to_dict(arm: Arm, result: IKResult, accuracies: list[Accuracy] | None = None) -> dict:
+    """The ``solve --json`` document of CONTRACT.md; with ``accuracies`` each solution
+    also carries an ``accuracy`` key (more keys are allowed)."""
+    doc = {
         "target": display_target(arm, result.target),
         "reachable": result.reachable,
         "solutions": [{"branch": s.branch.value, "joints": display_joints(arm, s.joints),
@@ -68,19 +85,23 @@ def solve_to_dict(arm: Arm, result: IKResult) -> dict:
                       for s in result.solutions],
         "warnings": list(result.warnings),
     }
+    for sol, acc in zip(doc["solutions"], accuracies or []):
+        sol["accuracy"] = accuracy_dict(acc)
+    return doc
 
 
 def cmd_solve(args: argparse.Namespace) -> int:
     arm = load_arm(args.arm)
     result = joints_from_tool(arm, target_from_args(arm, args.coords))
+    accuracies = _accuracies(arm, result, args.arm)
     if args.json:
-        print_json(solve_to_dict(arm, result))
+        print_json(solve_to_dict(arm, result, accuracies))
     else:
-        _print_solve(arm, result)
+        _print_solve(arm, result, accuracies)
     return exit_codes.OK if result.usable else exit_codes.REFUSED
 
 
-def _print_solve(arm: Arm, result: IKResult) -> None:
+def _print_solve(arm: Arm, result: IKResult, accuracies: list[Accuracy] | None = None) -> None:
     out = Console(highlight=False)
     names = ["x", "y", "z", "roll"][: len(result.target)]
     units = ["mm", "mm", "mm", "deg"]
@@ -100,6 +121,13 @@ def _print_solve(arm: Arm, result: IKResult) -> None:
         for sol in result.solutions:
             for problem in sol.problems:
                 out.print(f"[red]{sol.branch.value}:[/red] {problem}")
+        for sol, acc in zip(result.solutions, accuracies or []):
+            steps = ", ".join(f"{j.name} {v:.4f}" for j, v in zip(arm.joints, acc.step_per_count_mm))
+            sigma = ("" if acc.position_sigma_mm is None else
+                     f"; position 1-sigma from the calibration {acc.position_sigma_mm:.4f} mm")
+            out.print(f"{sol.branch.value}: tool step per count (mm): {steps}{sigma}")
+            if acc.conditioning:
+                out.print(f"[yellow]{sol.branch.value}:[/yellow] {acc.conditioning}")
     for warning in result.warnings:
         out.print(f"[yellow]warning:[/yellow] {warning}")
 

@@ -1,5 +1,7 @@
 """``benchjog move`` and ``benchjog home``: one motion from the command line, through
-the interlock and the confirmation prompt (console/confirm_cli.py)."""
+the interlock and the confirmation prompt (console/cli/confirm.py). The drives are
+switched on only after the yes (``open_gate(..., enable_on_yes=True)``): a cancelled
+command never powered the arm."""
 
 from __future__ import annotations
 
@@ -14,7 +16,9 @@ from benchjog.console.cli.confirm import PromptConfirmer
 from benchjog.console.errors import UsageError
 from benchjog.drivers.interlock import RunResult
 from benchjog.kinematics.model import Branch
-from benchjog.kinematics.planner import JOINT, LINE
+from benchjog.kinematics.planner import (JOINT, LINE, LINE_TOLERANCE_MAX_MM, LINE_TOLERANCE_MIN_MM,
+                                         LINE_TOLERANCE_MM, check_tolerance)
+from benchjog.kinematics.solve import TargetError
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -30,6 +34,9 @@ def register(sub: argparse._SubParsersAction) -> None:
                       help="joint-interpolated (default) or a straight tool line")
     move.add_argument("--speed", type=float, default=100.0, metavar="PCT",
                       help="speed override in percent (default 100)")
+    move.add_argument("--tolerance", type=float, default=None, metavar="MM",
+                      help=f"--path line: how far the tool may leave the straight line, mm "
+                      f"(default {LINE_TOLERANCE_MM:g}, {LINE_TOLERANCE_MIN_MM:g}..{LINE_TOLERANCE_MAX_MM:g})")
     add_arm_option(move)
     add_port_options(move)
     add_journal_option(move)
@@ -42,9 +49,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     home.set_defaults(func=cmd_home)
 
 
-def _report(result: RunResult) -> int:
+def _report(result: RunResult, gate) -> int:
     print(f"benchjog: {result.detail}", file=sys.stderr)
-    return exit_code_of(result)
+    return exit_code_of(result, gate)
 
 
 def cmd_move(args: argparse.Namespace) -> int:
@@ -53,24 +60,30 @@ def cmd_move(args: argparse.Namespace) -> int:
     if not 0 < args.speed <= 100:
         raise UsageError(f"--speed: must be in (0, 100] ({args.speed:g})")
     branch = Branch(args.branch) if args.branch else None
-    with open_gate(arm, args) as gate:
-        gate.enable()
+    options = {}
+    if args.tolerance is not None:
+        if args.path != LINE:
+            raise UsageError("--tolerance: for --path line only")
+        try:
+            options["tolerance_mm"] = check_tolerance(args.tolerance)
+        except TargetError as exc:
+            raise UsageError(f"--tolerance: {exc}") from None
+    with open_gate(arm, args, enable_on_yes=True) as gate:   # drives on only after the yes
         try:
             proposal = gate.propose_move(target, branch=branch, path=args.path,
-                                         speed_pct=args.speed)
+                                         speed_pct=args.speed, **options)
             result = run_stoppable(gate, lambda: gate.execute(
                 proposal, PromptConfirmer(arm, question="Move?")))
         finally:
             drives_off(gate)
-    return _report(result)
+        return _report(result, gate)
 
 
 def cmd_home(args: argparse.Namespace) -> int:
     arm = load_arm(args.arm)
-    with open_gate(arm, args) as gate:
-        gate.enable()
+    with open_gate(arm, args, enable_on_yes=True) as gate:   # drives on only after the yes
         try:
             result = run_stoppable(gate, lambda: gate.home(PromptConfirmer(arm, question="Home?")))
         finally:
             drives_off(gate)
-    return _report(result)
+        return _report(result, gate)

@@ -64,16 +64,15 @@ def cmd_run(args: argparse.Namespace) -> int:
     arm = load_arm(args.arm)
     program, book = load_program(args.program, arm)  # bad files: one line, exit 2 (errors.py)
     confirmer = PromptConfirmer(arm, question="Run this program?")
-    with open_gate(arm, args) as gate:
-        gate.enable()
+    with open_gate(arm, args, enable_on_yes=True) as gate:   # drives on only after the yes
         try:
             report, result = run_stoppable(
                 gate, lambda: run_program(gate, arm, program, book, confirmer))
         finally:
             drives_off(gate)
-    if not report.ok:
-        for line in report_lines(report):
-            print(line, file=sys.stderr)
-    print(result_words(report, result))
-    return exit_code_of(result)
+        if not report.ok:
+            for line in report_lines(report):
+                print(line, file=sys.stderr)
+        print(result_words(report, result))
+        return exit_code_of(result, gate)
 

@@ -61,16 +61,33 @@ def print_json(data: Any) -> None:
 def add_journal_option(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--journal", metavar="FILE", default=argparse.SUPPRESS,
                         help="append the motion journal here (default: a new file in "
-                        "~/.local/share/benchjog/journal)")
+                        "~/.local/state/benchjog/journal, rotated: 50 MB / 30 days)")
     parser.add_argument("--trace", metavar="FILE", default=argparse.SUPPRESS,
                         help="serial: write every protocol line sent and received, timestamped")
 
 
-def exit_code_of(result) -> int:
+def exit_code_of(result, gate=None) -> int:
     """0 done; 3 when the link or the controller failed (a halt that is not a person's
-    stop); 1 for the rest (cancelled, refused, expired, stopped)."""
+    stop); 1 for the rest (cancelled, refused, expired, stopped).
+
+    With ``gate``: the journal is given a moment to finish writing, and when it failed a
+    warning line goes to stderr; a command that moved the arm while its journal could
+    not be written exits 3 (the cell's equipment failed: the record of that motion is
+    incomplete), never 0."""
     from benchjog.console import exit_codes
 
+    journal_failed = False
+    if gate is not None:
+        gate.wait_journal(2.0)
+        error = gate.journal_error
+        if error:
+            journal_failed = True
+            lost = gate.journal_lines_lost
+            print(f"benchjog: warning: the motion journal failed: {error}"
+                  + (f" ({lost} lines lost)" if lost else ""), file=sys.stderr)
+    moved = result.completed or result.segments_sent > 0
+    if journal_failed and moved:
+        return exit_codes.LINK_FAILED
     if result.completed:
         return exit_codes.OK
     if result.outcome == "halted":

@@ -22,6 +22,8 @@ COMMAND_MODULES = (
     "benchjog.console.cli.cmd_drivers",
     "benchjog.console.cli.cmd_motion",
     "benchjog.console.cli.cmd_program",
+    "benchjog.console.cli.cmd_firmware",
+    "benchjog.console.cli.cmd_calibrate",
 )
 
 
@@ -47,7 +49,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--baud", type=baud_rate, default=115200, help="baud rate (default 115200)")
     parser.add_argument("--journal", metavar="FILE", default=None,
                         help="append the motion journal here (default: a new file in "
-                        "~/.local/share/benchjog/journal)")
+                        "~/.local/state/benchjog/journal, rotated: 50 MB / 30 days)")
     parser.add_argument("--trace", metavar="FILE", default=None,
                         help="serial: write every protocol line sent and received, timestamped")
     parser.add_argument("--points", metavar="FILE", default="points.toml",

@@ -435,12 +435,19 @@ class BenchjogApp(App):
 
     # -- controls (driver I/O in a worker, stop at once) ----------------------------------
     def action_stop(self) -> None:
-        self.pending = None
+        # The gate's stop reaches the driver before anything else and never raises or
+        # waits (drivers/interlock.py); nothing here stands before it.
         self.interlock.stop()            # returns at once, from the UI thread
-        if self.confirm_screen is not None and self.confirm_screen.is_attached:
-            self.confirm_screen.action_answer(False)
-        self.jog_screen.log_event("stop", "stop sent")
-        self.set_message("stop sent", error=True)
+        self.pending = None
+        try:
+            if self.confirm_screen is not None and self.confirm_screen.is_attached:
+                self.confirm_screen.action_answer(False)
+            self.jog_screen.log_event("stop", "stop sent")
+            journal_error = self.interlock.journal_error
+            self.set_message("stop sent" + (f" (journal failing: {journal_error})"
+                                            if journal_error else ""), error=True)
+        except Exception:  # noqa: BLE001 - the stop went out; the screen must not crash on it
+            pass
 
     def action_drives(self) -> None:
         on = self.state is not None and self.state.enabled
@@ -495,7 +502,7 @@ class BenchjogApp(App):
 
     async def action_quit(self) -> None:
         try:
-            self.interlock.stop()
+            self.interlock.stop()        # the driver's stop first; never raises
         finally:
             self.closing = True
             self.exit(0)

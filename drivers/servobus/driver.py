@@ -115,7 +115,8 @@ class ServoBusDriver(Driver):
         self._t0 = time.monotonic()
         self.write_times: deque[float] = deque(maxlen=100_000)   # when each goal sync write went out
         self.setpoints_sent = 0
-        self._fresh_needed = False   # a hold was written: the state waits for a read after it
+        self._fresh_needed = False   # a hold or halt: the state waits for a read after it
+        self._ran_dry = 0            # segments that started on an empty host queue
         self.segments_streamed = 0   # the last segment whose goals went out (segments count from 1)
 
     # -- helpers --------------------------------------------------------------------------
@@ -146,6 +147,7 @@ class ServoBusDriver(Driver):
         with self._lock:
             self._segs.clear()
             self._enabled = False
+            self._fresh_needed = True   # where it halted is known only from the next read
             if self._latched is None:
                 self._latched = reason
                 self._event(kind, detail)
@@ -248,6 +250,7 @@ class ServoBusDriver(Driver):
         with self._lock:
             self._present = [got[sid][0] - T.CENTER for sid in self.config.ids]
             self._t_present = time.monotonic()
+            self._fresh_needed = False
 
     def _read_hardware_errors(self) -> list[tuple[int, int]]:
         out = []
@@ -424,7 +427,8 @@ class ServoBusDriver(Driver):
             mode=mode, joints=joints_from_counts(self.arm, self._present), queued=len(self._segs),
             outputs=self._outputs, age_s=time.monotonic() - self._t_present if self._t_present else math.inf,
             is_open=self._open, enabled=self._enabled, homed=self._homed, latched=self._latched,
-            link=f"servobus {self.bus.port_name} {self.config.baud} baud")
+            link=f"servobus {self.bus.port_name} {self.config.baud} baud",
+            fresh=not (self._fresh_needed or self._power_lost), queue_ran_dry=self._ran_dry)
 
     def state(self) -> DriverState:
         with self._lock:
@@ -530,8 +534,9 @@ class ServoBusDriver(Driver):
             return None
         while self._segs:
             seg = self._segs[0]
-            if seg.t0 is None:
+            if seg.t0 is None:          # it starts on an empty queue (not chained to the last)
                 seg.t0 = now
+                self._ran_dry += 1
             if seg.number > self.segments_streamed:
                 self.segments_streamed = seg.number
             t_end = seg.t0 + seg.duration_s
