@@ -127,6 +127,9 @@ def test_arm_file_bus_keys_load_and_validate(tmp_path):
     ({"watchdog_ms": 40, "rate_hz": 50}, "less than three write periods"),
     ({"speed": 1}, "bus.speed: unknown key"),
     ({"outputs": {"9": {"id": 1, "address": 65}}}, "bus.outputs.9: an output channel is 0..7"),
+    # 2 servos: 70 bytes a tick (28 + 21 n); 57,600 baud carries 5760 bytes/s, 80 % = 4608;
+    # 70 bytes at 100 Hz is 7000 bytes/s
+    ({"baud": 57600, "rate_hz": 100}, "bus.rate_hz: 100 Hz x 70 bytes a tick is 7000 bytes/s"),
 ])
 def test_bad_bus_keys_are_one_line(bus_table, problem):
     with pytest.raises(ArmSpecError, match=problem) as info:
@@ -185,3 +188,20 @@ def test_probe_without_ids_on_a_servo_bus_finds_no_controller(monkeypatch, capsy
     code, out, err = run(monkeypatch, capsys, "", "ports", "--probe", path)
     assert code == 1 and out == "" and "give --ids" in err
     assert emu.goal_changes == 0
+
+
+def test_home_on_the_bus_moves_nothing_and_checks_the_offsets(monkeypatch, capsys, tmp_path):
+    # absolute encoders: homing is the zero-offset check, not a motion
+    emu = BusEmulator([ServoSpec(1), ServoSpec(2)])
+    path = emu.start()
+    try:
+        arm_path = bus_arm_file(tmp_path, '[bus]\nmode = "extended"\nwatchdog_ms = 300\n',
+                                "servo_offset = 40\n")
+        code, out, err = run(monkeypatch, capsys, "y\n", "home", "--arm", arm_path, "--port", path,
+                             "--journal", str(tmp_path / "j.jsonl"))
+        assert code == 0, err
+        assert emu.goal_changes == 0
+        assert emu.register(2, T.HOMING_OFFSET) == 40          # the elbow's zero offset, written on open
+        assert emu.present(1) == T.CENTER and emu.present(2) == T.CENTER + 40
+    finally:
+        emu.stop()

@@ -35,6 +35,17 @@ from benchjog.drivers.servobus import table as T
 DEFAULT_BAUD = 1_000_000
 DEFAULT_RATE_HZ = 50.0
 DEFAULT_WATCHDOG_MS = 100
+BUS_SHARE_MAX = 0.8   # a tick's bytes may take at most this share of the wire (common practice: headroom for replies' delays)
+
+
+def tick_bytes(n_servos: int) -> int:
+    """Bytes on the wire for one streaming tick: a sync write of 4-byte goals (14 + 5n),
+    a sync read (14 + n) and n status packets of 15 bytes.
+
+    >>> tick_bytes(2)
+    70
+    """
+    return 28 + 21 * n_servos
 
 
 @dataclass(frozen=True)
@@ -96,6 +107,13 @@ def bus_config_from_mapping(data: Mapping[str, Any], n_joints: int, source: str)
     if watchdog < 3 * 1000.0 / rate:
         raise ArmSpecError(source, "bus.watchdog_ms",
                            f"{watchdog} ms is less than three write periods at {rate:g} Hz")
+    need = tick_bytes(n_joints) * rate
+    budget = BUS_SHARE_MAX * baud / 10.0
+    if need > budget:
+        raise ArmSpecError(source, "bus.rate_hz",
+                           f"{rate:g} Hz x {tick_bytes(n_joints)} bytes a tick is {need:.0f} bytes/s, more than "
+                           f"{BUS_SHARE_MAX:.0%} of what {baud} baud carries ({baud / 10:.0f} bytes/s): "
+                           "lower rate_hz or raise the baud rate")
     joints = data.get("joints", [])
     ids, models, offsets = [], [], []
     seen: dict[int, int] = {}

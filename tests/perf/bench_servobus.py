@@ -33,6 +33,7 @@ from benchjog.console.cell.armfile import builtin_arm
 from benchjog.drivers.servobus import packet as P
 from benchjog.drivers.servobus import table as T
 from benchjog.drivers.servobus.bus import STATUS_OVERHEAD
+from benchjog.drivers.servobus.config import tick_bytes as config_tick_bytes
 from benchjog.drivers.servobus.config import BusConfig
 from benchjog.drivers.servobus.driver import ServoBusDriver
 from benchjog.drivers.servobus.emulator import BusEmulator, ServoSpec
@@ -86,7 +87,8 @@ def main() -> None:
     ap.add_argument("--seconds", type=float, default=2.0)
     args = ap.parse_args()
     n_axes = 2
-    print(f"{n_axes} servos, one tick = {tick_bytes(n_axes)} bytes on the wire; load average now "
+    print(f"{n_axes} servos, one tick = {tick_bytes(n_axes)} bytes on the wire (config's formula: "
+          f"{config_tick_bytes(n_axes)}); load average now "
           f"{os.getloadavg()[0]:.2f} on {os.cpu_count()} cores (jitter grows with the load)")
     print(f"{'baud':>8} {'asked Hz':>8} {'got Hz':>8} {'got/asked':>9} {'bus use':>8} "
           f"{'byte-bound Hz':>13} {'jitter max ms':>13} {'p99 ms':>7}  latched")
