@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import io
 import json
+import time
 from importlib import resources
 from types import SimpleNamespace
 
@@ -205,3 +206,36 @@ def test_home_on_the_bus_moves_nothing_and_checks_the_offsets(monkeypatch, capsy
         assert emu.present(1) == T.CENTER and emu.present(2) == T.CENTER + 40
     finally:
         emu.stop()
+
+
+def test_a_bad_bus_table_is_one_line_exit_2_before_anything_is_sent(monkeypatch, capsys, tmp_path, bus):
+    emu, path = bus
+    arm_path = bus_arm_file(tmp_path, '[bus]\nmode = "turbo"\n')
+    code, out, err = run(monkeypatch, capsys, "y\n", "move", "150", "200", "--arm", arm_path,
+                         "--port", path, "--journal", str(tmp_path / "j.jsonl"))
+    assert code == 2 and len(err.strip().splitlines()) == 1 and "bus.mode" in err
+    assert emu.instructions == []
+
+
+def test_the_hand_run_emulation_serves_and_takes_typed_commands():
+    import subprocess
+    import sys
+
+    from benchjog.drivers.servobus.probe import probe_bus
+
+    proc = subprocess.Popen([sys.executable, "-m", "benchjog.drivers.servobus.emulator", "--ids", "3,4"],
+                            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        path = proc.stdout.readline().strip()
+        assert [f.servo_id for f in probe_bus(path, 1_000_000, [2, 3, 4])] == [3, 4]
+        proc.stdin.write("error 4\n")
+        proc.stdin.flush()
+        deadline = time.monotonic() + 3.0
+        while time.monotonic() < deadline:
+            found = {f.servo_id: f.hardware_error for f in probe_bus(path, 1_000_000, [4])}
+            if found.get(4):
+                break
+        assert found == {4: 1 << 5}
+    finally:
+        proc.terminate()
+        proc.wait(5)
