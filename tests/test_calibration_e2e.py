@@ -73,7 +73,7 @@ def test_a_wrong_arm_file_is_corrected_within_the_touching_scatter(name, monkeyp
     assert report["before"]["rms_mm"] > 20 * NOISE_MM    # the arm file really is wrong
 
     code, _, err = run(monkeypatch, capsys, "y\n", "calibrate", "apply", str(touches), "--arm",
-                       str(arm_path), "--out", str(arm_path))
+                       str(arm_path), "--out", str(arm_path), "--plate", str(plate))
     assert code == 0, err
     assert "+a = " in err or "+a=" in err.replace(" ", "")      # the diff was shown
     assert (tmp_path / "arm.toml.bak").read_text(encoding="utf-8") == builtin_text(name)
@@ -95,7 +95,7 @@ def test_a_wrong_arm_file_is_corrected_within_the_touching_scatter(name, monkeyp
     for rec in records:
         tool = tool_from_joints(fixed, joints_from_counts(fixed, rec.counts))
         xy = rot @ np.array(tool[:2]) + np.array(base[:2])
-        p = list(xy) + ([tool[2] + base[2]] if fixed.is_scara else [])
+        p = list(xy) + ([tool[2] + base[2]] if fixed.is_scara else [])   # base: x, y, (z,) yaw
         predicted.append(p)
         holes.append(rec.hole_mm)
         truth.append(ident.plate_points_mm(nominal, ident.params_of(nominal), truth_vec,

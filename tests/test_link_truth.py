@@ -42,8 +42,10 @@ class MoveRule:
     """Acts on the k-th MOVE line (1-based, counted per session after homing, re-sends
     included by seq) and on the controller's reply to it."""
 
-    def __init__(self, k: int, *, drop_reply: bool = False, refuse: bool = False):
-        self.k, self.drop_reply, self.refuse = k, drop_reply, refuse
+    def __init__(self, k: int, *, drop_reply: bool = False, refuse: bool = False,
+                 drop_next: bool = False):
+        self.k, self.drop_reply, self.refuse, self.drop_next = k, drop_reply, refuse, drop_next
+        self.next_dropped = False
         self.moves: list[int] = []
         self.target_seq: int | None = None
         self.replies_dropped = 0
@@ -56,6 +58,10 @@ class MoveRule:
                 self.moves.append(cmd.seq)
             if len(self.moves) == self.k and self.target_seq is None:
                 self.target_seq = cmd.seq
+            if (self.drop_next and not self.next_dropped and self.target_seq is not None
+                    and cmd.seq == P.next_seq(self.target_seq)):
+                self.next_dropped = True          # the line after it is lost on the way in:
+                return Fate(drop=True)            # the controller answers the next with BAD_SEQ
             if self.refuse and cmd.seq == self.target_seq:
                 # the controller refuses it: a zero duration is a SYNTAX error
                 return Fate(replace=P.host_line(cmd.seq, "MOVE", 0, *cmd.args[1:]))
@@ -239,10 +245,10 @@ def test_a_lost_ok_is_checked_with_the_counters_and_the_move_completes(rig):
     assert any(" STATE" in b for b in sent[i + 1:])
 
 
-@pytest.mark.parametrize("counters", [True, False])
-def test_a_refused_move_whose_error_is_lost_stops_the_arm_and_names_it(rig, counters):
+@pytest.mark.parametrize("counters,drop_next", [(True, False), (False, False), (True, True)])
+def test_a_refused_move_whose_error_is_lost_stops_the_arm_and_names_it(rig, counters, drop_next):
     # issue 11 §4, measured before: 26 of 27 segments ran and the command said "done"
-    rule = MoveRule(4, drop_reply=True, refuse=True)
+    rule = MoveRule(4, drop_reply=True, refuse=True, drop_next=drop_next)
     r = rig(rule, {"counters": counters})
     p = r.gate.propose_move((150.0, 200.0))
     result = r.gate.execute(p, Yes())
@@ -251,6 +257,7 @@ def test_a_refused_move_whose_error_is_lost_stops_the_arm_and_names_it(rig, coun
     seg = joints_from_counts(ARM, counts_from_joints(ARM, p.plans[0].segments[3].joints))  # as sent
     words = ", ".join(f"{j.name} {math.degrees(v):.2f} deg" for j, v in zip(ARM.joints, seg))
     assert f"MOVE {rule.target_seq}" in result.detail and words in result.detail, result.detail
+    assert rule.next_dropped == drop_next
     check_claim(result, p, r.link, r.emu)
     assert wait_for(lambda: any(" STOP" in body_of(ln) for ln, _ in r.link.lines(TO_CTRL)), 2.0)
     assert wait_for(lambda: r.emu.mode == "IDLE" and not r.emu.segs, 2.0)

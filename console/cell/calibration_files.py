@@ -206,10 +206,11 @@ def corrected_text(original: str, result: identify.Identification) -> str:
     table["rms_before_mm"] = _r(identify.rms_mm(result.residuals_before_mm), 4)
     table["rms_after_mm"] = _r(identify.rms_mm(result.residuals_after_mm), 4)
     table["condition_number"] = _r(result.condition, 2)
-    base = [e for e in result.estimates if e.key.startswith("base.")]
     all_keys = [p.key for p in identify.params_of(result.arm)]
+    base = [result.vector[all_keys.index(f"base.{k}")] for k in ("x", "y", "z") if f"base.{k}" in all_keys]
     yaw = math.degrees(result.vector[all_keys.index("base.yaw")])
-    table["base_in_plate"] = [_r(e.value, 4) for e in base] + [_r(yaw, 5)]
+    table["base_in_plate"] = [_r(float(v), 4) for v in base] + [_r(yaw, 5)]
+    table["base_in_plate"].comment("x, y (SCARA: x, y, z) mm, yaw deg")
     table["parameters"] = keys
     table["std_errors"] = [float(f"{e.std_error:.4g}") for e in result.estimates]
     table["covariance"] = [[float(f"{v:.6g}") for v in row] for row in cov]

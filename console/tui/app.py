@@ -116,6 +116,8 @@ class BenchjogApp(App):
         Binding("r", "reset", "reset", tooltip="Clear a latched e-stop (once released), fault or "
                 "lost link; connect when not connected", id="app.reset"),
         Binding("t", "teach", "teach", tooltip="Teach points and edit programs", id="app.teach"),
+        Binding("k", "calibrate", "calibrate", tooltip="Touch fixture-plate holes and calibrate the "
+                "arm file", id="app.calibrate"),
         Binding("ctrl+q", "quit", "quit", tooltip="Stop any motion and quit", priority=True,
                 id="app.quit"),
     ]
@@ -499,6 +501,15 @@ class BenchjogApp(App):
                 return
             self.install_screen(screen, name="teach")  # kept, not unmounted, when left
         self.push_screen("teach")
+
+    def action_calibrate(self) -> None:
+        """The calibration screen; one for the session, so its touches survive jogging."""
+        if not self.is_screen_installed("calibrate"):
+            from benchjog.console.tui.screens.commission import CalibrationScreen
+
+            self.install_screen(CalibrationScreen(self.interlock, self.arm), name="calibrate")
+        if self.screen is not self.get_screen("calibrate"):
+            self.push_screen("calibrate")
 
     async def action_quit(self) -> None:
         try:
