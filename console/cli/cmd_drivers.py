@@ -40,9 +40,19 @@ def register(subparsers) -> None:
                        "(device, arm, axes, baud) instead of the bare device path")
     emulate.set_defaults(func=cmd_emulate)
 
-    ports = subparsers.add_parser("ports", help="list serial ports",
-                                  description="List the serial ports, one a line.")
-    add_output_options(ports, json_help="one JSON array of {device, description, hwid}")
+    ports = subparsers.add_parser(
+        "ports", help="list serial ports; probe one for servos on a bus",
+        description=("List the serial ports with USB VID:PID, serial number, description and "
+                     "a guess of what is behind each. With --probe PORT: send one HELLO and "
+                     "report a benchjog controller that answers; with --probe PORT --ids LIST: "
+                     "ping those servo ids on a Protocol 2.0 bus and report who answers (model, "
+                     "present position, hardware error). Probing only greets, pings and reads: "
+                     "nothing moves, torque is never switched."))
+    ports.add_argument("--probe", metavar="PORT", help="a port (or pyserial URL) to probe")
+    ports.add_argument("--ids", metavar="LIST", help="servo ids to ping, e.g. 1-6 or 1,2,5")
+    ports.add_argument("--baud", dest="probe_baud", type=_positive, default=None, metavar="N",
+                       help="baud rate for --probe (default 1000000 with --ids, else 115200)")
+    add_output_options(ports, json_help="one JSON document on stdout")
     ports.set_defaults(func=cmd_ports)
 
 
@@ -111,19 +121,115 @@ class _FirstLineAsJson:
         return getattr(self._stream, name)
 
 
+# USB ids seen on the usual controllers (from memory; a guess, never a promise: many
+# boards share a USB-serial chip). Keys are (VID, PID); PID None matches any.
+USB_GUESSES: dict[tuple[int, int | None], str] = {
+    (0x0403, 0x6014): "FT232H adapter: a servo-bus USB interface (Protocol 2.0)?",
+    (0x0403, 0x6001): "FT232R USB-serial: a controller board or a servo-bus adapter",
+    (0x0403, 0x6015): "FT231X USB-serial: a controller board or a servo-bus adapter",
+    (0x2E8A, 0x0005): "RP2040 board running MicroPython: benchjog firmware?",
+    (0x2E8A, None): "RP2040 board",
+    (0x1A86, 0x7523): "CH340 USB-serial: a controller board or a servo-bus adapter",
+    (0x10C4, 0xEA60): "CP210x USB-serial: a controller board or a servo-bus adapter",
+    (0x2341, None): "Arduino board",
+    (0x16C0, 0x0483): "Teensy board",
+}
+
+
+def usb_guess(vid: int | None, pid: int | None) -> str:
+    """What a port with this USB VID:PID probably is.
+
+    >>> usb_guess(0x2E8A, 0x0005)
+    'RP2040 board running MicroPython: benchjog firmware?'
+    >>> usb_guess(None, None)
+    'not USB (built-in or virtual port)'
+    """
+    if vid is None:
+        return "not USB (built-in or virtual port)"
+    return USB_GUESSES.get((vid, pid)) or USB_GUESSES.get((vid, None)) or "unknown USB device"
+
+
+def port_rows(ports) -> list[dict]:
+    rows = []
+    for p in sorted(ports, key=lambda p: p.device):
+        vid, pid = getattr(p, "vid", None), getattr(p, "pid", None)
+        desc = p.description if p.description and p.description != "n/a" else ""
+        rows.append({"device": p.device,
+                     "vid_pid": f"{vid:04X}:{pid:04X}" if vid is not None and pid is not None else None,
+                     "serial_number": getattr(p, "serial_number", None) or None,
+                     "description": desc, "guess": usb_guess(vid, pid)})
+    return rows
+
+
 def cmd_ports(args: argparse.Namespace) -> int:
+    if getattr(args, "probe", None) is not None:
+        return _cmd_probe(args)
+    if getattr(args, "ids", None) is not None or getattr(args, "probe_baud", None) is not None:
+        from benchjog.console.errors import UsageError
+        raise UsageError("ports: --ids and --baud go with --probe PORT")
     from serial.tools import list_ports
 
-    found = sorted(list_ports.comports(), key=lambda p: p.device)
-    if args.json:
-        print_json([{"device": p.device,
-                     "description": p.description if p.description != "n/a" else None,
-                     "hwid": p.hwid if p.hwid != "n/a" else None} for p in found])
+    rows = port_rows(list_ports.comports())
+    if getattr(args, "json", False):
+        from benchjog.console.cli.common import print_json
+        print_json({"ports": rows})
         return exit_codes.OK
-    if not found:
+    if not rows:
         note(args, "no serial ports found")
         return exit_codes.OK
-    for port in found:
-        desc = port.description if port.description and port.description != "n/a" else ""
-        print(f"{port.device}\t{desc}".rstrip())
+    for r in rows:
+        print("\t".join([r["device"], r["vid_pid"] or "-", r["serial_number"] or "-",
+                         r["description"] or "-", r["guess"]]))
+    return exit_codes.OK
+
+
+def firmware_probe():
+    """The benchjog firmware's HELLO probe (drivers/firmware/probe.py): a callable
+    ``probe(port, baud) -> dict | None`` (None: no benchjog firmware answered). It sends
+    one HELLO and nothing else. ``--probe`` without ``--ids`` uses it."""
+    from benchjog.drivers.firmware.probe import probe_firmware
+
+    return probe_firmware
+
+
+def _cmd_probe(args: argparse.Namespace) -> int:
+    from benchjog.console.errors import UsageError
+
+    port = args.probe.strip()
+    if not port:
+        raise UsageError("ports --probe: empty port")
+    if args.ids is None:
+        baud = args.probe_baud or 115200
+        found = firmware_probe()(port, baud)
+        if getattr(args, "json", False):
+            from benchjog.console.cli.common import print_json
+            print_json({"port": port, "baud": baud, "firmware": found})
+        elif found is not None:
+            print(f"{port}: benchjog controller " + " ".join(
+                f"{k}={found[k]}" for k in ("name", "proto", "axes", "queue") if k in found))
+        if found is None:
+            print(f"benchjog: no benchjog controller answered HELLO on {port} at {baud} baud "
+                  "(for servos on a bus, give --ids)", file=sys.stderr)
+            return exit_codes.REFUSED
+        return exit_codes.OK
+    from benchjog.drivers.servobus.probe import parse_ids, probe_bus
+
+    try:
+        ids = parse_ids(args.ids)
+    except ValueError as exc:
+        raise UsageError(f"ports --ids: {exc}") from None
+    baud = args.probe_baud or 1_000_000
+    found = probe_bus(port, baud, ids)
+    if getattr(args, "json", False):
+        from benchjog.console.cli.common import print_json
+        print_json({"port": port, "baud": baud, "servos": [
+            {"id": f.servo_id, "model": f.model, "model_name": f.model_name, "firmware": f.firmware,
+             "present_position": f.present, "hardware_error": f.hardware_error} for f in found]})
+    else:
+        for f in found:
+            print(f.words())
+    if not found:
+        print(f"benchjog: no servo answered on {port} at {baud} baud (ids {args.ids}); check the "
+              "baud rate, the ids and the servo supply", file=sys.stderr)
+        return exit_codes.REFUSED
     return exit_codes.OK
