@@ -436,6 +436,8 @@ CONSOLE_COMMANDS = {
     "estop": "press the e-stop button",
     "release": "release the e-stop button (the controller then waits for RESET)",
     "fault": "a DRIVE fault on axis 1",
+    "limit": "open axis 1's limit switch (a LIMIT_SWITCH fault while the drives are on)",
+    "clear": "close the limit switches again",
 }
 
 
@@ -453,6 +455,10 @@ def run_console_command(emulator: "Emulator", line: str) -> str | None:
         emulator.release_estop()
     elif word == "fault":
         emulator.inject_fault("DRIVE", 1)
+    elif word == "limit":
+        emulator.set_limit(1)
+    elif word == "clear":
+        emulator.set_limit(0)
     else:
         return None
     return CONSOLE_COMMANDS[word]

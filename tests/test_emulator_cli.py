@@ -215,5 +215,7 @@ def test_typed_commands_press_and_release_the_estop():
         assert run_console_command(emu, " RELEASE ") and not emu.estop_input
         assert emu.mode == "ESTOP"  # the latch stays until RESET (PROTOCOL.md)
         assert run_console_command(emu, "dance") is None
+        assert run_console_command(emu, "limit") and emu.hw.limit == 1
+        assert run_console_command(emu, "clear") and emu.hw.limit == 0
     finally:
         emu.stop()

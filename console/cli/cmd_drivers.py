@@ -16,7 +16,8 @@ def register(subparsers) -> None:
                      "path on the first line of stdout and serve until interrupted. It starts "
                      "as a controller does after power-up: drives off, not homed. While it "
                      "runs, type estop, release or fault and Enter to press or release its "
-                     "e-stop button or cause a drive fault."))
+                     "e-stop button or cause a drive fault, limit or clear to open or close "
+                     "a limit switch."))
     emulate.add_argument("--arm", metavar="FILE", default=argparse.SUPPRESS,
                          help="arm file (TOML) or built-in arm name")
     emulate.add_argument("--baud", type=int, default=argparse.SUPPRESS,
