@@ -31,7 +31,8 @@ from pathlib import Path
 from typing import Any
 
 from benchjog.drivers.base import Driver, DriverEvent, DriverState, LinkError
-from benchjog.drivers.jog_session import (ActiveSession, SessionBounds, SessionSlot, SessionStep,
+from benchjog.drivers.jog_session import (DEADMAN_S, ActiveSession, SessionBounds, SessionSlot,
+                                          SessionStep,
                                           SessionView, frame_of, make_bounds, state_key,
                                           step_problems)
 from benchjog.drivers.journal import Journal, NullJournal
@@ -737,7 +738,7 @@ class Interlock:
         """Ask once, run the first step; a yes and a completed step open the session."""
         slot = self._jog_slot()
         with slot.lock:
-            offer = slot.offers.pop(proposal.token, None)
+            offer = slot.offers.get(proposal.token)   # shown by the confirmer, then dropped
         self.end_jog_session("a new session was asked for")
         asked = {"yes": False}
 
@@ -746,7 +747,11 @@ class Interlock:
                 asked["yes"] = bool(confirmer.confirm(p))
                 return asked["yes"]
 
-        result = self.execute(proposal, _Remember())
+        try:
+            result = self.execute(proposal, _Remember())
+        finally:
+            with slot.lock:
+                slot.offers.pop(proposal.token, None)
         if offer is None or offer[1] or not (asked["yes"] and result.completed):
             return result
         bounds = offer[0]
@@ -762,15 +767,18 @@ class Interlock:
                              speed_cap_mm_s=bounds.speed_cap_mm_s, idle_s=bounds.idle_s)
         return result
 
-    def session_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0) -> SessionStep:
+    def session_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0,
+                    end_within_s: float | None = None) -> SessionStep:
         """One jog step inside the active session, without a question. When there is no
         session, or the step does not fit it (the session then ends), nothing moves and
-        ``ended`` says why: the caller asks again."""
+        ``ended`` says why: the caller asks again. ``end_within_s``: the step runs only
+        if it would end within this many seconds (a key repeat that waited; outcome
+        "lapsed" otherwise, and the session goes on)."""
         slot = self._jog_slot()
         with slot.lock:
             session = slot.active
         if session is None:
-            return SessionStep(None, slot.last_end or "no jog session")
+            return SessionStep(None, "no jog session")
         why = self._session_over(session, self._clock())
         if why is None and state_key(self.state()) != session.state_key:
             why = "the driver's state changed"
@@ -801,6 +809,10 @@ class Interlock:
         if problems:
             self._issued.pop(token, None)
             return SessionStep(None, self._finish_session(session, problems[0]), token)
+        if end_within_s is not None and proposal.duration_s > end_within_s:
+            self._issued.pop(token, None)
+            return SessionStep(RunResult(False, "lapsed", "not moved: no key repeat within the "
+                                         f"dead-man window {DEADMAN_S:g} s"), None, token)
         with slot.lock:
             slot.step_tokens.add(token)
         self._journal.record("session-step", session=session.number, token=token)
@@ -826,7 +838,8 @@ class Interlock:
                     session.steps += int(result.completed)
                 else:
                     ended = slot.last_end or "the jog session ended"
-        return SessionStep(result, ended, token)
+        end = proposal.plans[0].segments[-1].joints if result.completed else None
+        return SessionStep(result, ended, token, end)
 
     def _session_confirms(self, session: ActiveSession, token: int) -> bool:
         """The session's yes: only for a step session_jog cleared, while it is active."""
@@ -861,11 +874,12 @@ class Interlock:
             session = slot.active
         if session is None:
             return None
-        why = self._session_over(session, self._clock())
+        now = self._clock()
+        why = self._session_over(session, now)
         if why:
             self._finish_session(session, why)
             return None
-        return session.view()
+        return session.view(now)
 
     def jog_session_ended(self) -> str | None:
         """Why the last session ended (None while one is active or none ran)."""

@@ -238,9 +238,7 @@ class SessionView:
     started_s: float
     last_step_s: float
     steps: int
-
-    def time_left_s(self, now: float) -> float:
-        return max(0.0, self.bounds.idle_s - (now - self.last_step_s))
+    left_s: float                # time left before the idle timeout, when the view was made
 
 
 @dataclass(frozen=True)
@@ -252,6 +250,7 @@ class SessionStep:
     result: object | None        # benchjog.drivers.interlock.RunResult
     ended: str | None = None
     token: int | None = None
+    end_joints: tuple[float, ...] | None = None   # where a completed step ended
 
 
 @dataclass
@@ -266,9 +265,10 @@ class ActiveSession:
     last_token: int
     steps: int = 0
 
-    def view(self) -> SessionView:
+    def view(self, now: float) -> SessionView:
+        left = max(0.0, self.bounds.idle_s - (now - self.last_step_s))
         return SessionView(self.number, self.bounds, self.started_s, self.last_step_s,
-                           self.steps)
+                           self.steps, left)
 
 
 class SessionSlot:

@@ -150,7 +150,8 @@ def test_interruptions_end_the_session_and_the_next_jog_asks(gate, clock, interr
     sent = len(moves(gate))
     interrupt(gate, clock)
     step = gate.session_jog("x", 1.0)
-    assert step.result is None and words in step.ended, step.ended
+    assert step.result is None and step.ended
+    assert words in gate.jog_session_ended(), gate.jog_session_ended()
     assert len(moves(gate)) == sent
     assert gate.jog_session() is None
     assert kinds(gate).count("session-end") == 1
