@@ -811,8 +811,9 @@ class Interlock:
             return SessionStep(None, self._finish_session(session, problems[0]), token)
         if end_within_s is not None and proposal.duration_s > end_within_s:
             self._issued.pop(token, None)
-            return SessionStep(RunResult(False, "lapsed", "not moved: no key repeat within the "
-                                         f"dead-man window {DEADMAN_S:g} s"), None, token)
+            return SessionStep(RunResult(False, "lapsed", "not moved: the step would end more "
+                                         f"than the dead-man window {DEADMAN_S:g} s after its "
+                                         "key"), None, token)
         with slot.lock:
             slot.step_tokens.add(token)
         self._journal.record("session-step", session=session.number, token=token)

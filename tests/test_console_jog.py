@@ -18,7 +18,7 @@ from benchjog.console.cell.armfile import builtin_arm
 from benchjog.console.tui.app import make_app
 from benchjog.console.tui.screens.confirm import ConfirmMoveScreen
 from benchjog.console.tui.widgets.sketch import PoseSketch
-from benchjog.console.tui.widgets.status import JogStatus
+from benchjog.console.tui.widgets.status import LinkStatus
 from benchjog.drivers.interlock import Interlock
 from benchjog.drivers.jog_session import DEADMAN_S
 from benchjog.drivers.journal import Journal, read_journal
@@ -181,11 +181,10 @@ async def test_status_and_sketch_show_the_envelope_and_time_left(planar):
     app = make_app(arm, gate)
     async with app.run_test(size=SIZE) as pilot:
         await ready(pilot, app)
-        status = app.jog_screen.query_one(JogStatus)
-        assert "jog session: none" in status.words
+        status = app.jog_screen.query_one(LinkStatus)
+        assert await until(pilot, lambda: "jog session: none" in status.words)
         await start_session(pilot, app, gate)
-        await pilot.pause(0.3)
-        assert "s left" in status.words and "envelope" in status.words
+        assert await until(pilot, lambda: "s left" in status.words and "box +/-25" in status.words)
         sketch = app.jog_screen.query_one(PoseSketch)
         assert await until(pilot, lambda: any("~" in line for line in sketch.lines[:-3]))
         assert any("jog session" in line and " s" in line for line in sketch.lines)

@@ -329,3 +329,34 @@ def test_random_session_sequences_never_leave_the_envelope_or_move_without_a_yes
             x, y = xy_from_deg(*joints_deg_from_counts(command[2]))
             assert abs(x - centre[0]) <= BOX_MM + ALLOW_MM
             assert abs(y - centre[1]) <= BOX_MM + ALLOW_MM
+
+
+def test_a_scara_session_bounds_z_and_roll_too(tmp_path):
+    arm = builtin_arm("scara-bench")
+    g = Interlock.open(arm, "sim", journal=False, time_scale=50.0)
+    try:
+        g.enable()
+        proposal = g.propose_jog_session("z", -1.0, step=1.0, z_mm=2.5)
+        text = "\n".join(g.jog_session_lines(proposal))
+        assert "z " in text and "roll " in text and arm.joints[2].name in text
+        assert g.execute_jog_session(proposal, Answer(True)).completed
+        assert g.session_jog("z", -1.0).result.completed       # 2 mm of 2.5
+        step = g.session_jog("z", -1.0)                          # 3 mm: outside
+        assert step.result is None and "envelope" in step.ended and "z" in step.ended
+        proposal = g.propose_jog_session("roll", math.radians(1.0), step=1.0, roll_deg=1.5)
+        assert g.execute_jog_session(proposal, Answer(True)).completed
+        assert g.session_jog("roll", math.radians(-1.0)).result.completed   # back to 0
+        assert g.session_jog("roll", math.radians(-1.0)).result.completed   # -1 of 1.5
+        step = g.session_jog("roll", math.radians(-1.0))
+        assert step.result is None and "roll" in step.ended
+    finally:
+        g.close()
+
+
+def test_a_step_that_would_end_after_the_dead_man_window_of_its_key_lapses(gate):
+    start(gate)
+    sent = len(moves(gate))
+    step = gate.session_jog("x", 1.0, end_within_s=0.01)   # a 1 mm step lasts ~0.09 s
+    assert step.result.outcome == "lapsed" and step.ended is None
+    assert len(moves(gate)) == sent and gate.jog_session() is not None
+    assert gate.session_jog("x", 1.0, end_within_s=DEADMAN_S).result.completed

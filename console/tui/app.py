@@ -196,6 +196,9 @@ class BenchjogApp(App):
         for event in message.events:
             if event.kind != "done":   # one line per segment would drown the rest
                 self.jog_screen.log_event(event.kind, event.detail)
+        if not self.ready() and self.state is not None:
+            # the interlock would end it at the next step anyway; say so now
+            self.end_session("the driver's state changed (drives off, latched or no link)")
         self.refresh_view()
 
     @staticmethod
@@ -416,12 +419,14 @@ class BenchjogApp(App):
 
     def _run_jog(self, request: MotionRequest) -> MotionDone:
         """Runs in the worker thread. Inside the interlock's jog session the step runs
-        with no question; otherwise (no session, or this step ends it) a fresh key press
+        with no question if it ends within DEADMAN_S of its key; otherwise (no session, or this step ends it) a fresh key press
         asks for a new session around the present pose, while a key that waited behind a
         running step is dropped, never turned into a question or a motion later."""
         gate = self.interlock
         words = request.words(self.arm)
-        within = DEADMAN_S - (time.monotonic() - request.key_at) if request.queued else None
+        # every step in a session must end within the dead-man window of its own key
+        # (a repeat that waited, or a key the busy machine was slow to hand over)
+        within = DEADMAN_S - (time.monotonic() - request.key_at)
         step = gate.session_jog(request.axis, request.delta, speed_pct=self.speed_pct,
                                 end_within_s=within)
         if step.result is not None:

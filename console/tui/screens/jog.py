@@ -131,19 +131,20 @@ class JogScreen(Screen):
         error = app.state_error or (app.interlock.link_error if not_open else None)
         self.query_one(Banner).show(banner_lines(app.state, error, app.reach_warning()))
         polled = None if app.polled_at is None else max(0.0, app._clock() - app.polled_at)
+        session = app.session_view()
         self.query_one(LinkStatus).show(link_words(app.state, app.driver_name, app.state_error,
-                                                   polled) + "\n" + self.motion_words())
+                                                   polled) + "\n" + self.motion_words()
+                                        + "\n" + self.session_words(session))
         actual = app.actual
         self.query_one(JointReadout).show(actual, app.commanded_joints())
         ik, active, title = app.current_ik()
         self.query_one(BranchTable).show(ik, active, title)
         self.query_one(WarningsPanel).show(app.warnings())
-        session = app.session_view()
         self.query_one(PoseSketch).show(actual, target=app.target,
                                         other_joints=app.other_joints(),
                                         planned_joints=app.planned_joints(),
                                         **self.session_sketch(session))
-        self.query_one(JogStatus).show(self.jog_words() + "\n" + self.session_words(session))
+        self.query_one(JogStatus).show(self.jog_words())
 
     def jog_words(self) -> str:
         app = self.app
@@ -155,12 +156,12 @@ class JogScreen(Screen):
     # -- the jog session (the interlock holds it; this only shows it) ---------------------
     def session_words(self, session) -> str:
         if session is None:
-            return "jog session: none (the next jog key asks once for a run of steps)"
+            return "jog session: none (a jog asks)"
         b = session.bounds
-        left = session.left_s
         unit = "mm / deg" if (b.frame == "joint" or self.arm.is_scara) else "mm"
-        return (f"jog session: {left:.0f} s left, envelope +/-{b.half[0]:g} mm, step <= "
-                f"{b.step:g} {unit}, {b.branch or 'singular'}, {b.speed_cap_mm_s:g} mm/s")
+        return (f"jog session: {session.left_s:.0f} s left, box +/-{b.half[0]:g} mm, "
+                f"step <= {b.step:g} {unit}, {b.branch or 'singular'}, "
+                f"{b.speed_cap_mm_s:g} mm/s")
 
     def session_sketch(self, session) -> dict:
         if session is None:
