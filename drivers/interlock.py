@@ -45,6 +45,10 @@ from typing import Any
 import numpy as np
 
 from benchjog.drivers.base import Driver, DriverEvent, DriverState, LinkError
+from benchjog.drivers.jog_session import (DEADMAN_S, ActiveSession, SessionBounds, SessionSlot,
+                                          SessionStep,
+                                          SessionView, frame_of, make_bounds, state_key,
+                                          step_problems)
 from benchjog.drivers.journal import Journal, NullJournal
 from benchjog.drivers.registry import create_driver
 from benchjog.kinematics.limits import fmt
@@ -588,6 +592,11 @@ class Interlock:
                  f"the caps"]
         return reasons, notes
 
+    def _tool_speed(self, start: Sequence[float], end: Sequence[float], duration_s: float,
+                    ) -> float:
+        """Peak tool speed over one segment (mm/s), as :meth:`_tool_speeds`."""
+        return float(self._tool_speeds(start, [Segment(tuple(end), duration_s)])[0])
+
     def _tool_speeds(self, start: Sequence[float], segments: Sequence[Segment]) -> np.ndarray:
         """Peak tool speed over each segment (mm/s) at its wire duration, bounded by
         sub-sampled chords: the tool point at TOOL_SPEED_SAMPLES + 1 poses along each
@@ -1038,6 +1047,7 @@ class Interlock:
             self._journal.record("stop", cancelled=cancelled)
         except Exception:  # noqa: BLE001 - the arm is stopped; nothing else may raise here
             pass
+        self._jog_session_hook("a stop")  # jog sessions: a stop ends one (never raises)
 
     def _safe_stop(self) -> None:
         try:
@@ -1058,12 +1068,14 @@ class Interlock:
         self.__driver.enable()
 
     def disable(self) -> None:
+        self._jog_session_hook("drives switched off")  # jog sessions: ends one
         self._journal.record("disable")
         self.__driver.disable()
 
     def reset(self) -> None:
         """Clear a latched e-stop (once released) or fault; reconnect a lost link; and
         connect a driver that could not be opened at start."""
+        self._jog_session_hook("a reset")  # jog sessions: a reset ends one
         self._journal.record("reset")
         self._journal.recover()   # a journal that failed is tried again (journal_error)
         if not self.__driver.state().is_open:
@@ -1078,3 +1090,219 @@ class Interlock:
             raise ValueError(f"output channel {channel} outside 0..7")
         self._journal.record("output", channel=channel, on=on)
         self.__driver.set_output(channel, on)
+
+    # -- jog sessions --------------------------------------------------------------------
+    # One confirmation for a run of jog steps near one pose (drivers/jog_session.py).
+    # The approval is issued and held here: a step runs only through session_jog, which
+    # plans and checks it exactly as propose_jog + execute do, then against the bounds
+    # the person approved, and answers the confirmation itself only for a step it
+    # cleared. Starts and ends are journaled (session-start, session-step, session-end).
+    def _jog_slot(self) -> SessionSlot:
+        slot = self.__dict__.get("_jog_slot_obj")
+        return slot if slot is not None else self.__dict__.setdefault("_jog_slot_obj",
+                                                                      SessionSlot())
+
+    def _session_pct(self, bounds: SessionBounds, speed_pct: float) -> float:
+        """The speed override that keeps the tool under the session's cap."""
+        return min(float(speed_pct), 100.0 * bounds.speed_cap_mm_s / self._arm.tool_speed_max_mm_s)
+
+    def propose_jog_session(self, axis: str, delta: float, *, step: float,
+                            speed_pct: float = 100.0, **bounds_options: Any) -> Proposal:
+        """A jog step offered as the first of a session around the present pose. Run it
+        with :meth:`execute_jog_session`; :meth:`jog_session_lines` gives the bounds to
+        show. ``step`` is the largest step (mm / deg); ``bounds_options`` go to
+        :func:`make_bounds` (box_mm, z_mm, roll_deg, speed_cap_mm_s, idle_s).
+
+        Raises:
+            SessionError: bounds that cannot make a session.
+        """
+        joints = self.state().joints
+        bounds = make_bounds(self._arm, joints, frame_of(axis), step, **bounds_options)
+        proposal = self.propose_jog(axis, delta, speed_pct=self._session_pct(bounds, speed_pct))
+        problems: list[str] = []
+        if proposal.ok:
+            problems = step_problems(self._arm, bounds, axis, delta, proposal.plans[0],
+                                     proposal.start_joints, self._tool_speed, wire_duration_s)
+        slot = self._jog_slot()
+        with slot.lock:
+            for token in [t for t in slot.offers if t not in self._issued]:
+                del slot.offers[token]   # used or expired proposals
+            slot.offers[proposal.token] = (bounds, tuple(problems))
+        return proposal
+
+    def jog_session_lines(self, proposal: Proposal) -> list[str]:
+        """The session's bounds for the confirmation of ``proposal`` (or why the step
+        cannot open a session and runs alone)."""
+        offer = self._jog_slot().offers.get(proposal.token)
+        if offer is None:
+            return []
+        bounds, problems = offer
+        if problems:
+            return [f"single step (no jog session: {problems[0]})"]
+        return bounds.lines(self._arm)
+
+    def execute_jog_session(self, proposal: Proposal, confirmer: Confirmer) -> RunResult:
+        """Ask once, run the first step; a yes and a completed step open the session."""
+        slot = self._jog_slot()
+        with slot.lock:
+            offer = slot.offers.get(proposal.token)   # shown by the confirmer, then dropped
+        self.end_jog_session("a new session was asked for")
+        asked = {"yes": False}
+
+        class _Remember(Confirmer):
+            def confirm(self, p: Proposal) -> bool:
+                asked["yes"] = bool(confirmer.confirm(p))
+                return asked["yes"]
+
+        try:
+            result = self.execute(proposal, _Remember())
+        finally:
+            with slot.lock:
+                slot.offers.pop(proposal.token, None)
+        if offer is None or offer[1] or not (asked["yes"] and result.completed):
+            return result
+        bounds = offer[0]
+        now = self._clock()
+        with slot.lock:
+            session = ActiveSession(next(slot.numbers), bounds, now, now,
+                                    state_key(self.state()), proposal.token)
+            slot.active = session
+            slot.last_end = None
+        self._journal.record("session-start", session=session.number, token=proposal.token,
+                             center=list(bounds.center), half=list(bounds.half),
+                             branch=str(bounds.branch), frame=bounds.frame, step=bounds.step,
+                             speed_cap_mm_s=bounds.speed_cap_mm_s, idle_s=bounds.idle_s)
+        return result
+
+    def session_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0,
+                    end_within_s: float | None = None) -> SessionStep:
+        """One jog step inside the active session, without a question. When there is no
+        session, or the step does not fit it (the session then ends), nothing moves and
+        ``ended`` says why: the caller asks again. ``end_within_s``: the step runs only
+        if it would end within this many seconds (a key repeat that waited; outcome
+        "lapsed" otherwise, and the session goes on)."""
+        slot = self._jog_slot()
+        with slot.lock:
+            session = slot.active
+        if session is None:
+            return SessionStep(None, "no jog session")
+        why = self._session_over(session, self._clock())
+        if why is None and state_key(self.state()) != session.state_key:
+            why = "the driver's state changed"
+        if why:
+            return SessionStep(None, self._finish_session(session, why))
+        proposal = self.propose_jog(axis, delta,
+                                    speed_pct=self._session_pct(session.bounds, speed_pct))
+        token = proposal.token
+        with slot.lock:
+            current = slot.active is session
+            in_turn = token == session.last_token + 1
+            session.last_token = token
+        if not current:
+            return SessionStep(None, slot.last_end or "the jog session ended", token)
+        if not in_turn:
+            return SessionStep(None, self._finish_session(
+                session, "another motion was asked for since the last step"), token)
+        if not proposal.ok:   # refused by the gate's own checks: nothing moves
+            self._issued.pop(token, None)
+            self._journal.record("result", token=token, outcome="refused",
+                                 detail="; ".join(proposal.verdict.reasons), segments_sent=0,
+                                 step=None)
+            return SessionStep(RunResult(False, "refused",
+                                         "refused: " + "; ".join(proposal.verdict.reasons)),
+                               None, token)
+        problems = step_problems(self._arm, session.bounds, axis, delta, proposal.plans[0],
+                                 proposal.start_joints, self._tool_speed, wire_duration_s)
+        if problems:
+            self._issued.pop(token, None)
+            return SessionStep(None, self._finish_session(session, problems[0]), token)
+        if end_within_s is not None and proposal.duration_s > end_within_s:
+            self._issued.pop(token, None)
+            return SessionStep(RunResult(False, "lapsed", "not moved: the step would end more "
+                                         f"than the dead-man window {DEADMAN_S:g} s after its "
+                                         "key"), None, token)
+        with slot.lock:
+            slot.step_tokens.add(token)
+        self._journal.record("session-step", session=session.number, token=token)
+        gate = self
+
+        class _SessionYes(Confirmer):
+            def confirm(self, p: Proposal) -> bool:
+                return gate._session_confirms(session, p.token)
+
+        try:
+            result = self.execute(proposal, _SessionYes())
+        finally:
+            with slot.lock:
+                slot.step_tokens.discard(token)
+        ended = None
+        if result.outcome in ("stopped", "halted", "expired") or (
+                result.outcome == "cancelled" and slot.active is session):
+            ended = self._finish_session(session, f"the step {result.outcome}: {result.detail}")
+        else:
+            with slot.lock:
+                if slot.active is session:
+                    session.last_step_s = self._clock()
+                    session.steps += int(result.completed)
+                else:
+                    ended = slot.last_end or "the jog session ended"
+        end = proposal.plans[0].segments[-1].joints if result.completed else None
+        return SessionStep(result, ended, token, end)
+
+    def _session_confirms(self, session: ActiveSession, token: int) -> bool:
+        """The session's yes: only for a step session_jog cleared, while it is active."""
+        slot = self._jog_slot()
+        with slot.lock:
+            return (slot.active is session and token in slot.step_tokens
+                    and not self._stop.is_set())
+
+    def _session_over(self, session: ActiveSession, now: float) -> str | None:
+        if now - session.last_step_s > session.bounds.idle_s:
+            return f"idle for more than {session.bounds.idle_s:g} s"
+        if self._stop.is_set():
+            return "a stop"
+        return None
+
+    def _finish_session(self, session: ActiveSession, why: str) -> str:
+        slot = self._jog_slot()
+        with slot.lock:
+            if slot.active is not session:
+                return slot.last_end or why
+            slot.active = None
+            slot.last_end = why
+        self._journal.record("session-end", session=session.number, reason=why,
+                             steps=session.steps)
+        return why
+
+    def jog_session(self) -> SessionView | None:
+        """A read-only picture of the active session (None when there is none); ends
+        one that has timed out or was stopped. Reads no driver state (UI-thread safe)."""
+        slot = self._jog_slot()
+        with slot.lock:
+            session = slot.active
+        if session is None:
+            return None
+        now = self._clock()
+        why = self._session_over(session, now)
+        if why:
+            self._finish_session(session, why)
+            return None
+        return session.view(now)
+
+    def jog_session_ended(self) -> str | None:
+        """Why the last session ended (None while one is active or none ran)."""
+        return self._jog_slot().last_end
+
+    def end_jog_session(self, why: str) -> None:
+        """End the active session, if any (a change of branch, frame or step, quitting)."""
+        with self._jog_slot().lock:
+            session = self._jog_slot().active
+        if session is not None:
+            self._finish_session(session, why)
+
+    def _jog_session_hook(self, why: str) -> None:
+        """Called by stop, reset and disable: they end any session. Never raises."""
+        try:
+            self.end_jog_session(why)
+        except Exception:  # noqa: BLE001 - a journal fault must not stop a stop
+            pass

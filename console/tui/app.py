@@ -16,7 +16,8 @@ import importlib
 import importlib.util
 import math
 import threading
-from dataclasses import dataclass
+import time
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from textual import work
@@ -27,6 +28,7 @@ from benchjog.console.tui.messages import ControlDone, MotionDone, StateUpdated
 from benchjog.console.tui.screens.confirm import ConfirmMoveScreen
 from benchjog.console.tui.screens.jog import JogScreen
 from benchjog.drivers.interlock import Confirmer, Interlock, Proposal
+from benchjog.drivers.jog_session import DEADMAN_S, SessionError
 from benchjog.kinematics.model import Arm, Branch
 from benchjog.kinematics.planner import nearest_equivalent
 from benchjog.kinematics.solve import IKResult, joints_from_tool, pose_warnings, tool_from_joints
@@ -52,6 +54,8 @@ class MotionRequest:
     target: tuple[float, ...] | None = None    # move: tool target (mm, rad)
     branch: Branch | None = None               # move
     path: str = "joint"                        # move
+    key_at: float = 0.0                        # jog: when its key arrived (monotonic s)
+    queued: bool = False                       # jog: waited in the pending slot
 
     def words(self, arm: Arm) -> str:
         if self.kind == "home":
@@ -85,10 +89,12 @@ class ScreenConfirmer(Confirmer):
             box["yes"] = result is True
             answered.set()
 
-        screen = ConfirmMoveScreen(proposal.lines(self.app.arm),
-                                   title="Confirm before the arm moves")
+        session = self.app.interlock.jog_session_lines(proposal)
+        lines = proposal.lines(self.app.arm) + session
+        title = ("Confirm a jog session before the arm moves" if session and
+                 not session[0].startswith("single step") else "Confirm before the arm moves")
         try:
-            self.app.call_from_thread(self.app.show_confirm, screen, on_answer)
+            self.app.call_from_thread(self.app.ask_confirm, lines, title, on_answer)
         except RuntimeError:
             return False   # the app is not running
         while not answered.wait(0.05):
@@ -149,6 +155,7 @@ class BenchjogApp(App):
         self.busy: MotionRequest | None = None
         self.pending: MotionRequest | None = None
         self.confirm_screen: ConfirmMoveScreen | None = None
+        self._confirm_box: ConfirmMoveScreen | None = None
         self._polling = False
         self._readiness: tuple | None = None
         self._has_teach: bool | None = None
@@ -191,6 +198,9 @@ class BenchjogApp(App):
         for event in message.events:
             if event.kind != "done":   # one line per segment would drown the rest
                 self.jog_screen.log_event(event.kind, event.detail)
+        if not self.ready() and self.state is not None:
+            # the interlock would end it at the next step anyway; say so now
+            self.end_session("the driver's state changed (drives off, latched or no link)")
         self.refresh_view()
 
     @staticmethod
@@ -350,7 +360,7 @@ class BenchjogApp(App):
             delta = math.radians(sign * self.step)
         else:
             delta = sign * self.step
-        self.request_motion(MotionRequest("jog", axis=axis, delta=delta))
+        self.request_motion(MotionRequest("jog", axis=axis, delta=delta, key_at=time.monotonic()))
 
     def move_to_target(self) -> None:
         if self.target is None:
@@ -364,7 +374,7 @@ class BenchjogApp(App):
         jog replaces the pending one: holding a key never piles up moves)."""
         if self.busy is not None:
             if request.kind == "jog" and self.busy.kind == "jog":
-                self.pending = request
+                self.pending = replace(request, queued=True)
                 self.jog_screen.refresh_view()
             else:
                 self.set_message(f"busy with {self.busy.words(self.arm)}: wait, or stop (space)",
@@ -372,8 +382,8 @@ class BenchjogApp(App):
             return
         self.busy = request
         self.plan_warnings = []
+        self._motion_worker(request)   # first: the key's setpoint does not wait for a redraw
         self.refresh_view()
-        self._motion_worker(request)
 
     @work(thread=True, exclusive=True, group="motion", exit_on_error=False)
     def _motion_worker(self, request: MotionRequest) -> None:
@@ -393,7 +403,7 @@ class BenchjogApp(App):
             result = gate.home(self.confirmer)
             return MotionDone(request, "home", result.outcome, result.detail)
         if request.kind == "jog":
-            proposal = gate.propose_jog(request.axis, request.delta, speed_pct=self.speed_pct)
+            return self._run_jog(request)
         else:
             proposal = gate.propose_move(request.target, branch=request.branch, path=request.path,
                                          speed_pct=self.speed_pct)
@@ -409,8 +419,60 @@ class BenchjogApp(App):
                           end_joints=tuple(ends[-1]) if ends and result.completed else None,
                           warnings=warnings)
 
+    def _run_jog(self, request: MotionRequest) -> MotionDone:
+        """Runs in the worker thread. Inside the interlock's jog session the step runs
+        with no question if it ends within DEADMAN_S of its key; otherwise (no session, or this step ends it) a fresh key press
+        asks for a new session around the present pose, while a key that waited behind a
+        running step is dropped, never turned into a question or a motion later."""
+        gate = self.interlock
+        words = request.words(self.arm)
+        # every step in a session must end within the dead-man window of its own key
+        # (a repeat that waited, or a key the busy machine was slow to hand over)
+        within = DEADMAN_S - (time.monotonic() - request.key_at)
+        step = gate.session_jog(request.axis, request.delta, speed_pct=self.speed_pct,
+                                end_within_s=within)
+        if step.result is not None:
+            r = step.result
+            return MotionDone(request, words, r.outcome, r.detail, end_joints=step.end_joints,
+                              session=True, session_end=step.ended)
+        if request.queued:
+            return MotionDone(request, words, "dropped", "not moved: the jog session ended; "
+                              "the next jog key asks again", session_end=step.ended)
+        try:
+            proposal = gate.propose_jog_session(request.axis, request.delta, step=self.step,
+                                                speed_pct=self.speed_pct)
+        except SessionError as exc:
+            return MotionDone(request, words, "refused", f"refused: {exc}",
+                              session_end=step.ended)
+        warnings = tuple(w for plan in proposal.plans
+                         for w in getattr(plan.summary, "warnings", ()) or ())
+        if not proposal.ok:
+            return MotionDone(request, proposal.request, "refused",
+                              "refused: " + "; ".join(proposal.verdict.reasons),
+                              proposal.verdict.reasons, warnings=warnings, session_end=step.ended)
+        ends = [p.segments[-1].joints for p in proposal.plans if p.segments]
+        result = gate.execute_jog_session(proposal, self.confirmer)
+        return MotionDone(request, proposal.request, result.outcome, result.detail,
+                          end_joints=tuple(ends[-1]) if ends and result.completed else None,
+                          warnings=warnings, session=gate.jog_session() is not None,
+                          session_end=step.ended)
+
+    def session_view(self):
+        """The interlock's active jog session (read-only), or None."""
+        return self.interlock.jog_session()
+
+    def end_session(self, why: str) -> None:
+        """A change of frame, branch or a larger step ends the jog session now."""
+        if self.interlock.jog_session() is not None:
+            self.interlock.end_jog_session(why)
+            self.set_message(f"jog session ended: {why}; the next jog asks again")
+            self.jog_screen.log_event("session", f"ended: {why}")
+            self.refresh_view()
+
     def on_motion_done(self, message: MotionDone) -> None:
         self.busy = None
+        if message.session_end and message.session_end != "no jog session":
+            self.jog_screen.log_event("session", f"ended: {message.session_end}")
         self.plan_warnings = [f"last plan: {w}" for w in message.warnings]
         self.plan_warnings += [f"refused: {r}" for r in message.reasons]
         self.jog_screen.log_event(message.outcome, f"{message.words}: {message.detail}")
@@ -419,11 +481,25 @@ class BenchjogApp(App):
         elif message.request.kind == "home" and message.outcome == "done":
             self.last_end_joints = None  # homed: no commanded Cartesian pose to compare with
         ok = message.outcome == "done"
-        self.set_message(f"{message.words}: {message.detail}", error=not ok)
+        self.set_message(f"{message.words}: {message.detail}",
+                         error=not ok and message.outcome not in ("lapsed", "dropped"))
         pending, self.pending = self.pending, None
         self.refresh_view()
-        if pending is not None and ok:
+        # a held key goes on only inside a session, and only with a fresh repeat
+        if (pending is not None and ok and message.session
+                and time.monotonic() - pending.key_at <= DEADMAN_S):
             self.request_motion(pending)
+
+    def ask_confirm(self, lines, title: str, callback) -> None:
+        """On the UI thread: the one confirmation box, composed once and then reused
+        (updating two texts is much quicker than composing a screen)."""
+        box = self._confirm_box
+        if box is None:
+            box = self._confirm_box = ConfirmMoveScreen(lines, title=title)
+            self.install_screen(box, name="confirm-box")
+        else:
+            box.ask(lines, title=title)
+        self.show_confirm(box, callback)
 
     def show_confirm(self, screen: ConfirmMoveScreen, callback) -> None:
         """On the UI thread: push the confirmation; remember it so stop can answer no."""
@@ -431,6 +507,7 @@ class BenchjogApp(App):
 
         def answered(result: bool | None) -> None:
             self.confirm_screen = None
+            self.pending = None   # keys from before the question never move the arm later
             callback(result)
 
         self.push_screen(screen, answered)

@@ -32,6 +32,8 @@ class MotionDone(Message):
     reasons: tuple[str, ...] = ()   # refusal reasons of the proposal
     end_joints: tuple[float, ...] | None = None   # where the plan ends (rad, mm)
     warnings: tuple[str, ...] = ()  # the planner's warnings (speed, singularity, clearance)
+    session: bool = False           # a jog step run inside the interlock's jog session
+    session_end: str | None = None  # why the jog session ended on this request, if it did
 
 
 @dataclass

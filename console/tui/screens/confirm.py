@@ -59,3 +59,28 @@ class ConfirmMoveScreen(ModalScreen[bool]):
         if not self.answered:
             self.answered = True
             self.dismiss(bool(yes))
+
+    # -- reuse (key to screen within one frame) ------------------------------------------
+    def ask(self, lines: Sequence[str], *, title: str | None = None) -> None:
+        """Show new lines in this box before it is pushed again, so the console composes
+        it once and every later question only updates two texts."""
+        self.lines = list(lines)
+        self.answered = False
+        if title is not None:
+            self.title_words = title
+        if not self.is_mounted:
+            return   # compose() will use the new lines
+        self.query_one("#confirm-title", Static).update(Text(self.title_words, style="bold"))
+        self.query_one("#confirm-lines", Static).update(self._lines_text())
+        self.query_one("#confirm-box", VerticalScroll).scroll_home(animate=False)
+
+    def _lines_text(self) -> Text:
+        text = Text()
+        for n, line in enumerate(self.lines):
+            if n:
+                text.append("\n")
+            low = line.lower()
+            style = ("bold red" if line.startswith("REFUSED") else
+                     "yellow" if ("warning" in low or "near" in low) else "")
+            text.append(line, style=style)
+        return text

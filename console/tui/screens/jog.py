@@ -131,8 +131,10 @@ class JogScreen(Screen):
         error = app.state_error or (app.interlock.link_error if not_open else None)
         self.query_one(Banner).show(banner_lines(app.state, error, app.reach_warning()))
         polled = None if app.polled_at is None else max(0.0, app._clock() - app.polled_at)
+        session = app.session_view()
         self.query_one(LinkStatus).show(link_words(app.state, app.driver_name, app.state_error,
-                                                   polled) + "\n" + self.motion_words())
+                                                   polled) + "\n" + self.motion_words()
+                                        + "\n" + self.session_words(session))
         actual = app.actual
         self.query_one(JointReadout).show(actual, app.commanded_joints())
         ik, active, title = app.current_ik()
@@ -140,7 +142,8 @@ class JogScreen(Screen):
         self.query_one(WarningsPanel).show(app.warnings())
         self.query_one(PoseSketch).show(actual, target=app.target,
                                         other_joints=app.other_joints(),
-                                        planned_joints=app.planned_joints())
+                                        planned_joints=app.planned_joints(),
+                                        **self.session_sketch(session))
         self.query_one(JogStatus).show(self.jog_words())
 
     def jog_words(self) -> str:
@@ -149,6 +152,25 @@ class JogScreen(Screen):
         unit = "mm / deg" if (app.joint_mode or self.arm.is_scara) else "mm"
         return (f"jog {mode}   step {app.step:g} {unit}   move path {app.path} (p)   "
                 f"speed {app.speed_pct:g} % (v)")
+
+    # -- the jog session (the interlock holds it; this only shows it) ---------------------
+    def session_words(self, session) -> str:
+        if session is None:
+            return "jog session: none (a jog asks)"
+        b = session.bounds
+        unit = "mm / deg" if (b.frame == "joint" or self.arm.is_scara) else "mm"
+        return (f"jog session: {session.left_s:.0f} s left, box +/-{b.half[0]:g} mm, "
+                f"step <= {b.step:g} {unit}, {b.branch or 'singular'}, "
+                f"{b.speed_cap_mm_s:g} mm/s")
+
+    def session_sketch(self, session) -> dict:
+        if session is None:
+            return {"envelope": None, "note": None}
+        b = session.bounds
+        box = (b.center[0] - b.half[0], b.center[0] + b.half[0],
+               b.center[1] - b.half[1], b.center[1] + b.half[1])
+        left = session.left_s
+        return {"envelope": box, "note": f"~ jog session {left:.0f} s"}
 
     def motion_words(self) -> str:
         app = self.app
@@ -186,10 +208,14 @@ class JogScreen(Screen):
         self.app.jog(axis, int(sign))
 
     def action_step(self, step: float) -> None:
+        session = self.app.session_view()
+        if session is not None and float(step) > session.bounds.step:
+            self.app.end_session(f"a larger step ({float(step):g}) was chosen")
         self.app.step = float(step)
         self.refresh_view()
 
     def action_joint_mode(self) -> None:
+        self.app.end_session("the jog frame was changed")
         self.app.joint_mode = not self.app.joint_mode
         self.app.refresh_view()
 
@@ -203,6 +229,7 @@ class JogScreen(Screen):
         table = self.query_one(BranchTable)
         other = table.other_branch()
         if other is not None:
+            self.app.end_session("the branch was changed")
             table.choose_other()
 
     def action_path(self) -> None:

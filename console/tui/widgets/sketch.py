@@ -41,10 +41,11 @@ PLANNED = "+"      # the active branch at the target (where a move would take th
 HATCH = "#"        # keep-out zones
 REACH = "."        # reach boundaries (max, and min when > 0)
 GROUND = "="       # the table (side view)
+ENVELOPE = "~"     # the jog session's envelope (top view)
 
 LEGEND_ITEMS = (f"{BASE} base", f"{ELBOW} joint", f"{TOOL} tool", f"{TARGET} target",
                 f"{PLANNED} chosen branch", f"{OTHER} other branch", f"{HATCH} keep-out",
-                f"{REACH} reach")
+                f"{REACH} reach", f"{ENVELOPE} jog envelope")
 LEGEND = "  ".join(LEGEND_ITEMS)
 
 
@@ -52,7 +53,7 @@ def legend_lines(width: int) -> list[str]:
     """The legend packed into lines of at most ``width`` characters.
 
     >>> legend_lines(40)
-    ['@ base  o joint  T tool  X target', '+ chosen branch  : other branch', '# keep-out  . reach']
+    ['@ base  o joint  T tool  X target', '+ chosen branch  : other branch', '# keep-out  . reach  ~ jog envelope']
     """
     lines: list[str] = []
     for item in LEGEND_ITEMS:
@@ -225,7 +226,9 @@ def render_top(arm: Arm, joints: Sequence[float], *, width: int, height: int,
                target: Sequence[float] | None = None,
                other_joints: Sequence[float] | None = None,
                planned_joints: Sequence[float] | None = None,
-               label: str | None = None) -> list[str]:
+               label: str | None = None,
+               envelope: Sequence[float] | None = None,
+               note: str | None = None) -> list[str]:
     """The top view alone (see :func:`render_sketch`)."""
     canvas = Canvas(width, height)
     reach = arm.max_reach_mm
@@ -242,6 +245,8 @@ def render_top(arm: Arm, joints: Sequence[float], *, width: int, height: int,
         draw_circle(canvas, view, arm.min_reach_mm, REACH)
     for zone in arm.zones:
         hatch_zone(canvas, view, zone)
+    if _finite(envelope):
+        draw_box(canvas, view, envelope, ENVELOPE)
     if _finite(other_joints):
         _draw_pose(canvas, view, arm, other_joints, OTHER, OTHER, None)
     if _finite(planned_joints):
@@ -255,7 +260,18 @@ def render_top(arm: Arm, joints: Sequence[float], *, width: int, height: int,
         canvas.put(*view.cell(*arm_points(arm, joints)[1]), TOOL)
     if label:
         canvas.text(0, 0, label)
+    if note:
+        canvas.text(0, height - 1, note)
     return canvas.lines()
+
+
+def draw_box(canvas: Canvas, view: View, box: Sequence[float], char: str) -> None:
+    """The outline of an axis-aligned box (x_min, x_max, y_min, y_max in mm); a box
+    smaller than a cell still shows as its centre cell."""
+    x0, x1, y0, y1 = box
+    for a, b in (((x0, y0), (x1, y0)), ((x1, y0), (x1, y1)), ((x1, y1), (x0, y1)),
+                 ((x0, y1), (x0, y0))):
+        draw_line(canvas, view, a, b, char)
 
 
 def _radial_span(zone: Zone) -> tuple[float, float]:
@@ -325,7 +341,9 @@ def render_sketch(arm: Arm, joints: Sequence[float], *, width: int, height: int,
                   target: Sequence[float] | None = None,
                   other_joints: Sequence[float] | None = None,
                   planned_joints: Sequence[float] | None = None,
-                  labels: bool = True) -> list[str]:
+                  labels: bool = True,
+                  envelope: Sequence[float] | None = None,
+                  note: str | None = None) -> list[str]:
     """The pose sketch as exactly ``height`` lines of exactly ``width`` characters.
 
     Args:
@@ -337,6 +355,9 @@ def render_sketch(arm: Arm, joints: Sequence[float], *, width: int, height: int,
         other_joints: the inactive IK branch, drawn dotted (``:``).
         planned_joints: the active branch at the target, drawn ``+``.
         labels: write "top" / "side" in the corners of the views.
+        envelope: the jog session's box (x_min, x_max, y_min, y_max, mm), outlined ``~``.
+        note: a line of words in the top view's bottom-left corner (the session's
+            time left).
 
     On a SCARA at least SIDE_MIN_WIDTH wide the right third is a side view for z
     (:func:`render_side`), after a ``|`` column. Tiny panels give blank lines.
@@ -349,13 +370,14 @@ def render_sketch(arm: Arm, joints: Sequence[float], *, width: int, height: int,
         top_w = width - side_w - 1
         top = render_top(arm, joints, width=top_w, height=height, target=target,
                          other_joints=other_joints, planned_joints=planned_joints,
-                         label="top" if labels else None)
+                         label="top" if labels else None, envelope=envelope, note=note)
         side = render_side(arm, joints, width=side_w, height=height, target=target,
                            label="side" if labels else None)
         return [t + "|" + s for t, s in zip(top, side)]
     return render_top(arm, joints, width=width, height=height, target=target,
                       other_joints=other_joints, planned_joints=planned_joints,
-                      label="top" if (labels and arm.is_scara) else None)
+                      label="top" if (labels and arm.is_scara) else None, envelope=envelope,
+                      note=note)
 
 
 class PoseSketch(Widget):
@@ -370,10 +392,17 @@ class PoseSketch(Widget):
         self.target: tuple[float, ...] | None = None
         self.other_joints: tuple[float, ...] | None = None
         self.planned_joints: tuple[float, ...] | None = None
+        self.envelope: tuple[float, ...] | None = None
+        self.note: str | None = None
         self.lines: list[str] = []
 
-    def show(self, joints, *, target=None, other_joints=None, planned_joints=None) -> None:
+    def show(self, joints, *, target=None, other_joints=None, planned_joints=None,
+             envelope=None, note=None) -> None:
         """Set what to draw; redraws only when something changed."""
+        if (envelope, note) != (self.envelope, self.note):
+            self.envelope = tuple(envelope) if envelope is not None else None
+            self.note = note
+            self.refresh()
         new = (tuple(joints) if joints is not None else None,
                tuple(target) if target is not None else None,
                tuple(other_joints) if other_joints is not None else None,
@@ -390,7 +419,8 @@ class PoseSketch(Widget):
         legend = legend_lines(width) if height >= 12 else []
         lines = render_sketch(self.arm, self.joints, width=width, height=height - len(legend),
                               target=self.target, other_joints=self.other_joints,
-                              planned_joints=self.planned_joints)
+                              planned_joints=self.planned_joints, envelope=self.envelope,
+                              note=self.note)
         lines += legend
         self.lines = lines
         return Text("\n".join(lines), no_wrap=True, overflow="crop")
