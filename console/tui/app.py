@@ -25,7 +25,9 @@ from textual.binding import Binding
 
 from benchjog.console.tui.messages import ControlDone, MotionDone, StateUpdated
 from benchjog.console.tui.screens.confirm import ConfirmMoveScreen
+from benchjog.console.tui.screens.help import HelpScreen
 from benchjog.console.tui.screens.jog import JogScreen
+from benchjog.console.tui.widgets.keys import HEIGHT_CLASSES, WIDTH_CLASSES
 from benchjog.drivers.interlock import Confirmer, Interlock, Proposal
 from benchjog.kinematics.model import Arm, Branch
 from benchjog.kinematics.planner import nearest_equivalent
@@ -103,6 +105,8 @@ class BenchjogApp(App):
     CSS_PATH = "benchjog.tcss"
     TITLE = "benchjog"
     ENABLE_COMMAND_PALETTE = False
+    HORIZONTAL_BREAKPOINTS = WIDTH_CLASSES   # compact below 120 x 36, "too small" below 80 x 24
+    VERTICAL_BREAKPOINTS = HEIGHT_CLASSES
 
     BINDINGS = [
         Binding("space", "stop", "stop", tooltip="Stop the arm at once (never asks)",
@@ -118,6 +122,10 @@ class BenchjogApp(App):
         Binding("t", "teach", "teach", tooltip="Teach points and edit programs", id="app.teach"),
         Binding("ctrl+q", "quit", "quit", tooltip="Stop any motion and quit", priority=True,
                 id="app.quit"),
+        Binding("f1", "help", "help", tooltip="List every key of this screen, what it does and "
+                "why a dimmed key cannot act now", id="app.help"),
+        Binding("question_mark", "help", "help", show=False, tooltip="List every key of this "
+                "screen (same as f1)", id="app.help-qm"),
     ]
 
     def __init__(self, arm: Arm, interlock: Interlock, *, points_path: Path | str | None = None,
@@ -518,6 +526,34 @@ class BenchjogApp(App):
         if action == "teach":
             return True if (self.has_teach() and self.busy is None) else None
         return True
+
+
+    # -- help: every key and why a dimmed one cannot act ----------------------------------
+    def action_help(self) -> None:
+        if not isinstance(self.screen, HelpScreen):
+            self.push_screen(HelpScreen(self.screen))
+
+    def why_dimmed(self, action: str, parameters: tuple = ()) -> str:
+        """Why one of the app's keys is dimmed now, in words (the help panel and a
+        refused key show it)."""
+        s = self.state
+        if action in ("drives", "home", "reset") and (s is None or not s.is_open):
+            return "not connected: r connects" if action != "reset" else "not connected yet"
+        if action == "drives":
+            return "latched: clear it with r first"
+        if action == "home":
+            if self.busy is not None:
+                return f"busy with {self.busy.words(self.arm)}"
+            if self.latched():
+                return "latched: clear it with r first"
+            return "drives off: e switches them on"
+        if action == "reset":
+            return "nothing to reset: no e-stop, fault or lost link latched"
+        if action == "teach":
+            if not self.has_teach():
+                return "the teach screen is not installed"
+            return f"busy with {self.busy.words(self.arm)}" if self.busy else "not available now"
+        return "not available now"
 
 
 def make_app(arm: Arm, interlock: Interlock, *, points_path: Path | str | None = None,

@@ -34,6 +34,9 @@ from benchjog.console.cell.program_runs import plan_program, report_lines, resul
 from benchjog.console.cell.points import BASE, PointBook, PointError
 from benchjog.console.cell.programs import DwellStep, MoveStep, OutputStep, Program, ProgramError
 from benchjog.console.cell.safe_files import FileError, FileLock
+from benchjog.console.tui.widgets.joint_readout import readout_rows
+from benchjog.console.tui.widgets.keys import DimmedKeyHints, KeyFooter, TooSmall
+from benchjog.console.tui.widgets.sketch import PoseSketch
 from benchjog.drivers.interlock import Confirmer, Interlock
 from benchjog.kinematics.model import Arm
 
@@ -120,21 +123,18 @@ class YesNoScreen(ModalScreen[bool]):
         self.dismiss(bool(yes))
 
 
-class TeachScreen(Screen):
+class TeachScreen(DimmedKeyHints, Screen):
     """Points, frames and the program. Built by the app's ``t`` key."""
 
-    DEFAULT_CSS = """
-    TeachScreen #teach-tables { height: 1fr; }
-    TeachScreen #points-box, TeachScreen #steps-box { width: 1fr; }
-    TeachScreen DataTable { height: 1fr; }
-    TeachScreen #teach-report-box { height: 12; border-top: solid $accent; }
-    TeachScreen #teach-status { height: 2; }
-    """
     AUTO_FOCUS = "#points-table"
+    HELP_NAME = "teach screen"
+    # the footer's keys (binding ids): the most used; f1 lists every key
+    FOOTER_KEYS = ("teach.stop", "teach.teach", "teach.goto", "teach.add-step", "teach.check",
+                   "teach.run", "teach.pause", "teach.back", "app.help")
 
     BINDINGS = [
         Binding("space", "stop", "stop", priority=True, tooltip="Stop the arm at once (never asks)",
-                id="teach.stop"),
+                id="teach.stop", key_display="spc"),
         Binding("a", "teach", "teach", tooltip="Teach the current pose as a new named point",
                 id="teach.teach"),
         Binding("u", "update", "update", tooltip="Teach the selected point again at the current "
@@ -166,7 +166,7 @@ class TeachScreen(Screen):
                 id="teach.check"),
         Binding("ctrl+r", "run", "run", tooltip="Run the whole program (shows the plan, asks once)",
                 id="teach.run"),
-        Binding("p", "pause", "pause/resume", tooltip="Pause the running program before its next "
+        Binding("p", "pause", "pause", tooltip="Pause the running program before its next "
                 "step, or resume it", id="teach.pause"),
         Binding("escape", "back", "back", tooltip="Back to the jog screen", id="teach.back"),
     ]
@@ -190,6 +190,7 @@ class TeachScreen(Screen):
         self.program: Program | None = None
         self.program_lock = FileLock(self.program_path)
         self.read_only = False
+        self.read_only_reason = ""
         self.busy: str | None = None       # what is moving, for the footer and the status
         self.paused = False
         self.new_path = "joint"
@@ -201,8 +202,12 @@ class TeachScreen(Screen):
     # --- life cycle ------------------------------------------------------------------
 
     def compose(self) -> ComposeResult:
+        yield TooSmall()
         yield Static(id="teach-alarm")
         yield Static(id="teach-files")
+        with Horizontal(id="teach-live"):
+            yield Static(id="teach-pose")
+            yield PoseSketch(self.arm, id="teach-sketch")
         with Horizontal(id="teach-tables"):
             with Vertical(id="points-box"):
                 yield Label(Text("points", style="bold"))
@@ -213,7 +218,7 @@ class TeachScreen(Screen):
         yield Static(id="teach-status")
         with VerticalScroll(id="teach-report-box"):
             yield Static(id="teach-report")
-        yield Footer()
+        yield KeyFooter(compact=True)
 
     def on_mount(self) -> None:
         points = self.query_one("#points-table", DataTable)
@@ -231,6 +236,7 @@ class TeachScreen(Screen):
             self.book = PointBook.open(self.points_path, self.arm)
         except FileError as exc:
             self.read_only = True
+            self.read_only_reason = one_line(exc)
             self.set_status(f"read only: {one_line(exc)}", error=True)
             try:
                 self.book = PointBook.load(self.points_path, self.arm) \
@@ -242,6 +248,7 @@ class TeachScreen(Screen):
             self.program_lock.acquire()
         except FileError as exc:
             self.read_only = True
+            self.read_only_reason = self.read_only_reason or one_line(exc)
             self.set_status(f"read only: {one_line(exc)}", error=True)
         try:
             if self.program_path.exists():
@@ -289,6 +296,7 @@ class TeachScreen(Screen):
             alarm = self.query_one("#teach-alarm", Static)
         except NoMatches:
             return  # not composed yet, or being taken down
+        self._show_pose(state)
         latched = getattr(state, "latched", None) if state is not None else None
         if state is not None and not state.is_open:
             latched = "not connected"
@@ -298,6 +306,28 @@ class TeachScreen(Screen):
             alarm.display = True
         else:
             alarm.display = False
+
+    def _show_pose(self, state) -> None:
+        """The live pose (measured) on one line and in the small sketch."""
+        joints = tuple(state.joints) if state is not None else None
+        try:
+            pose = self.query_one("#teach-pose", Static)
+            sketch = self.query_one("#teach-sketch", PoseSketch)
+        except NoMatches:
+            return
+        if joints is None:
+            pose.update("pose: unknown (not connected)")
+            return
+        rows = readout_rows(self.arm, joints, None)
+        n_tool = 4 if self.arm.is_scara else 3
+        tool = " ".join(f"{name.split()[-2]} {actual}" for name, _t, actual, _e in rows[:n_tool])
+        each = " ".join(f"{name.rsplit(' ', 1)[0]} {actual}"
+                        for name, _t, actual, _e in rows[n_tool:])
+        words = f"now {tool} | {each}"
+        if words != getattr(self, "_pose_words", None):
+            self._pose_words = words
+            pose.update(words)
+            sketch.show(joints)
 
     def refresh_all(self) -> None:
         files = (f"points: {self.points_path}   program: {self.program_path}   new steps: "
@@ -669,6 +699,25 @@ class TeachScreen(Screen):
         if self.busy:
             return
         self.dismiss()
+
+    # --- help ----------------------------------------------------------------------------
+
+    def show_refusal(self, words: str) -> None:
+        self.set_status(words, error=True)
+
+    def why_dimmed(self, action: str, parameters: tuple = ()) -> str:
+        """Why a teach-screen key is dimmed now, in words."""
+        if action in self.EDITS and self.read_only:
+            return f"read only: {self.read_only_reason or 'another console holds the files'}"
+        if self.busy and action != "pause":
+            return f"busy: {self.busy} (space stops, p pauses)"
+        if action in ("update", "rename", "delete_point", "goto", "add_step"):
+            return "no point selected: a teaches one"
+        if action in ("move_step", "delete_step"):
+            return "no step selected: i adds one"
+        if action == "pause":
+            return "nothing is running"
+        return "not available now"
 
 
 __all__ = ["TeachScreen", "AskScreen", "YesNoScreen"]

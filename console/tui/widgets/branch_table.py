@@ -76,7 +76,11 @@ class BranchTable(Static):
         table = Table(box=None, expand=True, show_edge=False, pad_edge=False)
         for i, head in enumerate(rows[0]):
             style = "bold reverse" if head.startswith(ACTIVE_MARK) else "bold"
-            table.add_column(Text(head, style=style), ratio=1 if i == 0 else 2)
+            if i == 0:
+                table.add_column(Text(head, style=style), no_wrap=True,
+                                 min_width=max(len(r[0]) for r in rows))
+            else:
+                table.add_column(Text(head, style=style), ratio=1)
         for row in rows[1:]:
             cells = []
             for i, cell in enumerate(row):

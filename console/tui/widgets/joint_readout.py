@@ -59,6 +59,8 @@ def readout_rows(arm: Arm, actual: Sequence[float] | None, target: Sequence[floa
 def _num(value: float | None, signed: bool = False) -> str:
     if value is None:
         return "-"
+    if round(value, 2) == 0:
+        value = 0.0   # never "-0.00"
     return f"{value:+.2f}" if signed else f"{value:.2f}"
 
 
@@ -78,7 +80,8 @@ class JointReadout(Static):
             return
         self.rows = rows
         table = Table(box=None, expand=True, show_edge=False, pad_edge=False)
-        table.add_column("", ratio=3)
+        table.add_column("", ratio=3, no_wrap=True, overflow="ellipsis",
+                         min_width=max(len(r[0]) for r in rows))
         for head in ("target", "actual", "error"):
             table.add_column(head, justify="right", ratio=2)
         n_tool = len(tool_fields(self.arm))

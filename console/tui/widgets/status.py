@@ -95,16 +95,41 @@ def link_words(state, driver_name: str, error: str | None, polled_age_s: float |
             + (f"\nerror: {error}" if error else ""))
 
 
+def link_short(state, driver_name: str, error: str | None) -> str:
+    """The link state in one line, for the compact layout (80 x 24)."""
+    if state is None:
+        return f"{driver_name}: {error or 'waiting for the first state'}"
+    latched = state.latched or ""
+    return (f"{driver_name} {getattr(state.mode, 'value', state.mode)}  "
+            f"drives {'on' if state.enabled else 'off'}  "
+            f"{'homed' if state.homed else 'NOT HOMED'}  q{state.queued}"
+            + (f"  latched: {latched}" if latched else "") + (f"  error: {error}" if error else ""))
+
+
+def compact_screen(widget: Widget) -> bool:
+    """True when the widget's screen uses the compact layout (below 120 x 36)."""
+    try:
+        screen = widget.screen
+    except Exception:  # noqa: BLE001 - not mounted
+        return False
+    return not (screen.has_class("-wide") and screen.has_class("-tall"))
+
+
 class LinkStatus(Static):
+    """The link panel: several lines in the wide layout, one in the compact one."""
+
     def __init__(self, *, id: str | None = None):
         super().__init__(id=id)
         self.border_title = "link"
         self.words = ""
+        self.shown: tuple = ()
 
-    def show(self, words: str) -> None:
-        if words != self.words:
-            self.words = words
-            self.update(words)
+    def show(self, words: str, short: str | None = None) -> None:
+        self.words = words
+        text = short if (short is not None and compact_screen(self)) else words
+        if text != self.shown:
+            self.shown = text
+            self.update(text)
 
 
 class WarningsPanel(Static):
@@ -139,8 +164,13 @@ class EventLog(Widget):
         self.border_title = "events"
         self.entries: deque[str] = deque(maxlen=keep)
 
+    @staticmethod
+    def stamp() -> str:
+        """The time of day an event is logged at (tests freeze it)."""
+        return time.strftime("%H:%M:%S")
+
     def add(self, kind: str, detail: str) -> None:
-        stamp = time.strftime("%H:%M:%S")
+        stamp = self.stamp()
         self.entries.append(f"{stamp} {kind:<9} {detail}")
         self.refresh()
 
