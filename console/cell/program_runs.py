@@ -54,6 +54,13 @@ class ProgramReport:
     end_joints: tuple[float, ...]
     steps: list[StepReport]
     warnings: list[str] = field(default_factory=list)   # not tied to one step (the points file)
+    start_words: str = "the home pose"   # where the plan starts, in words
+
+    def start_line(self) -> str:
+        """Which pose the plan starts from, with its joint values."""
+        joints = ", ".join(f"{j.name} {j.to_display(v):.2f} {j.unit}"
+                           for j, v in zip(self.arm.joints, self.start_joints))
+        return f"planned from {self.start_words} ({joints})"
 
     @property
     def problems(self) -> list[str]:
@@ -103,11 +110,14 @@ def _step_target(book: PointBook, step: MoveStep) -> tuple[Any, tuple[float, ...
 
 def plan_program(arm: Arm, program: Program, book: PointBook,
                  start_joints: tuple[float, ...] | None = None,
-                 gate: Interlock | None = None) -> ProgramReport:
+                 gate: Interlock | None = None, start_words: str | None = None) -> ProgramReport:
     """Plan every step (no motion). ``start_joints`` default: the arm's home pose.
     ``gate``: the interlock whose static checks to apply; a simulated one is opened
-    (and closed) when none is given."""
+    (and closed) when none is given. ``start_words`` names the start pose in the
+    report (default: "the home pose", or "the given joints")."""
     start = tuple(start_joints) if start_joints is not None else arm.home_joints
+    if start_words is None:
+        start_words = "the home pose" if start_joints is None else "the given joints"
     own_gate = gate is None
     if own_gate:
         gate = Interlock.open(arm, "sim", journal=False)
@@ -146,7 +156,8 @@ def plan_program(arm: Arm, program: Program, book: PointBook,
                 begin = report.summary.start_joints if report.summary is not None else None
                 verdict = gate.check_actions([report.action], begin)
                 report.problems += [r for r in verdict.reasons if r not in report.problems]
-        return ProgramReport(arm, program, start, here, reports, list(book.warnings))
+        return ProgramReport(arm, program, start, here, reports, list(book.warnings),
+                             start_words=start_words)
     finally:
         if own_gate:
             gate.close()
@@ -168,7 +179,8 @@ def report_lines(report: ProgramReport) -> list[str]:
     """The dry run for people: one block per step, then the totals."""
     arm, program = report.arm, report.program
     where = f" ({program.path})" if program.path else ""
-    out = [f"program {program.name!r}{where}: {len(program.steps)} steps on arm {arm.name}"]
+    out = [f"program {program.name!r}{where}: {len(program.steps)} steps on arm {arm.name}",
+           report.start_line()]
     out += [f"warning: {w}" for w in report.warnings]
     for s in report.steps:
         head = f"step {s.number:>2}: {s.step.describe()}"
@@ -257,6 +269,7 @@ def report_json(report: ProgramReport) -> dict[str, Any]:
         "arm": arm.name,
         "ok": report.ok,
         "start_joints": [j.to_display(v) for j, v in zip(arm.joints, report.start_joints)],
+        "start": report.start_words,
         "steps": steps,
         "total": {
             "duration_s": report.duration_s,
@@ -304,7 +317,8 @@ def run_program(gate: Interlock, arm: Arm, program: Program, book: PointBook,
                 confirmer: Confirmer) -> tuple[ProgramReport, RunResult]:
     """Plan from the arm's current joints, propose once, execute after one yes.
     Blocks until done: call it from a worker thread in the UI."""
-    report = plan_program(arm, program, book, gate.state().joints, gate=gate)
+    report = plan_program(arm, program, book, gate.state().joints, gate=gate,
+                          start_words="the arm's current pose")
     if not report.ok:
         detail = "refused: " + ("; ".join(report.problems) or "the program has no steps")
         first = next((s.number - 1 for s in report.steps if s.problems), None)

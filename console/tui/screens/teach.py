@@ -37,10 +37,15 @@ from benchjog.console.cell.safe_files import FileError, FileLock
 from benchjog.console.tui.widgets.joint_readout import readout_rows
 from benchjog.console.tui.widgets.keys import DimmedKeyHints, KeyFooter, TooSmall
 from benchjog.console.tui.widgets.sketch import PoseSketch
-from benchjog.drivers.interlock import Confirmer, Interlock
+from benchjog.drivers.interlock import START_TOL_MM, START_TOL_RAD, Confirmer, Interlock
 from benchjog.kinematics.model import Arm
 
 SPEEDS = (100.0, 50.0, 25.0, 10.0)
+# the commanded end of the last motion is the pose taught while the measured pose is
+# this close to it (a following error); further away, the arm is elsewhere and the
+# measured pose is taught (deg for revolute joints, mm for the quill)
+FOLLOW_MAX_DEG = 2.0
+FOLLOW_MAX_MM = 2.0
 
 
 def one_line(exc: BaseException) -> str:
@@ -123,6 +128,67 @@ class YesNoScreen(ModalScreen[bool]):
         self.dismiss(bool(yes))
 
 
+class RunClock:
+    """Progress of a running program estimated from its plan: the step durations and
+    the time since the yes, with paused time left out. The interlock reports no
+    progress of its own; this is the console's estimate and says so ("about")."""
+
+    def __init__(self, clock=None):
+        import time
+        self.clock = clock or time.monotonic
+        self.durations_s: list[float] = []
+        self.started_at: float | None = None
+        self.held_at: float | None = None
+        self.held_s = 0.0
+
+    @property
+    def started(self) -> bool:
+        return self.started_at is not None
+
+    def start(self, durations_s: list[float]) -> None:
+        self.durations_s = list(durations_s)
+        self.started_at = self.clock()
+
+    def hold(self, on: bool) -> None:
+        now = self.clock()
+        if on and self.held_at is None:
+            self.held_at = now
+        elif not on and self.held_at is not None:
+            self.held_s += now - self.held_at
+            self.held_at = None
+
+    def progress(self) -> tuple[int, int, float]:
+        """(step number from 1, steps, seconds left)."""
+        total = len(self.durations_s)
+        if self.started_at is None or not total:
+            return 0, total, 0.0
+        now = self.held_at if self.held_at is not None else self.clock()
+        elapsed = max(0.0, now - self.started_at - self.held_s)
+        done = 0.0
+        for n, d in enumerate(self.durations_s, 1):
+            done += d
+            if elapsed < done:
+                return n, total, max(0.0, sum(self.durations_s) - elapsed)
+        return total, total, 0.0
+
+    def watching(self, confirmer: Confirmer, screen: "TeachScreen") -> Confirmer:
+        """The confirmer, passed through: a yes starts this clock (on the UI thread,
+        by a message) with the steps of the plan that was confirmed."""
+        clock = self
+
+        class _Watch(Confirmer):
+            def confirm(self, proposal) -> bool:
+                yes = confirmer.confirm(proposal)
+                if yes:
+                    durations = [a.summary.duration_s if hasattr(a, "summary") else
+                                 getattr(a, "seconds", 0.0) for a in proposal.actions]
+                    screen.post_message(TeachScreen.RunStarted(durations,
+                                                               proposal.lines(screen.arm)))
+                return yes
+
+        return _Watch()
+
+
 class TeachScreen(DimmedKeyHints, Screen):
     """Points, frames and the program. Built by the app's ``t`` key."""
 
@@ -172,12 +238,20 @@ class TeachScreen(DimmedKeyHints, Screen):
     ]
 
     @dataclass
+    class RunStarted(Message):
+        """The program was confirmed and starts (posted from the worker thread)."""
+
+        durations_s: list[float]
+        lines: list[str]
+
+    @dataclass
     class MotionFinished(Message):
         """A go-to or a program run ended (posted from the worker thread)."""
 
         words: str
         outcome: str
         detail: str
+        end_joints: tuple | None = None   # the commanded end when it completed
 
     def __init__(self, interlock: Interlock, arm: Arm, points_path: Path | str | None = None,
                  program_path: Path | str | None = None):
@@ -198,6 +272,7 @@ class TeachScreen(DimmedKeyHints, Screen):
         self.frame_origin: tuple[str, tuple[float, ...]] | None = None  # a frame half taught
         self.status = ""
         self.report_text: list[str] = []
+        self.run_clock: RunClock | None = None
 
     # --- life cycle ------------------------------------------------------------------
 
@@ -297,6 +372,8 @@ class TeachScreen(DimmedKeyHints, Screen):
         except NoMatches:
             return  # not composed yet, or being taken down
         self._show_pose(state)
+        if self.run_clock is not None and self.run_clock.started:
+            self.query_one("#teach-files", Static).update(self.files_words())
         latched = getattr(state, "latched", None) if state is not None else None
         if state is not None and not state.is_open:
             latched = "not connected"
@@ -329,14 +406,20 @@ class TeachScreen(DimmedKeyHints, Screen):
             pose.update(words)
             sketch.show(joints)
 
-    def refresh_all(self) -> None:
+    def files_words(self) -> str:
         files = (f"points: {self.points_path}   program: {self.program_path}   new steps: "
                  f"{self.new_path} path, {self.new_speed:g} %")
         if self.read_only:
             files += "   (read only)"
         if self.busy:
             files += f"   in progress: {self.busy}" + (" (paused)" if self.paused else "")
-        self.query_one("#teach-files", Static).update(files)
+            progress = self.progress_words()
+            if progress:
+                files += f": {progress}"
+        return files
+
+    def refresh_all(self) -> None:
+        self.query_one("#teach-files", Static).update(self.files_words())
         table = self.query_one("#points-table", DataTable)
         row = table.cursor_row
         table.clear()
@@ -417,6 +500,32 @@ class TeachScreen(DimmedKeyHints, Screen):
             self.set_status(f"cannot read the arm's position: {one_line(exc)}", error=True)
             return None
 
+    def _teach_joints(self) -> tuple[tuple[float, ...] | None, str]:
+        """The pose to teach and a note for the status: the commanded pose the user
+        jogged or moved to (not the measured one, which carries the following error),
+        and the measured difference when it exceeds the interlock's position tolerance
+        (START_TOL_RAD / START_TOL_MM). Without a commanded pose near the arm (after a
+        stop, a homing, a fault), the measured pose, said so."""
+        measured = self._current_joints()
+        if measured is None:
+            return None, ""
+        commanded = getattr(self.app, "last_end_joints", None)
+        if commanded is None or len(commanded) != len(measured):
+            return measured, "measured pose (no commanded pose to use)"
+        over: list[str] = []
+        for joint, c, m in zip(self.arm.joints, commanded, measured):
+            gap = m - c
+            far = FOLLOW_MAX_DEG if joint.is_revolute else FOLLOW_MAX_MM
+            if abs(joint.to_display(c) - joint.to_display(m)) > far:
+                return measured, "measured pose (the arm is not at the last commanded pose)"
+            tol = START_TOL_RAD if joint.is_revolute else START_TOL_MM
+            if abs(gap) > tol:
+                shown = joint.to_display(m) - joint.to_display(c)
+                over.append(f"{joint.name} {shown:+.2f} {joint.unit}")
+        if over:
+            return tuple(commanded), ("commanded pose; measured differs by " + ", ".join(over))
+        return tuple(commanded), "commanded pose"
+
     # --- points ------------------------------------------------------------------------
 
     def action_teach(self) -> None:
@@ -433,19 +542,21 @@ class TeachScreen(DimmedKeyHints, Screen):
     def _teach_answered(self, values: dict | None) -> None:
         if not values:
             return
-        joints = self._current_joints()
+        joints, how = self._teach_joints()
         if joints is None:
             return
-        self._edit(f"taught {values['name'].strip()}",
+        self._edit(f"taught {values['name'].strip()} at the {how}",
                    lambda: self.book.teach(values["name"], joints, frame=values["frame"],
                                            note=values["note"]) and None, points=True)
 
     def action_update(self) -> None:
         name = self.selected_point()
-        joints = self._current_joints()
-        if name is None or joints is None:
+        if name is None:
             return
-        self._edit(f"{name} taught again at the current pose",
+        joints, how = self._teach_joints()
+        if joints is None:
+            return
+        self._edit(f"{name} taught again at the {how}",
                    lambda: self.book.update(name, joints) and None, points=True)
 
     def action_rename(self) -> None:
@@ -603,8 +714,14 @@ class TeachScreen(DimmedKeyHints, Screen):
     # --- dry run -----------------------------------------------------------------------
 
     def dry_run(self) -> list[str]:
-        """The dry-run report of the program as it is now (from the home pose)."""
-        report = plan_program(self.arm, self.program, self.book, gate=self.interlock)
+        """The dry-run report of the program as it is now, planned from the arm's
+        current pose: where a run started now would start (a dead link: from home,
+        and the report says so)."""
+        joints = self._current_joints()
+        words = "the arm's current pose" if joints is not None else \
+            "the home pose (the arm's pose could not be read)"
+        report = plan_program(self.arm, self.program, self.book, joints, gate=self.interlock,
+                              start_words=words)
         self.report_text = report_lines(report)
         return self.report_text
 
@@ -614,7 +731,12 @@ class TeachScreen(DimmedKeyHints, Screen):
         except Exception as exc:  # noqa: BLE001 - shown, never a crash
             self.set_status(f"dry run failed: {one_line(exc)}", error=True)
             return
-        self.set_status(lines[-1] if lines else "")
+        summary = next((line for line in lines if line.startswith("problems:")), "")
+        first = lines[lines.index(summary) + 1].strip() if summary.startswith("problems: ") \
+            and summary != "problems: none" and lines.index(summary) + 1 < len(lines) else ""
+        self.set_status(f"dry run from the current pose: {summary}"
+                        + (f" (first: {first})" if first and summary[10:].isdigit() else ""),
+                        error=summary != "problems: none")
         self.refresh_all()
 
     # --- motion (through the gate, in a thread worker) ------------------------------------
@@ -640,7 +762,9 @@ class TeachScreen(DimmedKeyHints, Screen):
             proposal = self.interlock.propose_move(target, branch=branch, path=self.new_path,
                                                    speed_pct=self.new_speed)
             result = self.interlock.execute(proposal, self._confirmer())
-            self.post_message(self.MotionFinished(words, result.outcome, result.detail))
+            ends = [p.segments[-1].joints for p in proposal.plans if p.segments]
+            end = tuple(ends[-1]) if ends and result.completed else None
+            self.post_message(self.MotionFinished(words, result.outcome, result.detail, end))
         except Exception as exc:  # noqa: BLE001 - one line on the screen
             self.post_message(self.MotionFinished(words, "error", one_line(exc)))
 
@@ -652,6 +776,9 @@ class TeachScreen(DimmedKeyHints, Screen):
             return
         self.busy = f"program {self.program.name}"
         self.paused = False
+        self.report_text = []            # an old report never stands for this run
+        self.run_clock = RunClock()
+        self.set_status(f"program {self.program.name}: planning from the current pose")
         self.refresh_all()
         self._run_worker()
 
@@ -660,21 +787,46 @@ class TeachScreen(DimmedKeyHints, Screen):
         words = f"program {self.program.name}"
         try:
             report, result = run_program(self.interlock, self.arm, self.program, self.book,
-                                         self._confirmer())
+                                         self.run_clock.watching(self._confirmer(), self))
             self.report_text = report_lines(report)
+            end = tuple(report.end_joints) if result.completed else None
             self.post_message(self.MotionFinished(words, result.outcome,
-                                                  result_words(report, result)))
+                                                  result_words(report, result), end))
         except Exception as exc:  # noqa: BLE001
             self.post_message(self.MotionFinished(words, "error", one_line(exc)))
 
     def on_teach_screen_motion_finished(self, message: "TeachScreen.MotionFinished") -> None:
         self.busy = None
+        self.run_clock = None
+        if message.outcome != "cancelled" and hasattr(self.app, "last_end_joints"):
+            # where the arm was sent: teaching and jogging start from it (none when it
+            # did not arrive)
+            self.app.last_end_joints = message.end_joints
         if self.paused:
             self.interlock.resume()
             self.paused = False
         self.set_status(f"{message.words}: {message.detail}",
                         error=message.outcome not in ("done", "cancelled"))
+        log = getattr(getattr(self.app, "jog_screen", None), "log_event", None)
+        if log is not None:   # the jog screen's events panel keeps each result
+            log(message.outcome, f"{message.words}: {message.detail}")
         self.refresh_all()
+
+    def on_teach_screen_run_started(self, message: "TeachScreen.RunStarted") -> None:
+        if self.run_clock is not None:
+            self.run_clock.start(message.durations_s)
+            self.report_text = message.lines
+            self.refresh_all()
+
+    def progress_words(self) -> str:
+        """While a program runs: step n of N and the time left, estimated from the
+        plan's step durations and the time since the yes (pauses not counted)."""
+        clock = self.run_clock
+        if clock is None or not clock.started:
+            return ""
+        n, total, left = clock.progress()
+        return (f"step {n} of {total}, about {left:.1f} s left"
+                + (" (paused)" if self.paused else ""))
 
     def action_stop(self) -> None:
         self.interlock.stop()
@@ -685,6 +837,8 @@ class TeachScreen(DimmedKeyHints, Screen):
     def action_pause(self) -> None:
         if not self.busy:
             return
+        if self.run_clock is not None:
+            self.run_clock.hold(not self.paused)
         if self.paused:
             self.interlock.resume()
             self.paused = False
