@@ -199,3 +199,64 @@ async def test_teaching_stores_the_commanded_pose(tmp_path):
             differs = any(abs(m - c) > START_TOL_RAD for m, c in zip(measured, commanded))
             assert ("measured differs by" in teach.status) == differs
             assert "commanded pose" in teach.status
+
+
+# --- programs and points files name their arm ------------------------------------------
+
+SCARA_DEMO = ROOT / "examples" / "scara-cell" / "program.toml"
+
+
+def test_check_uses_the_arm_the_program_names(monkeypatch, capsys):
+    code, out, err = cli(monkeypatch, capsys, "check", str(SCARA_DEMO))
+    assert code == 0, err
+    assert "on arm scara-bench" in out
+
+
+@pytest.mark.parametrize("where", ["before", "after"])
+def test_a_mismatched_arm_is_one_line_naming_the_wanted_arm(monkeypatch, capsys, where):
+    argv = (["--arm", "planar-bench", "check", str(SCARA_DEMO)] if where == "before" else
+            ["check", str(SCARA_DEMO), "--arm", "planar-bench"])
+    code, out, err = cli(monkeypatch, capsys, *argv)
+    assert code == 2 and out == ""
+    assert err.count("\n") == 1 and "'scara-bench'" in err and "Traceback" not in err
+
+
+def test_points_file_names_the_arm_when_the_program_does_not(tmp_path, monkeypatch, capsys):
+    # an older program without arm = ...: the points file's [file] arm decides
+    text = SCARA_DEMO.read_text().replace('arm = "scara-bench"\n', "")
+    (tmp_path / "program.toml").write_text(text)
+    (tmp_path / "points.toml").write_text((SCARA_DEMO.parent / "points.toml").read_text())
+    code, out, err = cli(monkeypatch, capsys, "check", str(tmp_path / "program.toml"))
+    assert code == 0, err
+    code, out, err = cli(monkeypatch, capsys, "check", str(tmp_path / "program.toml"),
+                         "--arm", "planar-bench")
+    assert code == 2 and "points.toml" in err and "'scara-bench'" in err
+
+
+def test_program_and_points_naming_different_arms_is_an_error(tmp_path, monkeypatch, capsys):
+    text = SCARA_DEMO.read_text().replace('arm = "scara-bench"', 'arm = "planar-bench"')
+    (tmp_path / "program.toml").write_text(text)
+    (tmp_path / "points.toml").write_text((SCARA_DEMO.parent / "points.toml").read_text())
+    code, out, err = cli(monkeypatch, capsys, "check", str(tmp_path / "program.toml"))
+    assert code == 2 and "'scara-bench'" in err and "'planar-bench'" in err
+
+
+def test_an_arm_neither_built_in_nor_a_file_says_to_give_it(tmp_path, monkeypatch, capsys):
+    text = SCARA_DEMO.read_text().replace('arm = "scara-bench"', 'arm = "cell-7-arm"')
+    (tmp_path / "program.toml").write_text(text)
+    points = (SCARA_DEMO.parent / "points.toml").read_text().replace('"scara-bench"',
+                                                                     '"cell-7-arm"')
+    (tmp_path / "points.toml").write_text(points)
+    code, out, err = cli(monkeypatch, capsys, "check", str(tmp_path / "program.toml"))
+    assert code == 2 and "'cell-7-arm'" in err and "--arm" in err
+
+
+def test_a_program_the_console_starts_names_its_arm(tmp_path):
+    from benchjog.console.cell.programs import Program, arm_for_files
+    from benchjog.console.cell.armfile import load_arm
+
+    program = Program("new", "points.toml", path=tmp_path / "program.toml", arm="scara-bench")
+    program.save()
+    assert Program.load(tmp_path / "program.toml").arm == "scara-bench"
+    assert arm_for_files(None, tmp_path / "program.toml", None, load_arm).name == "scara-bench"
+    assert arm_for_files(None, tmp_path / "none.toml", None, load_arm).name == "planar-bench"

@@ -302,6 +302,17 @@ def load_program(path: str | Path, arm: Arm) -> tuple[Program, PointBook]:
     return program, book
 
 
+def load_program_for(path: str | Path, arm_option: str | None) -> tuple[Arm, Program, PointBook]:
+    """The arm (``--arm``, else the one the files name), the program and its points.
+    Raises FileError (one line) for bad files and for a file written for another arm."""
+    from benchjog.console.cell.armfile import load_arm
+    from benchjog.console.cell.programs import arm_for_program
+    program = Program.load(path)
+    arm = arm_for_program(program, arm_option, load_arm)
+    book = PointBook.load(program.points_path, arm)
+    return arm, program, book
+
+
 def program_request(program: Program) -> str:
     name = program.path.name if program.path else program.name
     return f"program {name} ({program.name}, {len(program.steps)} steps)"

@@ -19,7 +19,7 @@ import sys
 
 from benchjog.console import exit_codes
 from benchjog.console.cell.armfile import load_arm
-from benchjog.console.cell.program_runs import (load_program, plan_program, report_json, report_lines,
+from benchjog.console.cell.program_runs import (load_program, load_program_for, plan_program, report_json, report_lines,
                                                 result_words, run_program)
 from benchjog.console.cli.common import (add_arm_option, add_journal_option, add_port_options, drives_off,
                                          exit_code_of, open_gate, print_json, run_stoppable)
@@ -58,8 +58,8 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def cmd_check(args: argparse.Namespace) -> int:
-    arm = load_arm(args.arm)
-    program, book = load_program(args.program, arm)  # bad files: one line, exit 2 (errors.py)
+    # the arm: --arm, else the one the files name; bad files: one line, exit 2 (errors.py)
+    arm, program, book = load_program_for(args.program, args.arm)
     start, words = start_pose(arm, book, args.start)
     report = plan_program(arm, program, book, start, start_words=words)
     if args.json:
@@ -96,8 +96,7 @@ def start_pose(arm, book, text: str) -> tuple[tuple[float, ...] | None, str]:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    arm = load_arm(args.arm)
-    program, book = load_program(args.program, arm)  # bad files: one line, exit 2 (errors.py)
+    arm, program, book = load_program_for(args.program, args.arm)
     confirmer = PromptConfirmer(arm, question="Run this program?")
     with open_gate(arm, args) as gate:
         gate.enable()

@@ -568,8 +568,11 @@ def run_console(args) -> int:
     controller over serial when ``--port`` is given."""
     from benchjog.console.cell.armfile import load_arm
     from benchjog.console.cell.link import open_gate
+    from benchjog.console.cell.programs import arm_for_files
 
-    arm = load_arm(args.arm)
+    # --arm, else the arm the program or points file names (a mismatch: one line, exit 2)
+    arm = arm_for_files(args.arm, getattr(args, "program", None), getattr(args, "points", None),
+                        load_arm)
     gate = open_gate(arm, args, require_link=False)  # not connected: shown, r retries
     try:
         make_app(arm, gate, points_path=getattr(args, "points", None),

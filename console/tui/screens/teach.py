@@ -334,7 +334,8 @@ class TeachScreen(DimmedKeyHints, Screen):
                                     f"this screen edits {self.points_path}", error=True)
             else:
                 rel = os.path.relpath(self.points_path.resolve(), self.program_path.resolve().parent)
-                self.program = Program(self.program_path.stem, rel, path=self.program_path)
+                self.program = Program(self.program_path.stem, rel, path=self.program_path,
+                                       arm=self.arm.name)
         except FileError as exc:
             self.read_only = True
             self.program = Program(self.program_path.stem, str(self.points_path),
