@@ -221,3 +221,19 @@ async def test_target_field_enter_previews_escape_clears_and_digits_stay_in_it()
             await pilot.pause(0.1)
             assert app.target is None
             assert not moves(gate)
+
+
+async def test_a_fault_names_its_cause_and_how_to_clear_it():
+    # the controller's fault codes of PROTOCOL.md (EVT FAULT code=...), injected into the
+    # simulated arm; the banner names the cause and the way out, not just "FAULT"
+    from benchjog.console.tui.widgets.status import Banner
+    arm = builtin_arm("planar-bench")
+    with Interlock.open(arm, "sim", journal=False) as gate:
+        app = make_app(arm, gate)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await until(pilot, lambda: app.state is not None)
+            gate.sim.inject_fault("LIMIT_SWITCH", 2)
+            banner = app.jog_screen.query_one(Banner)
+            assert await until(pilot, lambda: "FAULT" in banner.text)
+            assert "limit switch on axis 2" in banner.text and "press r" in banner.text
+            assert fully_visible(banner, (80, 24))

@@ -260,3 +260,70 @@ def test_a_program_the_console_starts_names_its_arm(tmp_path):
     assert Program.load(tmp_path / "program.toml").arm == "scara-bench"
     assert arm_for_files(None, tmp_path / "program.toml", None, load_arm).name == "scara-bench"
     assert arm_for_files(None, tmp_path / "none.toml", None, load_arm).name == "planar-bench"
+
+
+async def test_teach_from_the_jog_screen_with_one_key(tmp_path):
+    from benchjog.console.cell.points import PointBook
+    from benchjog.console.tui.app import make_app
+    from benchjog.console.tui.screens.jog import JogScreen
+
+    points = tmp_path / "p.toml"
+    with Interlock.open(ARM, "sim", journal=False, time_scale=50.0) as gate:
+        app = make_app(ARM, gate, points_path=points, program_path=tmp_path / "q.toml")
+        async with app.run_test(size=(80, 24)) as pilot:
+            await until(pilot, lambda: app.state is not None)
+            await pilot.press("e")
+            assert await until(pilot, app.ready)
+            for key in ("right", "up"):
+                await pilot.press("3", key)
+                assert await until(pilot, lambda: type(app.screen).__name__ ==
+                                   "ConfirmMoveScreen")
+                await pilot.press("y")
+                assert await until(pilot, lambda: app.busy is None and app.last_end_joints)
+                await pilot.press("a")
+                await pilot.pause(0.1)
+                assert isinstance(app.screen, JogScreen)   # no screen change
+            assert "taught p2 at the commanded pose (saved)" in app.message
+            # saved at once: another reader sees both, at the commanded poses
+            # (home tool point (220, 160) + 10 mm x, then + 10 mm y: 2R FK, from memory)
+            book = PointBook.load(points, ARM)
+            assert book.names == ["p1", "p2"]
+            assert book.point("p1").cartesian == pytest.approx((230.0, 160.0), abs=1e-6)
+            assert book.point("p2").cartesian == pytest.approx((230.0, 170.0), abs=1e-6)
+            # while the arm moves, the key refuses and says why
+            await pilot.press("left")
+            assert await until(pilot, lambda: type(app.screen).__name__ == "ConfirmMoveScreen")
+            await pilot.press("y")
+            await pilot.press("a")
+            if app.busy is not None:
+                assert "not taught: the arm is moving" in app.message
+            assert await until(pilot, lambda: app.busy is None)
+            await pilot.press("t")                            # the teach screen shows them
+            assert await until(pilot, lambda: type(app.screen).__name__ == "TeachScreen")
+            assert app.screen.book.names[:2] == ["p1", "p2"]
+
+
+async def test_a_second_console_says_why_it_is_read_only(tmp_path):
+    from benchjog.console.cell.points import PointBook
+    from benchjog.console.tui.app import make_app
+
+    points, program = tmp_path / "p.toml", tmp_path / "q.toml"
+    holder = PointBook.open(points, ARM)      # the first console's lock on the points
+    try:
+        with Interlock.open(ARM, "sim", journal=False) as gate:
+            app = make_app(ARM, gate, points_path=points, program_path=program)
+            async with app.run_test(size=(80, 24)) as pilot:
+                await until(pilot, lambda: app.state is not None)
+                await pilot.press("t")
+                assert await until(pilot, lambda: type(app.screen).__name__ == "TeachScreen")
+                teach = app.screen
+                await pilot.press("a")                # teach: dimmed, and says why
+                await pilot.pause(0.1)
+                assert teach.status.startswith("teach: read only:") and "lock" in teach.status
+                assert type(app.screen).__name__ == "TeachScreen"   # no dialog opened
+                await pilot.press("escape", "a")      # from the jog screen too
+                await pilot.pause(0.1)
+                assert "not taught: read only" in app.message
+    finally:
+        holder.close()
+    assert not points.exists()                    # nothing written

@@ -168,6 +168,10 @@ class BenchjogApp(App):
 
     def on_unmount(self) -> None:
         self.closing = True
+        if self.is_screen_installed("teach"):   # taught from the jog screen only: its locks
+            close = getattr(self.get_screen("teach"), "_close_files", None)
+            if close is not None:
+                close()
 
     # -- state refresh (thread worker, never blocks the UI) ------------------------------
     def _poll_tick(self) -> None:
@@ -527,6 +531,27 @@ class BenchjogApp(App):
             return True if (self.has_teach() and self.busy is None) else None
         return True
 
+
+    # -- teaching from the jog screen ------------------------------------------------------
+    def teach_point_here(self) -> None:
+        """Teach the pose here as a new point (p1, p2, ...) without leaving the jog
+        screen: the teach screen's book does it, so its files, locks and rules apply."""
+        if self.busy is not None:
+            self.set_message(f"not taught: the arm is moving ({self.busy.words(self.arm)}); "
+                             "teach when it has stopped", error=True)
+            return
+        if not self.is_screen_installed("teach"):
+            try:
+                module = importlib.import_module(TEACH_MODULE)
+                screen = module.TeachScreen(self.interlock, self.arm, self.points_path,
+                                            self.program_path)
+            except Exception as exc:  # noqa: BLE001 - a broken plug-in screen is one line
+                self.set_message(f"teach screen unavailable: {one_line(exc)}", error=True)
+                return
+            self.install_screen(screen, name="teach")
+        words, ok = self.get_screen("teach").teach_here()
+        self.jog_screen.log_event("teach", words)
+        self.set_message(words, error=not ok)
 
     # -- help: every key and why a dimmed one cannot act ----------------------------------
     def action_help(self) -> None:

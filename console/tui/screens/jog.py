@@ -70,7 +70,7 @@ class JogScreen(DimmedKeyHints, Screen):
     FOOTER_KEYS = ("jog.x-minus", "jog.x-plus", "jog.y-minus", "jog.y-plus", "jog.z-minus",
                    "jog.z-plus", "jog.roll-minus", "jog.roll-plus", "jog.j1-minus", "jog.j1-plus",
                    "jog.j2-minus", "jog.j2-plus", "jog.j3-minus", "jog.j3-plus", "jog.j4-minus",
-                   "jog.j4-plus", "jog.joint-mode", "jog.target", "jog.move", "app.stop",
+                   "jog.j4-plus", "jog.target", "jog.move", "app.stop", "jog.teach-point",
                    "app.teach", "app.help")
 
     BINDINGS = jog_bindings() + [
@@ -94,6 +94,9 @@ class JogScreen(DimmedKeyHints, Screen):
                 "100, 50, 25 or 10 %", id="jog.speed"),
         Binding("escape", "clear_target", "clear", show=False, tooltip="Forget the typed target",
                 id="jog.clear"),
+        Binding("a", "teach_point", "teach pt", tooltip="Teach the pose here as a new point "
+                "(p1, p2, ...) without leaving this screen; t shows the points",
+                id="jog.teach-point"),
         Binding("k", "sketch", "sketch", show=False, tooltip="Show or hide the sketch (hidden "
                 "by default below 120 x 36, so the panels fit)", id="jog.sketch"),
     ]
@@ -273,6 +276,9 @@ class JogScreen(DimmedKeyHints, Screen):
 
     def on_descendant_blur(self, event) -> None:
         self.refresh_view()
+
+    def action_teach_point(self) -> None:
+        self.app.teach_point_here()
 
     def action_sketch(self) -> None:
         self.toggle_class("-sketch-toggled")

@@ -271,6 +271,7 @@ class TeachScreen(DimmedKeyHints, Screen):
         self.new_speed = SPEEDS[0]
         self.frame_origin: tuple[str, tuple[float, ...]] | None = None  # a frame half taught
         self.status = ""
+        self.status_error = False
         self.report_text: list[str] = []
         self.run_clock: RunClock | None = None
 
@@ -301,12 +302,15 @@ class TeachScreen(DimmedKeyHints, Screen):
         steps = self.query_one("#steps-table", DataTable)
         steps.add_columns("#", "step", "note")
         self._open_files()
+        self.set_status(self.status, error=self.status_error)   # set before it was composed
         self.refresh_all()
 
     def on_unmount(self) -> None:
         self._close_files()
 
     def _open_files(self) -> None:
+        if self.book is not None:
+            return   # opened already (a point taught from the jog screen)
         try:
             self.book = PointBook.open(self.points_path, self.arm)
         except FileError as exc:
@@ -353,6 +357,7 @@ class TeachScreen(DimmedKeyHints, Screen):
 
     def set_status(self, words: str, *, error: bool = False) -> None:
         self.status = words
+        self.status_error = error
         try:
             self.query_one("#teach-status", Static).update(
                 Text(words, style="bold red" if error else ""))
@@ -420,7 +425,10 @@ class TeachScreen(DimmedKeyHints, Screen):
         return files
 
     def refresh_all(self) -> None:
-        self.query_one("#teach-files", Static).update(self.files_words())
+        try:
+            self.query_one("#teach-files", Static).update(self.files_words())
+        except NoMatches:
+            return   # not composed (taught from the jog screen): shown when it is
         table = self.query_one("#points-table", DataTable)
         row = table.cursor_row
         table.clear()
@@ -539,6 +547,25 @@ class TeachScreen(DimmedKeyHints, Screen):
         self.app.push_screen(AskScreen("teach the current pose",
                                        [("name", "point name", name), ("note", "note", "")],
                                        frames=frames), self._teach_answered)
+
+    def teach_here(self) -> tuple[str, bool]:
+        """Teach the pose here as the next free ``p<n>`` in the base frame, from the
+        jog screen (this screen need not be shown). Returns (words, saved)."""
+        self._open_files()
+        if self.read_only:
+            return f"not taught: read only ({self.read_only_reason})", False
+        if self.busy:
+            return f"not taught: busy with {self.busy}", False
+        n = len(self.book.points) + 1
+        while self.book.has(f"p{n}"):
+            n += 1
+        name = f"p{n}"
+        joints, how = self._teach_joints()
+        if joints is None:
+            return self.status, False
+        self._edit(f"taught {name} at the {how}", lambda: self.book.teach(name, joints) and None,
+                   points=True)
+        return self.status, self.status.endswith("(saved)")
 
     def _teach_answered(self, values: dict | None) -> None:
         if not values:

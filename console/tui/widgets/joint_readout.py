@@ -79,11 +79,11 @@ class JointReadout(Static):
         if rows == self.rows:
             return
         self.rows = rows
-        table = Table(box=None, expand=True, show_edge=False, pad_edge=False)
-        table.add_column("", ratio=3, no_wrap=True, overflow="ellipsis",
-                         min_width=max(len(r[0]) for r in rows))
+        table = Table(box=None, expand=True, show_edge=False, pad_edge=False,
+                      collapse_padding=True)
+        table.add_column("", no_wrap=True, min_width=max(len(r[0]) for r in rows))
         for head in ("target", "actual", "error"):
-            table.add_column(head, justify="right", ratio=2)
+            table.add_column(head, justify="right", no_wrap=True)
         n_tool = len(tool_fields(self.arm))
         for i, row in enumerate(rows):
             err_style = ""
