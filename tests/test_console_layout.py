@@ -237,3 +237,60 @@ async def test_a_fault_names_its_cause_and_how_to_clear_it():
             assert await until(pilot, lambda: "FAULT" in banner.text)
             assert "limit switch on axis 2" in banner.text and "press r" in banner.text
             assert fully_visible(banner, (80, 24))
+
+
+async def test_a_number_typed_outside_the_field_goes_into_it():
+    # measured before: "-180 0" typed without g set the step to 0.1 and sent a stop
+    arm = builtin_arm("planar-bench")
+    with Interlock.open(arm, "sim", journal=False) as gate:
+        app = make_app(arm, gate)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await until(pilot, lambda: app.state is not None)
+            before = len(gate.sim.commands)
+            await pilot.press("-", "1", "8", "0", "space", "0")
+            field = app.jog_screen.query_one(TargetInput)
+            assert field.has_focus and field.value == "-180 0"
+            assert app.step == 1.0
+            assert not [c for c in gate.sim.commands[before:] if c[0] in ("STOP", "MOVE")]
+            await pilot.press("enter")
+            await pilot.pause(0.1)
+            assert app.target == (-180.0, 0.0)
+
+
+# --- the SCARA side view draws only zones in the arm's plane --------------------------
+
+@pytest.mark.parametrize("phi_deg", [0, 17, 45, 90, 133, 180, 201, 270, 300, 359])
+@pytest.mark.parametrize("zone_kw", [
+    dict(name="post", kind="circle", cx=120.0, cy=-180.0, r=35.0),
+    dict(name="tray", kind="box", x_min=-300.0, x_max=-200.0, y_min=-70.0, y_max=70.0),
+    dict(name="wall", kind="box", x_min=50.0, x_max=400.0, y_min=-10.0, y_max=10.0),
+])
+def test_ray_span_matches_sampling_along_the_ray(phi_deg, zone_kw):
+    # independent check: walk the ray in 0.05 mm steps with the point-in-zone test
+    import math as m
+    from benchjog.console.tui.widgets.sketch import in_zone, ray_span
+    from benchjog.kinematics.model import Zone
+    zone = Zone(**zone_kw)
+    phi = m.radians(phi_deg)
+    inside = [k * 0.05 for k in range(0, 12001)
+              if in_zone(zone, k * 0.05 * m.cos(phi), k * 0.05 * m.sin(phi))]
+    span = ray_span(zone, phi)
+    if not inside:
+        assert span is None or span[1] - span[0] < 0.05
+    else:
+        assert span is not None
+        assert span[0] == pytest.approx(inside[0], abs=0.06)
+        assert span[1] == pytest.approx(inside[-1], abs=0.06)
+
+
+def test_scara_side_view_hatches_the_post_only_when_the_arm_faces_it():
+    import math as m
+    from benchjog.console.tui.widgets.sketch import HATCH, render_side
+    from benchjog.kinematics.solve import joints_from_tool
+    arm = builtin_arm("scara-bench")        # fixture-post: circle at (120, -180), r 35
+    toward = joints_from_tool(arm, (150.0, -225.0, 140.0, 0.0)).usable[0].joints
+    away = joints_from_tool(arm, (-150.0, 225.0, 140.0, 0.0)).usable[0].joints
+    drawn = lambda joints: sum(line.count(HATCH) for line in
+                               render_side(arm, joints, width=40, height=16))
+    assert drawn(toward) > 0
+    assert drawn(away) == 0

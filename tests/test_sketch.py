@@ -126,7 +126,11 @@ def test_scara_side_view_shows_the_quill_height():
 
 def test_scara_side_view_hatches_the_post_height_range():
     # fixture-post: z 0..100 mm; the tool at quill 0 is at z 140, above the post's top.
-    lines = render_sketch(SCARA, (0.0, math.pi / 2, 0.0, 0.0), width=90, height=24)
+    # The arm turned towards the post (tool over (150, -225)): the side view is drawn in
+    # the arm's plane, so a zone at another angle is not drawn at all.
+    from benchjog.kinematics.solve import joints_from_tool
+    facing = joints_from_tool(SCARA, (150.0, -225.0, 140.0, 0.0)).usable[0].joints
+    lines = render_sketch(SCARA, facing, width=90, height=24)
     side = [line[60:] for line in lines]
     hatch_rows = {r for r, _ in cells(side, "#")}
     (tool_row, _), = cells(side, "T")

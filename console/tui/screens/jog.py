@@ -277,6 +277,24 @@ class JogScreen(DimmedKeyHints, Screen):
     def on_descendant_blur(self, event) -> None:
         self.refresh_view()
 
+    # the start of a typed number outside the field opens the field with it (the step
+    # keys 1 2 3 stay step keys): "-180 0" typed by mistake never jogs or stops
+    NUMBER_STARTS = "-.+0456789"
+
+    def on_key(self, event) -> None:
+        if (event.character and event.character in self.NUMBER_STARTS
+                and not isinstance(self.focused, TargetInput)
+                and not self.active_bindings.get(event.key)):
+            field = self.query_one(TargetInput)
+            select = field.select_on_focus
+            field.select_on_focus = False      # the typed character is kept, not selected
+            field.value = event.character
+            field.cursor_position = len(field.value)
+            field.focus()
+            self.call_after_refresh(setattr, field, "select_on_focus", select)
+            event.stop()
+            event.prevent_default()   # also skips DimmedKeyHints.on_key (Textual walks the MRO)
+
     def action_teach_point(self) -> None:
         self.app.teach_point_here()
 

@@ -269,13 +269,50 @@ def _radial_span(zone: Zone) -> tuple[float, float]:
     return math.hypot(nx, ny), far
 
 
+def ray_span(zone: Zone, phi: float) -> tuple[float, float] | None:
+    """Where the half-plane of the arm (from the base axis at angle ``phi``, rad, seen
+    from above) cuts a zone's footprint: (nearest, farthest) distance from the base
+    axis in mm, or None when it misses the zone. A circle: the ray-circle quadratic; a
+    box: the slab method (Kay and Kajiya, SIGGRAPH 1986; from memory).
+
+    >>> post = Zone("post", "circle", cx=100.0, cy=0.0, r=20.0)
+    >>> [round(v, 6) for v in ray_span(post, 0.0)]
+    [80.0, 120.0]
+    >>> ray_span(post, math.pi) is None
+    True
+    >>> tray = Zone("tray", "box", x_min=-300.0, x_max=-200.0, y_min=-70.0, y_max=70.0)
+    >>> [round(v, 6) for v in ray_span(tray, math.pi)], ray_span(tray, math.pi / 2)
+    ([200.0, 300.0], None)
+    """
+    ux, uy = math.cos(phi), math.sin(phi)
+    if zone.kind == "circle":
+        along = ux * zone.cx + uy * zone.cy
+        disc = along * along - (zone.cx ** 2 + zone.cy ** 2 - zone.r ** 2)
+        if disc < 0.0:
+            return None
+        r0, r1 = along - math.sqrt(disc), along + math.sqrt(disc)
+    else:
+        r0, r1 = -math.inf, math.inf
+        for u, lo, hi in ((ux, zone.x_min, zone.x_max), (uy, zone.y_min, zone.y_max)):
+            if abs(u) < 1e-12:
+                if not lo <= 0.0 <= hi:
+                    return None
+                continue
+            a, b = sorted((lo / u, hi / u))
+            r0, r1 = max(r0, a), min(r1, b)
+    if r1 < max(r0, 0.0):
+        return None
+    return max(r0, 0.0), r1
+
+
 def render_side(arm: Arm, joints: Sequence[float], *, width: int, height: int,
                 target: Sequence[float] | None = None, label: str | None = None) -> list[str]:
     """The SCARA seen from the side, unrolled about the base axis: distance from the
     base axis to the right, height z up (both mm, same aspect correction as the top
     view). Shows the table (z = 0), the base column, the links at the flange height,
     the quill down to the tool tip, the target's height and each zone's radial span
-    and z range."""
+    and z range where the arm's plane (through the base axis and the tool) cuts it: a
+    zone at another angle is not drawn."""
     canvas = Canvas(width, height)
     flange = flange_z_mm(arm)
     base_top = arm.joints[0].d_mm
@@ -295,8 +332,12 @@ def render_side(arm: Arm, joints: Sequence[float], *, width: int, height: int,
     view = View.fit(0.0, r1, z0, z1, width, height)
     for col in range(width):
         canvas.put(col, view.cell(0.0, 0.0)[1], GROUND)
+    phi = math.atan2(tip[1], tip[0]) if tip is not None else None
     for zone in arm.zones:
-        zr0, zr1 = _radial_span(zone)
+        span = ray_span(zone, phi) if phi is not None else None
+        if span is None:
+            continue   # not in the arm's plane (or no pose to say where that is)
+        zr0, zr1 = span
         zz0 = max(zone.z_min, z0) if math.isfinite(zone.z_min) else z0
         zz1 = min(zone.z_max, z1) if math.isfinite(zone.z_max) else z1
         c0, rb = view.cell(zr0, zz0)
