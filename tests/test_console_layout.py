@@ -294,3 +294,56 @@ def test_scara_side_view_hatches_the_post_only_when_the_arm_faces_it():
                                render_side(arm, joints, width=40, height=16))
     assert drawn(toward) > 0
     assert drawn(away) == 0
+
+
+# --- the workspace map in the sketch ------------------------------------------------------
+
+def test_workspace_map_against_the_textbook_2r_solution():
+    # Independent check of every cell of the map with the closed-form 2R IK (Lynch & Park,
+    # Modern Robotics 2017, section 6.1, from memory): elbow angle from the law of
+    # cosines, shoulder from atan2; a cell is in the map exactly when that branch's
+    # joints are within the soft limits of planar-bench.toml and both links stay
+    # farther than the arm's link clearance from the keep-out box. Cells within 1 deg
+    # of a limit or 1 mm of the clearance are skipped (rounding).
+    import math as m
+    from benchjog.console.tui.widgets.sketch import View, workspace_cells
+    arm = builtin_arm("planar-bench")
+    a1, a2 = arm.joints[0].a_mm, arm.joints[1].a_mm
+    view = View.fit(-400.0, 400.0, -400.0, 400.0, 61, 25)
+    checked = 0
+    for branch, sign in (("elbow-down", 1.0), ("elbow-up", -1.0)):
+        cells = workspace_cells(arm, branch, 0.0, 0.0, view)
+        for row in range(view.rows):
+            for col in range(view.cols):
+                x, y = view.world(col, row)
+                c2 = (x * x + y * y - a1 * a1 - a2 * a2) / (2 * a1 * a2)
+                if abs(c2) > 1 - 1e-3:                  # out of reach or at the edge
+                    if abs(c2) > 1 + 1e-3:
+                        assert (col, row) not in cells
+                    continue
+                t2 = sign * m.acos(c2)
+                t1 = m.atan2(y, x) - m.atan2(a2 * m.sin(t2), a1 + a2 * m.cos(t2))
+                t1 = m.remainder(t1, 2 * m.pi)
+                joints_ok, near_edge = True, False
+                for joint, t in zip(arm.joints, (t1, t2)):
+                    deg = m.degrees(t)
+                    lo, hi = m.degrees(joint.min), m.degrees(joint.max)
+                    joints_ok &= lo <= deg <= hi
+                    near_edge |= min(abs(deg - lo), abs(deg - hi)) < 1.0
+                grow = arm.link_clearance_mm
+                # both links (base-elbow, elbow-tool), sampled every 0.5 mm, against
+                # each box: the nearest distance of any point of the arm to a zone
+                ex, ey = a1 * m.cos(t1), a1 * m.sin(t1)
+                points = [(ex * k / 500, ey * k / 500) for k in range(501)]
+                points += [(ex + (x - ex) * k / 500, ey + (y - ey) * k / 500)
+                           for k in range(501)]
+                zone_gap = min(m.hypot(max(z.x_min - px, 0.0, px - z.x_max),
+                                       max(z.y_min - py, 0.0, py - z.y_max))
+                               for z in arm.zones for px, py in points)
+                near_edge |= abs(zone_gap - grow) < 1.0
+                if near_edge:
+                    continue
+                expected = joints_ok and zone_gap > grow
+                assert ((col, row) in cells) == expected, (branch, x, y)
+                checked += 1
+    assert checked > 500

@@ -121,7 +121,11 @@ def test_scara_side_view_shows_the_quill_height():
     (rh, _), = cells(side_high, "T")
     (rl, _), = cells(side_low, "T")
     assert rl > rh                                         # lower on screen = lower z
-    assert [line[:59] for line in high] == [line[:59] for line in low]
+    # the top view is the same but for the workspace map, which is taken at the tool's
+    # height (lower, the tool meets the fixture post's z range)
+    from benchjog.console.tui.widgets.sketch import WORKSPACE
+    assert [line[:59].replace(WORKSPACE, " ") for line in high] == \
+        [line[:59].replace(WORKSPACE, " ") for line in low]
 
 
 def test_scara_side_view_hatches_the_post_height_range():

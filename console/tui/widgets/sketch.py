@@ -19,6 +19,7 @@ Units in: mm and radians (kinematics/ conventions).
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -41,17 +42,18 @@ PLANNED = "+"      # the active branch at the target (where a move would take th
 HATCH = "#"        # keep-out zones
 REACH = "."        # reach boundaries (max, and min when > 0)
 GROUND = "="       # the table (side view)
+WORKSPACE = "·"   # where the arm's present branch reaches within limits, outside zones
 
 LEGEND_ITEMS = (f"{BASE} base", f"{ELBOW} joint", f"{TOOL} tool", f"{TARGET} target",
                 f"{PLANNED} chosen branch", f"{OTHER} other branch", f"{HATCH} keep-out",
-                f"{REACH} reach")
+                f"{REACH} reach", f"{WORKSPACE} this branch reaches")
 LEGEND = "  ".join(LEGEND_ITEMS)
 
 
 def legend_lines(width: int) -> list[str]:
     """The legend packed into lines of at most ``width`` characters.
 
-    >>> legend_lines(40)
+    >>> legend_lines(40)[:3]
     ['@ base  o joint  T tool  X target', '+ chosen branch  : other branch', '# keep-out  . reach']
     """
     lines: list[str] = []
@@ -221,12 +223,45 @@ def _draw_pose(canvas: Canvas, view: View, arm: Arm, joints: Sequence[float], li
         canvas.put(*view.cell(*tool), tool_char)
 
 
+@functools.lru_cache(maxsize=32)
+def workspace_cells(arm: Arm, branch: str, z_mm: float, roll_rad: float,
+                    view: View) -> frozenset[tuple[int, int]]:
+    """The cells of ``view`` whose centre the arm reaches on ``branch`` (the contract
+    string) with every joint within its soft limits and the tool outside every
+    keep-out zone: the IK front (``joints_from_tool``) asked at each cell, so the map
+    says exactly what a move there on this branch would be told. A SCARA is asked at
+    the tool's present height and roll. Cached per arm, branch, height, roll and view.
+    """
+    from benchjog.kinematics.solve import joints_from_tool
+    out = set()
+    for row in range(view.rows):
+        for col in range(view.cols):
+            x, y = view.world(col, row)
+            target = (x, y, z_mm, roll_rad) if arm.is_scara else (x, y)
+            ik = joints_from_tool(arm, target)
+            if not ik.reachable:
+                continue
+            sol = next((s for s in ik.solutions if str(s.branch) == branch), None)
+            if sol is None and len(ik.solutions) == 1:
+                sol = ik.solutions[0]      # a stretched or folded arm: both branches meet
+            if sol is not None and sol.usable:
+                out.add((col, row))
+    return frozenset(out)
+
+
+def branch_words(arm: Arm, joints: Sequence[float]) -> str:
+    """The contract branch string of a joint vector (elbow j2 > 0: elbow-down)."""
+    t2 = joints[1] + arm.joints[1].offset_rad
+    return "elbow-down" if math.sin(t2) >= 0 else "elbow-up"
+
+
 def render_top(arm: Arm, joints: Sequence[float], *, width: int, height: int,
                target: Sequence[float] | None = None,
                other_joints: Sequence[float] | None = None,
                planned_joints: Sequence[float] | None = None,
-               label: str | None = None) -> list[str]:
-    """The top view alone (see :func:`render_sketch`)."""
+               label: str | None = None, workspace: bool = True) -> list[str]:
+    """The top view alone (see :func:`render_sketch`); ``workspace`` dots the cells
+    the present branch reaches (:func:`workspace_cells`)."""
     canvas = Canvas(width, height)
     reach = arm.max_reach_mm
     x0, x1, y0, y1 = -reach, reach, -reach, reach
@@ -237,6 +272,11 @@ def render_top(arm: Arm, joints: Sequence[float], *, width: int, height: int,
         x0, x1 = min(x0, target[0]), max(x1, target[0])
         y0, y1 = min(y0, target[1]), max(y1, target[1])
     view = View.fit(x0, x1, y0, y1, width, height)
+    if workspace and _finite(joints):
+        tool = tool_from_joints(arm, tuple(joints))
+        z, roll = (round(tool[2], 1), round(tool[3], 3)) if arm.is_scara else (0.0, 0.0)
+        for col, row in workspace_cells(arm, branch_words(arm, joints), z, roll, view):
+            canvas.put(col, row, WORKSPACE)
     draw_circle(canvas, view, arm.max_reach_mm, REACH)
     if arm.min_reach_mm > 0:
         draw_circle(canvas, view, arm.min_reach_mm, REACH)
