@@ -46,7 +46,13 @@ class DriverState:
     with the arm's calibration; ``queued`` counts segments sent without a DONE yet;
     ``outputs`` is a bit mask (output n is bit ``1 << n``); ``age_s`` is the time since
     the last position report; ``latched`` is None or a one-line reason such as
-    ``"estop"``, ``"fault: FOLLOWING axis=2"``, ``"link lost: no reply after 3 tries"``.
+    ``"estop"``, ``"fault: FOLLOWING axis=2"``, ``"link lost: no reply after 3 tries"``;
+    ``fresh`` is False while ``joints`` cannot be trusted: after a stop, a halt, an
+    e-stop or a fault, until the controller reports its position again (PROTOCOL.md:
+    nothing is planned from the old one); ``queue_ran_dry`` counts the segments that
+    reached the controller's queue while it was empty (by the controller's own count,
+    where the driver has one): the first segment of each motion, and each stop-and-go
+    where the queue ran empty mid-move.
     """
 
     mode: Mode
@@ -59,6 +65,8 @@ class DriverState:
     homed: bool
     latched: str | None
     link: str
+    fresh: bool = True
+    queue_ran_dry: int = 0
 
 
 @dataclass(frozen=True)

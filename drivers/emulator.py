@@ -1,5 +1,10 @@
 """A controller emulator that speaks PROTOCOL.md on a pseudo-terminal.
 
+It is the reference controller firmware itself: drivers/firmware/core.py, the same
+module that runs on the board under MicroPython, on a simulated hardware layer
+(:class:`SimHardware`), so what the tests prove about the emulator they prove about
+the firmware's logic. This module adds only the pty, the clock and the test switches.
+
 It behaves as a controller does after power-up: drives off, not homed. Segments run in
 real time from a clock; the queue holds ``queue_depth`` segments (8); the 1000 ms
 watchdog runs while the drives are enabled; homing takes ``home_s`` seconds and ends
@@ -11,7 +16,10 @@ Test switches (options): ``estop_at_s``, ``estop_after`` (MOVEs), ``fault_after`
 (MOVEs; ``fault_code``, ``fault_axis``), ``drop_every`` (lose every Nth host line),
 ``garble_every`` (every Nth host line arrives with a bad CRC: ``ERR 0 BAD_CRC``),
 ``corrupt_every`` (every Nth reply leaves with a bad CRC), ``slow_ms`` (delay every
-reply). :class:`Emulator` is used in-process by the tests; :func:`serve` runs it for
+reply), ``counters`` (False: STATE without ``moves=``/``last=``, as an older
+controller). ``true_errors``: the arm the emulated controller really drives differs from
+its arm file (see drivers/sim.py; :meth:`Emulator.tool_in_plate_mm` is the bench's
+ruler). :class:`Emulator` is used in-process by the tests; :func:`serve` runs it for
 ``benchjog emulate``.
 """
 
@@ -24,12 +32,12 @@ import signal
 import threading
 import time
 import tty
-from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TextIO
 
 from benchjog.drivers import protocol as P
+from benchjog.drivers.firmware import core
 from benchjog.drivers.calibration import hard_ranges_counts
 from benchjog.kinematics.model import Arm
 
@@ -57,6 +65,8 @@ class EmulatorOptions:
     garble_every: int | None = None
     corrupt_every: int | None = None
     slow_ms: float = 0.0
+    counters: bool = True
+    true_errors: dict | None = None   # calibration rehearsals: the true arm's errors
 
     @classmethod
     def from_mapping(cls, values: dict) -> "EmulatorOptions":
@@ -67,18 +77,62 @@ class EmulatorOptions:
         return cls(**{k: v for k, v in values.items() if v is not None})
 
 
-@dataclass
-class _Seg:
-    seq: int
-    start: tuple[float, ...]
-    target: tuple[int, ...]
-    duration_s: float
-    t0: float | None = None
+class SimHardware:
+    """The simulated hardware layer under the firmware core (see core.py for the
+    methods): it keeps the last setpoints and outputs, and inputs a test or a typed
+    command sets (``estop``, ``limit``, ``home_switch_at``)."""
+
+    def __init__(self, n: int, home_switch_at: list[int | None] | None = None) -> None:
+        self.n = n
+        self.enabled = False
+        self.counts = [0] * n
+        self.outputs = 0
+        self.estop = False
+        self.limit = 0
+        self.home_switch_at = home_switch_at or [None] * n
+        self.writes = 0
+
+    def enable(self, on: bool) -> None:
+        self.enabled = bool(on)
+
+    def write_counts(self, counts: list[int]) -> None:
+        self.counts = list(counts)
+        self.writes += 1
+
+    def write_outputs(self, bits: int) -> None:
+        self.outputs = bits
+
+    def estop_active(self) -> bool:
+        return self.estop
+
+    def limit_active(self) -> int:
+        return self.limit
+
+    def reference(self, i: int, counts: int) -> None:
+        self.counts[i] = counts
+
+    def drive_fault(self) -> tuple[str, int] | None:
+        return None
+
+    def home_active(self, i: int) -> bool:
+        """A home switch at ``home_switch_at[i]`` counts, approached from above."""
+        at = self.home_switch_at[i]
+        return at is not None and self.counts[i] <= at
+
+
+def settings_for_arm(arm: Arm, opts: EmulatorOptions) -> core.Settings:
+    """The firmware core's settings for an arm: its hard ranges in counts (soft limits
+    + 5 deg/mm, drivers/calibration.py), and the emulator's queue, name and homing time."""
+    axes = [{"min_counts": lo, "max_counts": hi} for lo, hi in hard_ranges_counts(arm)]
+    return core.Settings(axes, queue=opts.queue_depth, name=opts.name,
+                         home_ms=opts.home_s * 1000.0, counters=opts.counters,
+                         watchdog_us=round(opts.watchdog_s * 1e6))
 
 
 class Emulator:
-    """The emulated controller on a pty. ``start()`` returns the device path of the
-    slave side; ``stop()`` ends it (the port then goes away, as if unplugged)."""
+    """The emulated controller on a pty: the firmware core (drivers/firmware/core.py)
+    on :class:`SimHardware`. ``start()`` returns the device path of the slave side;
+    ``stop()`` ends it (the port then goes away, as if unplugged)."""
 
     def __init__(self, arm: Arm, options: EmulatorOptions | dict | None = None,
                  clock: Callable[[], float] = time.monotonic) -> None:
@@ -97,25 +151,76 @@ class Emulator:
         self._master: int | None = None
         self._slave: int | None = None
         self.path: str | None = None
-        # controller state
-        self.enabled = False
-        self.homed = False
-        self.estop_input = False
-        self.latched: str | None = None    # None, "ESTOP" or "FAULT"
-        self.pos: list[float] = [0.0] * self.n
-        self.segs: deque[_Seg] = deque()
-        self.homing: tuple[int, float, float, tuple[float, ...]] | None = None  # seq, t0, t_end, start
-        self.outputs = 0
-        self.last_seq: int | None = None
-        self.last_reply: list[bytes] = []
-        self.last_valid_t = clock()
-        self.t_start = clock()
-        self.moves_accepted = 0
+        self._t0 = clock()
+        self.t_start = self._t0
+        self.hw = SimHardware(self.n)
+        self.core = core.Controller(settings_for_arm(arm, self.opts), self.hw, now_us=0)
         self.lines_in = 0
         self.replies_out = 0
         self.received: list[str] = []   # every valid host body, for tests
         self._rx_busy_until = 0.0
         self._tx_busy_until = 0.0
+
+    # -- the core's state, as the tests and the old emulator name it ----------------
+    def _us(self, t: float) -> int:
+        return round((t - self._t0) * 1e6)
+
+    @property
+    def enabled(self) -> bool:
+        return self.core.enabled
+
+    @enabled.setter
+    def enabled(self, on: bool) -> None:
+        with self._lock:
+            self.core._drives(bool(on))
+
+    @property
+    def homed(self) -> bool:
+        return self.core.homed
+
+    @homed.setter
+    def homed(self, value: bool) -> None:
+        self.core.homed = bool(value)
+
+    @property
+    def last_seq(self) -> int | None:
+        return self.core.last_seq
+
+    @last_seq.setter
+    def last_seq(self, seq: int | None) -> None:
+        self.core.last_seq = seq
+
+    @property
+    def last_valid_t(self) -> float:
+        return self._t0 + self.core.last_valid_us / 1e6
+
+    @last_valid_t.setter
+    def last_valid_t(self, t: float) -> None:
+        self.core.last_valid_us = self._us(t)
+
+    @property
+    def latched(self) -> str | None:
+        return self.core.latched
+
+    @property
+    def estop_input(self) -> bool:
+        return self.hw.estop
+
+    @property
+    def segs(self) -> list:
+        return self.core.queue
+
+    @property
+    def pos(self) -> list[int]:
+        return list(self.core.pos)
+
+    @property
+    def outputs(self) -> int:
+        return self.core.outputs
+
+    @property
+    def moves_accepted(self) -> int:
+        return self.core.accepted
 
     # -- life cycle -----------------------------------------------------------------
     def start(self) -> str:
@@ -124,8 +229,10 @@ class Emulator:
         tty.setraw(slave)
         self._master, self._slave = master, slave
         self.path = os.ttyname(slave)
-        self._running = True
-        self.t_start = self.last_valid_t = self.clock()
+        with self._lock:
+            self._running = True
+            self.t_start = now = self.clock()
+            self.core.last_valid_us = self._us(now)
         for target, name in ((self._reader, "rx"), (self._motion, "motion"), (self._writer, "tx")):
             t = threading.Thread(target=target, name=f"emulator-{name}", daemon=True)
             t.start()
@@ -158,59 +265,62 @@ class Emulator:
 
     # -- runtime switches -----------------------------------------------------------
     def press_estop(self) -> None:
+        """The e-stop input goes active (its normally-closed contact opens)."""
         with self._lock:
-            self._advance(self.clock())
-            self.estop_input = True
-            self._halt()
-            self.enabled = False
-            self.latched = "ESTOP"
-            self._send_line("EVT ESTOP")
+            self.hw.estop = True
+            self._tick(self.clock())
 
     def release_estop(self) -> None:
         with self._lock:
-            self.estop_input = False
-            self._send_line("EVT ESTOP_CLEAR")
+            self.hw.estop = False
+            self._tick(self.clock())
+
+    def set_limit(self, axis: int) -> None:
+        """Axis ``axis``'s limit switch input goes active (0: none is)."""
+        with self._lock:
+            self.hw.limit = axis
+            self._tick(self.clock())
 
     def inject_fault(self, code: str = "DRIVE", axis: int = 0) -> None:
         with self._lock:
-            self._advance(self.clock())
-            self._fault(code, axis)
+            self._tick(self.clock())
+            self.core.fault(code, axis)
+            self._flush()
 
     @property
     def mode(self) -> str:
         with self._lock:
-            if self.latched == "ESTOP":
-                return "ESTOP"
-            if self.latched == "FAULT":
-                return "FAULT"
-            if not self.enabled:
-                return "DISABLED"
-            if self.homing is not None:
-                return "MOVING"
-            if not self.homed:
-                return "UNHOMED"
-            return "MOVING" if self.segs else "IDLE"
+            return self.core.mode()
 
     def position_counts(self) -> tuple[int, ...]:
         with self._lock:
-            self._advance(self.clock())
-            return tuple(round(p) for p in self.pos)
+            self._tick(self.clock())
+            return tuple(self.core.pos)
+
+    def tool_in_plate_mm(self) -> tuple[float, ...]:
+        """Where the true arm's tool tip is on the fixture plate (``true_errors``)."""
+        from benchjog.drivers.calibration import joints_from_counts
+        from benchjog.kinematics import identify
+
+        vec = identify.true_vector_from_errors(self.arm, dict(self.opts.true_errors or {}))
+        joints = joints_from_counts(self.arm, self.position_counts())
+        point = identify.plate_points_mm(self.arm, identify.params_of(self.arm), vec, [joints])[0]
+        return tuple(float(v) for v in point)
 
     # -- output ---------------------------------------------------------------------
-    def _send_line(self, body: str, reply: bool = False) -> bytes:
-        """Frame and queue one outgoing line (lock held). Replies may be delayed or
-        corrupted by the test switches; returns the framed (uncorrupted) line."""
-        line = P.frame(body)
-        not_before = self.clock()
-        wire = line
-        if reply:
-            self.replies_out += 1
-            not_before += self.opts.slow_ms / 1000.0
-            n = self.opts.corrupt_every
-            if n and self.replies_out % n == 0:
-                wire = line[:-3] + (b"0" if line[-3:-2] != b"0" else b"1") + line[-2:]
-        self._enqueue(wire, not_before)
-        return line
+    def _flush(self) -> None:
+        """Queue what the core has to send (lock held). Replies may be delayed or
+        corrupted by the test switches; a reply sent again is delayed, not corrupted."""
+        for kind, line in self.core.take():
+            not_before = self.clock()
+            wire = line
+            if kind != core.EVENT:
+                self.replies_out += 1
+                not_before += self.opts.slow_ms / 1000.0
+                n = self.opts.corrupt_every
+                if kind == core.REPLY and n and self.replies_out % n == 0:
+                    wire = line[:-3] + (b"0" if line[-3:-2] != b"0" else b"1") + line[-2:]
+            self._enqueue(wire, not_before)
 
     def _enqueue(self, data: bytes, not_before: float) -> None:
         """Queue bytes for the wire. With pacing, the time the last byte is out is
@@ -272,224 +382,62 @@ class Emulator:
                 buf = b""  # no newline in sight: noise
 
     def _receive(self, line: bytes) -> None:
+        """One line from the wire, through the test switches, to the core."""
         with self._lock:
             self.lines_in += 1
             n = self.opts.drop_every
             if n and self.lines_in % n == 0:
                 return  # lost on the wire
-            body = P.parse_line(line)
             g = self.opts.garble_every
             if g and self.lines_in % g == 0:
-                body = None
-            if body is None:
-                self._send_line("ERR 0 BAD_CRC", reply=True)
-                return
-            now = self.clock()
-            self._advance(now)   # a watchdog that expired before this line still fires
-            self.last_valid_t = now
-            self.received.append(body)
-            self._handle(body)
+                line = b"\xff"  # arrives damaged: fails its check
+            body = P.parse_line(line)
+            if body is not None:
+                self.received.append(body)
+            before = self.core.accepted
+            self.core.receive_line(line, self._us(self.clock()))
+            if self.core.accepted != before:
+                self._after_move(self.core.accepted)
+            self._flush()
             self._wake.notify_all()
 
-    def _handle(self, body: str) -> None:
-        cmd = P.parse_host(body)
-        if cmd is None:
-            seq = P.parse_int(body.split(" ", 1)[0]) if body else None
-            if seq is None or not 1 <= seq <= P.MAX_SEQ:
-                self._send_line("ERR 0 SYNTAX", reply=True)  # no seq to trust
-                return
-            if self._out_of_sequence(seq):
-                return
-            self.last_seq = seq  # answered like any other refused line: the count goes on
-            self.last_reply = [self._send_line(f"ERR {seq} SYNTAX", reply=True)]
-            return
-        if cmd.verb != "HELLO" and self._out_of_sequence(cmd.seq):
-            return
-        self.last_seq = cmd.seq
-        reply = self._execute(cmd)
-        self.last_reply = [self._send_line(reply, reply=True)]
-        self._after_reply(cmd)
-
-    def _out_of_sequence(self, seq: int) -> bool:
-        """A retransmission (the last reply again) or an unexpected seq (BAD_SEQ): True
-        when the line is answered that way and must not be executed."""
-        if self.last_seq is not None:
-            if seq == self.last_seq:
-                for line in self.last_reply:   # a retransmission: the same reply again
-                    self.replies_out += 1
-                    self._enqueue(line, self.clock() + self.opts.slow_ms / 1000.0)
-                return True
-            expected = P.next_seq(self.last_seq)
-            if seq != expected:
-                self._send_line(f"ERR {seq} BAD_SEQ expected={expected}", reply=True)
-                return True
-        return False
-
-    def _execute(self, cmd: P.HostLine) -> str:
-        seq, verb, args = cmd.seq, cmd.verb, cmd.args
-        if verb not in P.HOST_VERBS:
-            return f"ERR {seq} UNKNOWN"
-        if verb == "MOVE":
-            return self._move(cmd)
-        if verb == "OUT":
-            if len(args) != 2 or P.parse_int(args[0]) is None or args[1] not in ("0", "1"):
-                return f"ERR {seq} SYNTAX"
-            ch = int(args[0])
-            if not 0 <= ch <= 7:
-                return f"ERR {seq} SYNTAX"
-            if self.latched:
-                return f"ERR {seq} {self.latched}"
-            self.outputs = (self.outputs | (1 << ch)) if args[1] == "1" else (self.outputs & ~(1 << ch))
-            return f"OK {seq}"
-        if args:
-            return f"ERR {seq} SYNTAX"
-        if verb == "HELLO":
-            return f"OK {seq} proto={P.PROTO_VERSION} axes={self.n} queue={self.opts.queue_depth} name={self.opts.name}"
-        if verb == "ENABLE":
-            if self.latched:
-                return f"ERR {seq} {self.latched}"
-            self.enabled = True
-            return f"OK {seq}"
-        if verb == "DISABLE":
-            self._halt()
-            self.enabled = False
-            return f"OK {seq}"
-        if verb == "HOME":
-            if self.latched:
-                return f"ERR {seq} {self.latched}"
-            if not self.enabled:
-                return f"ERR {seq} NOT_ENABLED"
-            self._halt()
-            now = self.clock()
-            self.homed = False
-            self.homing = (seq, now, now + self.opts.home_s, tuple(self.pos))
-            return f"OK {seq}"
-        if verb == "STOP":
-            self._halt()
-            return f"OK {seq}"
-        if verb == "STATE":
-            pos = ",".join(str(round(p)) for p in self.pos)
-            return f"OK {seq} mode={self.mode} pos={pos} queued={len(self.segs)} out={self.outputs}"
-        if verb == "RESET":
-            if self.estop_input:
-                return f"ERR {seq} ESTOP"
-            self.latched = None
-            return f"OK {seq}"
-        return f"ERR {seq} UNKNOWN"  # pragma: no cover - every verb handled above
-
-    def _move(self, cmd: P.HostLine) -> str:
-        seq, args = cmd.seq, cmd.args
-        if len(args) != 1 + self.n:
-            return f"ERR {seq} SYNTAX"
-        values = [P.parse_int(a) for a in args]
-        if any(v is None for v in values) or not 1 <= values[0] <= 60000:  # type: ignore[operator]
-            return f"ERR {seq} SYNTAX"
-        ms, counts = values[0], tuple(values[1:])
-        if self.latched:
-            return f"ERR {seq} {self.latched}"
-        if not self.enabled:
-            return f"ERR {seq} NOT_ENABLED"
-        if not self.homed:
-            return f"ERR {seq} NOT_HOMED"
-        for i, ((lo, hi), c) in enumerate(zip(self.hard, counts), start=1):
-            if not lo <= c <= hi:  # type: ignore[operator]
-                return f"ERR {seq} RANGE axis={i}"
-        if len(self.segs) >= self.opts.queue_depth:
-            return f"ERR {seq} QUEUE_FULL"
-        start = tuple(float(c) for c in self.segs[-1].target) if self.segs else tuple(self.pos)
-        seg = _Seg(seq, start, counts, ms / 1000.0)  # type: ignore[arg-type]
-        if not self.segs:
-            seg.t0 = self.clock()
-        self.segs.append(seg)
-        self.moves_accepted += 1
-        return f"OK {seq} free={self.opts.queue_depth - len(self.segs)}"
-
-    def _after_reply(self, cmd: P.HostLine) -> None:
-        if cmd.verb != "MOVE" or not self.last_reply or not self.last_reply[0].startswith(b"OK"):
-            return
-        if self.opts.estop_after and self.moves_accepted == self.opts.estop_after:
-            self.press_estop()
-        if self.opts.fault_after and self.moves_accepted == self.opts.fault_after:
-            self._fault(self.opts.fault_code, self.opts.fault_axis)
+    def _after_move(self, accepted: int) -> None:
+        if self.opts.estop_after and accepted == self.opts.estop_after:
+            self.hw.estop = True
+            self.core.tick(self.core.now_us)
+        if self.opts.fault_after and accepted == self.opts.fault_after:
+            self.core.fault(self.opts.fault_code, self.opts.fault_axis)
 
     # -- motion ---------------------------------------------------------------------
-    def _halt(self) -> None:
-        self.segs.clear()
-        self.homing = None
-
-    def _fault(self, code: str, axis: int) -> None:
-        self._halt()
-        self.enabled = False
-        if self.latched != "ESTOP":
-            self.latched = "FAULT"
-        self._send_line(f"EVT FAULT code={code} axis={axis}")
-
-    def _advance(self, now: float) -> None:
-        """Run segments, homing and the watchdog forward to ``now`` (lock held)."""
-        if self.enabled and now - self.last_valid_t > self.opts.watchdog_s:
-            t_dog = self.last_valid_t + self.opts.watchdog_s
-            self._advance_motion(t_dog)
-            self._fault("WATCHDOG", 0)
-            return
-        self._advance_motion(now)
-        if (self.opts.estop_at_s is not None and not self.estop_input and self.latched != "ESTOP"
-                and now - self.t_start >= self.opts.estop_at_s):
+    def _tick(self, now: float) -> None:
+        """The core forward to ``now``, with the timed e-stop switch (lock held)."""
+        at = self.opts.estop_at_s
+        if at is not None and now - self.t_start >= at:
             self.opts.estop_at_s = None
-            self.press_estop()
-
-    def _advance_motion(self, now: float) -> None:
-        if self.homing is not None:
-            seq, t0, t_end, start = self.homing
-            if now >= t_end:
-                self.pos = [0.0] * self.n
-                self.homing = None
-                self.homed = True
-                self._send_line(f"DONE {seq}")
-            else:
-                f = (now - t0) / (t_end - t0)
-                self.pos = [s * (1.0 - f) for s in start]
-            return
-        while self.segs:
-            seg = self.segs[0]
-            if seg.t0 is None:
-                seg.t0 = now
-            t_end = seg.t0 + seg.duration_s
-            if now < t_end:
-                f = (now - seg.t0) / seg.duration_s
-                self.pos = [a + (b - a) * f for a, b in zip(seg.start, seg.target)]
-                return
-            self.pos = [float(c) for c in seg.target]
-            self.segs.popleft()
-            self._send_line(f"DONE {seg.seq}")
-            if self.segs:
-                self.segs[0].t0 = t_end
-
-    def _next_deadline(self, now: float) -> float:
-        times = [now + 0.05]
-        if self.homing is not None:
-            times.append(self.homing[2])
-        if self.segs and self.segs[0].t0 is not None:
-            times.append(self.segs[0].t0 + self.segs[0].duration_s)
-        if self.enabled:
-            times.append(self.last_valid_t + self.opts.watchdog_s + 1e-4)
-        if self.opts.estop_at_s is not None:
-            times.append(self.t_start + self.opts.estop_at_s)
-        return min(times)
+            self.hw.estop = True
+        self.core.tick(self._us(now))
+        self._flush()
 
     def _motion(self) -> None:
         with self._lock:
             while self._running:
                 now = self.clock()
-                self._advance(now)
-                wait = self._next_deadline(now) - self.clock()
-                if wait > 0:
-                    self._wake.wait(timeout=wait)
+                self._tick(now)
+                wait = 0.05
+                nxt = self.core.next_event_us()
+                if nxt is not None:
+                    wait = min(wait, self._t0 + nxt / 1e6 - self.clock())
+                if self.opts.estop_at_s is not None:
+                    wait = min(wait, self.t_start + self.opts.estop_at_s - self.clock())
+                self._wake.wait(timeout=max(wait, 0.0002))
 
 
 CONSOLE_COMMANDS = {
     "estop": "press the e-stop button",
     "release": "release the e-stop button (the controller then waits for RESET)",
     "fault": "a DRIVE fault on axis 1",
+    "limit": "open axis 1's limit switch (a LIMIT_SWITCH fault while the drives are on)",
+    "clear": "close the limit switches again",
 }
 
 
@@ -507,6 +455,10 @@ def run_console_command(emulator: "Emulator", line: str) -> str | None:
         emulator.release_estop()
     elif word == "fault":
         emulator.inject_fault("DRIVE", 1)
+    elif word == "limit":
+        emulator.set_limit(1)
+    elif word == "clear":
+        emulator.set_limit(0)
     else:
         return None
     return CONSOLE_COMMANDS[word]

@@ -11,15 +11,27 @@ Before anything moves the gate checks, and refuses in words with the numbers:
 - the plan: every segment end within the soft limits less the arm's margin, the
   planner's reach, singularity and keep-out verdicts, the tool speed cap and each
   joint's speed cap, the cap on one jog step;
+- the plan's whole swept path against the keep-out zones, by the gate itself (a plan
+  with an empty problem list that drives into a zone is refused). A motion that starts
+  inside a zone may only lead out of it: along the whole path its penetration never
+  grows and it enters no other zone, at ESCAPE_SPEED_PCT of the speed caps;
 - the approval: it binds to exactly that proposal (the very object the gate made, which
-  is offered once), to the arm's position when it was made, and expires APPROVAL_TTL_S (10 s; a whole program:
-  PROGRAM_APPROVAL_TTL_S, 60 s) after it was made.
+  is offered once, and its content: a digest of its actions), to the arm's position when
+  it was made, to no stop since, and expires APPROVAL_TTL_S (10 s; a whole program:
+  PROGRAM_APPROVAL_TTL_S, 60 s) after it was made;
+- the journal: no motion starts while it cannot be written (``journal_error``).
+
+:meth:`Interlock.stop` calls the driver's stop before anything else, from any thread;
+the journal is written behind motion (drivers/journal.py) and never delays or prevents
+a stop.
 
 This is a software interlock, not a safety-rated function (README, Safety).
 """
 
 from __future__ import annotations
 
+import dataclasses
+import hashlib
 import itertools
 import math
 import threading
@@ -30,13 +42,18 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from benchjog.drivers.base import Driver, DriverEvent, DriverState, LinkError
 from benchjog.drivers.journal import Journal, NullJournal
 from benchjog.drivers.registry import create_driver
 from benchjog.kinematics.limits import fmt
 from benchjog.kinematics.model import Arm, Segment
-from benchjog.kinematics.planner import JOINT, Plan, plan_jog, plan_joint_move, plan_move
+from benchjog.kinematics.planner import JOINT, LINE_TOLERANCE_MM, Plan, plan_jog, plan_joint_move, plan_move
 from benchjog.kinematics.solve import check_joints, tool_from_joints
+from benchjog.kinematics.sweep import (lever_mm, points_from_joints, sweep_zones, z_step_mm,
+                                       zone_gaps)
+from benchjog.kinematics.scara import flange_z_mm
 
 FRESH_S = 0.5              # the driver's position must be newer than this
 START_TOL_RAD = math.radians(0.05)  # the arm "has moved" beyond this since the proposal
@@ -44,6 +61,11 @@ START_TOL_MM = 0.05
 SPEED_TOL = 1.01           # 1 % for the rounding of durations to whole milliseconds
 JOINT_JOG_MAX_DEG = 15.0   # the largest single joint-jog step (deg, or mm on the quill)
 TOOL_SPEED_SAMPLES = 8     # sub-samples per segment when bounding the tool speed
+ESCAPE_SPEED_PCT = 25.0    # a motion out of a keep-out zone runs at this share of the caps
+ESCAPE_STEP_MM = 0.02      # its penetration is sampled every this much motion of the arm ...
+ESCAPE_SAMPLES_MAX = 20001  # ... with at most this many poses per segment
+ESCAPE_TOL_MM = 1e-6       # rounding allowed when comparing penetrations
+ISSUED_MAX = 64            # proposals waiting for an answer; older ones are dropped
 
 
 @dataclass(frozen=True)
@@ -80,6 +102,8 @@ class Proposal:
     start_joints: tuple[float, ...]
     created_s: float
     token: int = 0
+    notes: tuple[str, ...] = ()   # what the person must know: a zone escape, drives coming on
+    enables: bool = False         # the drives are off and come on only after the yes
 
     @property
     def ok(self) -> bool:
@@ -109,6 +133,7 @@ class Proposal:
                 out.append(f"step {index + 1}: output {action.channel} {'on' if action.on else 'off'}")
         if len(self.actions) > 1:
             out.append(f"total duration {self.duration_s:.2f} s")
+        out.extend(f"NOTE: {note}" for note in self.notes)
         out.extend(f"REFUSED: {reason}" for reason in self.verdict.reasons)
         return out
 
@@ -128,6 +153,7 @@ class RunResult:
     detail: str
     segments_sent: int = 0
     step: int | None = None
+    underruns: int = 0   # times the controller's queue ran empty mid-move (stop-and-go)
 
 
 def _outside(joint: Any, margin: float, value: float) -> float:
@@ -152,6 +178,104 @@ def wire_duration_s(duration_s: float) -> float:
     return max(1, round(duration_s * 1000.0)) / 1000.0
 
 
+def _canon(value: Any) -> Any:
+    """A canonical, exact text form of a proposal's parts for its digest."""
+    if isinstance(value, float):
+        return value.hex()
+    if isinstance(value, (tuple, list)):
+        return [_canon(v) for v in value]
+    if isinstance(value, Plan):
+        return ["plan", [[_canon(tuple(s.joints)), _canon(s.duration_s)] for s in value.segments],
+                _canon(tuple(value.problems))]
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return [type(value).__name__] + [_canon(getattr(value, f.name))
+                                         for f in dataclasses.fields(value)]
+    return repr(value)
+
+
+def proposal_digest(proposal: "Proposal") -> str:
+    """SHA-256 over everything a proposal would do and everything it showed: the
+    approval binds to this, so a proposal changed in place after it was made is refused."""
+    parts = [proposal.request, _canon(proposal.actions), _canon(proposal.verdict.ok),
+             _canon(proposal.verdict.reasons), _canon(tuple(proposal.start_joints)),
+             _canon(proposal.created_s), proposal.token, _canon(proposal.notes), proposal.enables]
+    return hashlib.sha256(repr(parts).encode("utf-8")).hexdigest()
+
+
+def _box_signed_mm(px: np.ndarray, py: np.ndarray, zone: Any) -> np.ndarray:
+    """Signed distance from points to a zone's footprint (negative inside: minus the
+    distance to the nearest edge). Box: outside, the Euclidean distance; circle:
+    |p - c| - r."""
+    if zone.kind == "circle":
+        return np.hypot(px - zone.cx, py - zone.cy) - zone.r
+    dx = np.maximum(zone.x_min - px, px - zone.x_max)
+    dy = np.maximum(zone.y_min - py, py - zone.y_max)
+    outside = np.hypot(np.maximum(dx, 0.0), np.maximum(dy, 0.0))
+    return np.where((dx > 0) | (dy > 0), outside, np.maximum(dx, dy))
+
+
+def _segment_min_signed_mm(ax, ay, bx, by, zone, iterations: int = 64) -> np.ndarray:
+    """The least signed distance of any point of segments ab to a zone. The signed
+    distance to a convex set is a convex function, so along a segment it has one
+    minimum: a ternary search finds it (to 1e-11 of the segment's length)."""
+    lo = np.zeros_like(ax)
+    hi = np.ones_like(ax)
+    for _ in range(iterations):
+        m1 = lo + (hi - lo) / 3.0
+        m2 = hi - (hi - lo) / 3.0
+        f1 = _box_signed_mm(ax + m1 * (bx - ax), ay + m1 * (by - ay), zone)
+        f2 = _box_signed_mm(ax + m2 * (bx - ax), ay + m2 * (by - ay), zone)
+        lower = f1 < f2
+        hi = np.where(lower, m2, hi)
+        lo = np.where(lower, lo, m1)
+    t = (lo + hi) / 2.0
+    ends = np.minimum(_box_signed_mm(ax, ay, zone), _box_signed_mm(bx, by, zone))
+    return np.minimum(ends, _box_signed_mm(ax + t * (bx - ax), ay + t * (by - ay), zone))
+
+
+def zone_penetrations_mm(arm: Arm, q: np.ndarray) -> np.ndarray:
+    """How deep the arm is in each keep-out zone at joint arrays q (N, n_joints) -> (N, Z):
+    the most any part would have to move (in the base plane, or in height on a SCARA)
+    to be clear of the zone grown by the link clearance. > 0 exactly when a part is in
+    the zone (as benchjog.kinematics.zones sees it); <= 0 clear.
+
+    Worked example (by hand): the planar demo arm at joints (0, 90 deg) has its forearm
+    on x = 220 mm from y = 0 to 160; a box x 210..250, y 100..200 holds the forearm's
+    top, 10 mm inside the box's left edge, plus the 12 mm link clearance: 22 mm.
+
+    >>> from benchjog.console.cell.armfile import builtin_arm
+    >>> from benchjog.kinematics.model import Zone
+    >>> box = Zone("fixture", "box", x_min=210.0, x_max=250.0, y_min=100.0, y_max=200.0)
+    >>> arm = dataclasses.replace(builtin_arm("planar-bench"), zones=(box,))
+    >>> round(float(zone_penetrations_mm(arm, [(0.0, math.pi / 2)])[0, 0]), 6)
+    22.0
+    """
+    q = np.atleast_2d(np.asarray(q, dtype=float))
+    elbow, tool = points_from_joints(arm, q)
+    origin = np.zeros_like(elbow)
+    inf = np.full(q.shape[0], math.inf)
+    if arm.is_scara:
+        j1 = arm.joints[0]
+        flange = flange_z_mm(arm)
+        tip = tool[:, 2]
+        base = np.full(q.shape[0], j1.d_mm)
+        top = np.full(q.shape[0], flange)
+        parts = [(origin, elbow, base, base), (elbow, tool[:, :2], top, top),
+                 (tool[:, :2], tool[:, :2], np.minimum(tip, flange), np.maximum(tip, flange))]
+    else:
+        parts = [(origin, elbow, -inf, inf), (elbow, tool[:, :2], -inf, inf)]
+    margin = arm.link_clearance_mm
+    out = np.full((q.shape[0], len(arm.zones)), -math.inf)
+    for zi, zone in enumerate(arm.zones):
+        for a, b, z_lo, z_hi in parts:
+            planar = _segment_min_signed_mm(a[:, 0], a[:, 1], b[:, 0], b[:, 1], zone)
+            with np.errstate(invalid="ignore"):
+                z_gap = np.maximum(z_lo - zone.z_max, zone.z_min - z_hi)
+            z_gap = np.nan_to_num(z_gap, nan=-math.inf, posinf=math.inf, neginf=-math.inf)
+            out[:, zi] = np.maximum(out[:, zi], margin - np.maximum(planar, z_gap))
+    return out
+
+
 class SimHooks:
     """What tests may do to the simulated arm behind an interlock: inject trouble and
     read its command record. No motion calls."""
@@ -171,6 +295,10 @@ class SimHooks:
     def inject_stall(self, axis: int = 1) -> None:
         self._driver.inject_stall(axis)
 
+    def tool_in_plate_mm(self) -> tuple[float, ...]:
+        """The simulated bench's ruler: where the true arm's tool tip is on the plate."""
+        return self._driver.tool_in_plate_mm()
+
     @property
     def commands(self) -> tuple:
         return tuple(self._driver.commands)
@@ -185,7 +313,7 @@ class Interlock:
         return self.PROGRAM_APPROVAL_TTL_S if len(proposal.actions) > 1 else self.APPROVAL_TTL_S
 
     def __init__(self, arm: Arm, driver: Driver, *, journal: Journal | NullJournal | None = None,
-                 clock: Callable[[], float] = time.monotonic):
+                 clock: Callable[[], float] = time.monotonic, enable_on_yes: bool = False):
         self._arm = arm
         self.__driver = driver
         self._journal = journal if journal is not None else NullJournal()
@@ -195,26 +323,35 @@ class Interlock:
         self._resume.set()
         self._busy = threading.Lock()
         self._tokens = itertools.count(1)
-        self._issued: dict[int, Proposal] = {}  # proposals made here and not yet used
+        # Proposals made here, not yet used: token -> (proposal, digest, stop count).
+        # The lock guards only the dict (never held over I/O or a driver call).
+        self._issued: dict[int, tuple[Proposal, str, int]] = {}
+        self._issued_lock = threading.Lock()
+        self._stops = 0            # stop() calls so far: an approval made before one is void
         self._events: list[DriverEvent] = []
         self._events_lock = threading.Lock()
         self.sim = SimHooks(driver) if getattr(driver, "name", "") == "sim" else None
         self.link_error: str | None = None  # why the driver could not be opened, if so
         self._last_end: tuple[float, ...] | None = None  # where the last finished plan ended
+        # The command line: the drives stay off until the person says yes (then the gate
+        # switches them on); the console leaves them to the person's drives key.
+        self.enable_on_yes = enable_on_yes
 
     # -- life cycle --------------------------------------------------------------------
     @classmethod
     def open(cls, arm: Arm, driver: str = "sim", *, journal: Any = None,
              clock: Callable[[], float] = time.monotonic, require_link: bool = True,
-             **driver_options: Any) -> "Interlock":
+             enable_on_yes: bool = False, **driver_options: Any) -> "Interlock":
         """Build the driver by registry name, open it, and wrap it.
 
         Args:
-            journal: None for a new journal file in the user's data directory, a path
-                (file) to append to, or False for none.
+            journal: None for a new journal file in the user's state directory (rotated),
+                a path (file) to append to, a Journal, or False for none.
             require_link: False lets a console start while the controller cannot be
                 reached: the gate then reports "not connected" (``link_error`` says why)
                 and :meth:`reset` tries to connect again.
+            enable_on_yes: proposals may be made with the drives off; :meth:`execute`
+                and :meth:`home` switch them on after the yes, never before.
         """
         if journal is None:
             journal_obj: Journal | NullJournal = Journal.for_run()
@@ -242,7 +379,7 @@ class Interlock:
             instance.close()
             journal_obj.close()
             raise
-        gate = cls(arm, instance, journal=journal_obj, clock=clock)
+        gate = cls(arm, instance, journal=journal_obj, clock=clock, enable_on_yes=enable_on_yes)
         gate.link_error = link_error
         journal_obj.record("open", arm=arm.name, driver=driver, link=instance.state().link,
                            error=link_error)
@@ -256,13 +393,35 @@ class Interlock:
     def journal_path(self) -> Path | None:
         return getattr(self._journal, "path", None)
 
+    @property
+    def journal_error(self) -> str | None:
+        """Why the motion journal is not being written (one line), or None. While it is
+        set no motion starts; stop still works. :meth:`reset` tries the journal again."""
+        return getattr(self._journal, "error", None)
+
+    @property
+    def journal_lines_lost(self) -> int:
+        return int(getattr(self._journal, "lost", 0))
+
+    def wait_journal(self, timeout_s: float) -> bool:
+        """Wait until the journal has written what was recorded so far (the end of a
+        command, tests). Never on a motion path: motion never waits on the journal."""
+        return self._journal.wait_written(timeout_s)
+
     def close(self) -> None:
+        """Stop (the driver's stop first), release the driver, then write and close the
+        journal."""
         self.stop()
         try:
             self.__driver.close()
+        except Exception:  # noqa: BLE001 - the arm was stopped first; a dead link is closed
+            pass
         finally:
-            self._journal.record("close")
-            self._journal.close()
+            try:
+                self._journal.record("close")
+                self._journal.close()
+            except Exception:  # noqa: BLE001 - a broken journal object: journal_error says so
+                pass
 
     def __enter__(self) -> "Interlock":
         return self
@@ -293,17 +452,24 @@ class Interlock:
         return fresh
 
     # -- checks ------------------------------------------------------------------------
-    def _state_reasons(self, state: DriverState, *, need_homed: bool = True) -> list[str]:
+    def _state_reasons(self, state: DriverState, *, need_homed: bool = True,
+                       need_enabled: bool = True) -> list[str]:
         reasons = []
+        journal_error = self.journal_error
+        if journal_error:
+            reasons.append(f"the motion journal cannot be written ({journal_error}): no motion "
+                           f"starts until it can (reset tries again; stop always works)")
         if not state.is_open:
             reasons.append("the driver is not connected")
             return reasons
         if state.latched:
             reasons.append(f"latched: {state.latched} (reset first)")
-        if not state.enabled:
+        if need_enabled and not state.enabled:
             reasons.append("drives are off (enable first)")
         if need_homed and not state.homed:
             reasons.append("the arm is not homed (home first)")
+        if not getattr(state, "fresh", True):  # PROTOCOL.md: no plan from a pose older than a stop
+            reasons.append("position report is stale: the arm stopped or halted since (wait for a fresh one)")
         if state.age_s > FRESH_S:
             reasons.append(f"position report is {state.age_s:.2f} s old (limit {FRESH_S:g} s)")
         if state.queued > 0 or state.mode.value == "MOVING":
@@ -311,14 +477,28 @@ class Interlock:
         return reasons
 
     def _segment_reasons(self, start: Sequence[float], segments: Sequence[Segment]) -> list[str]:
+        """Every check of one plan's segments from ``start``: malformed values, soft
+        limits less the margin, joint and tool speed caps, and the keep-out zones over
+        the whole swept path (a start inside a zone: the escape rule, at reduced speed)."""
+        return self._segment_findings(start, segments)[0]
+
+    def _segment_findings(self, start: Sequence[float], segments: Sequence[Segment],
+                          ) -> tuple[list[str], list[str]]:
+        """(refusal reasons, notes for the confirmation) of :meth:`_segment_reasons`."""
         arm = self._arm
         reasons: list[str] = []
         previous = tuple(start)
         for n, seg in enumerate(segments, 1):
             if len(seg.joints) != arm.n_joints or not all(math.isfinite(v) for v in seg.joints):
-                return [f"segment {n}: malformed joint values"]
+                return [f"segment {n}: malformed joint values"], []
             if not (0.0005 <= seg.duration_s <= 60.0):
-                return [f"segment {n}: duration {seg.duration_s:.4f} s outside 0.001..60 s"]
+                return [f"segment {n}: duration {seg.duration_s:.4f} s outside 0.001..60 s"], []
+        if len(tuple(start)) != arm.n_joints or not all(math.isfinite(v) for v in start):
+            return ["the plan's start is malformed"], []
+        tool_speeds = self._tool_speeds(previous, segments)  # all at once: the hot path of a check
+        inside = self._zones_inside(start)
+        share = ESCAPE_SPEED_PCT / 100.0 if inside else 1.0
+        for n, seg in enumerate(segments, 1):
             wire_s = wire_duration_s(seg.duration_s)  # what the controller will be told
             for joint, value, before in zip(arm.joints, seg.joints, previous):
                 margin = arm.margin(joint)
@@ -328,38 +508,112 @@ class Interlock:
                         f"limits {fmt(joint, joint.min)}..{fmt(joint, joint.max)} less the "
                         f"margin {joint.to_display(margin):g} {joint.unit}")
                 speed = abs(value - before) / wire_s
-                if speed > joint.max_speed * SPEED_TOL:
+                if speed > joint.max_speed * share * SPEED_TOL:
                     reasons.append(
                         f"segment {n}: {joint.name} speed {joint.to_display(speed):.1f} "
-                        f"{joint.unit}/s exceeds its cap {joint.to_display(joint.max_speed):g} "
-                        f"{joint.unit}/s")
-            tool_speed = self._tool_speed(previous, seg.joints, wire_s)
-            if tool_speed > arm.tool_speed_max_mm_s * SPEED_TOL:
+                        f"{joint.unit}/s exceeds its cap {joint.to_display(joint.max_speed * share):g} "
+                        f"{joint.unit}/s" + (" (reduced: out of a keep-out zone)" if inside else ""))
+            tool_speed = float(tool_speeds[n - 1])
+            if tool_speed > arm.tool_speed_max_mm_s * share * SPEED_TOL:
                 reasons.append(f"segment {n}: tool speed {tool_speed:.1f} mm/s exceeds the cap "
-                               f"{arm.tool_speed_max_mm_s:g} mm/s")
+                               f"{arm.tool_speed_max_mm_s * share:g} mm/s"
+                               + (" (reduced: out of a keep-out zone)" if inside else ""))
             if reasons:
-                return reasons
+                return reasons, []
             previous = seg.joints
-        return reasons
+        return self._zone_findings(start, segments, inside)
 
-    def _tool_speed(self, start: Sequence[float], end: Sequence[float], duration_s: float,
-                    ) -> float:
-        """Peak tool speed over a segment, bounded by sub-sampled chords (mm/s)."""
+    def _zones_inside(self, joints: Sequence[float]) -> dict[int, float]:
+        """Zone index -> penetration (mm) for every keep-out zone the arm is in."""
+        if not self._arm.zones:
+            return {}
+        gaps = zone_gaps(self._arm, np.array([tuple(joints)], dtype=float))[0]
+        if not (gaps.min(axis=2) < 0).any():
+            return {}   # clear of every zone (the cheap, exact test first)
+        depth = zone_penetrations_mm(self._arm, np.array([tuple(joints)]))[0]
+        return {i: float(d) for i, d in enumerate(depth) if d > 0}
+
+    def _zone_findings(self, start: Sequence[float], segments: Sequence[Segment],
+                       inside: dict[int, float]) -> tuple[list[str], list[str]]:
+        """The gate's own keep-out check of the whole swept path. Zones the arm is not
+        in: certified sweep (benchjog.kinematics.sweep.sweep_zones), no contact allowed.
+        Zones it starts in: the penetration, sampled every ESCAPE_STEP_MM of the arm's
+        motion, must never grow."""
         arm = self._arm
-        points = []
-        for k in range(TOOL_SPEED_SAMPLES + 1):
-            f = k / TOOL_SPEED_SAMPLES
-            values = tuple(a + (b - a) * f for a, b in zip(start, end))
-            pose = tool_from_joints(arm, values)
-            points.append(pose[:3] if arm.is_scara else pose[:2])
-        dt = duration_s / TOOL_SPEED_SAMPLES
-        return max(math.dist(p, q) / dt for p, q in zip(points, points[1:]))
+        if not arm.zones or not segments:
+            return [], []
+        knots = np.array([tuple(start)] + [tuple(s.joints) for s in segments], dtype=float)
+        reasons: list[str] = []
+        others = tuple(z for i, z in enumerate(arm.zones) if i not in inside)
+        if others:
+            sweep = sweep_zones(dataclasses.replace(arm, zones=others), knots)
+            if sweep.contact is not None:
+                c = sweep.contact
+                parts = ", ".join(c.parts) or "the arm"
+                reasons.append(f"segment {c.segment + 1}: {parts} would enter keep-out zone "
+                               f"{c.zone!r} at {100 * c.tau:.0f}% of that segment (clearance "
+                               f"{arm.link_clearance_mm:g} mm)")
+        if not inside:
+            return reasons, []
+        names = [arm.zones[i].name for i in inside]
+        zone_idx = np.array(sorted(inside))
+        depth_before = np.array([inside[i] for i in sorted(inside)])
+        depth_end = depth_before
+        for n in range(len(segments)):
+            qa, qb = knots[n], knots[n + 1]
+            dq = qb - qa
+            rate = float(max(lever_mm(arm, dq), z_step_mm(arm, dq)))
+            count = int(min(ESCAPE_SAMPLES_MAX, max(2, math.ceil(rate / ESCAPE_STEP_MM) + 1)))
+            tau = np.linspace(0.0, 1.0, count)
+            depth = zone_penetrations_mm(arm, qa + tau[:, None] * dq)[:, zone_idx]
+            track = np.vstack([depth_before[None, :], depth])
+            rise = np.diff(track, axis=0) > ESCAPE_TOL_MM
+            if rise.any():
+                k, z = np.argwhere(rise)[0]
+                reasons.append(
+                    f"segment {n + 1}: would go deeper into keep-out zone "
+                    f"{names[z]!r} (from {track[k, z]:.2f} to {track[k + 1, z]:.2f} mm deep at "
+                    f"{100 * tau[max(k - 1, 0)]:.0f}% of that segment): from inside a zone only "
+                    f"a motion that leads out of it is allowed")
+                return reasons, []
+            depth_before = depth[-1]
+            depth_end = depth[-1]
+        words = ", ".join(f"{names[k]!r} ({inside[i]:.2f} mm deep)"
+                          for k, i in enumerate(sorted(inside)))
+        ends = ", ".join(f"{names[k]!r} {'clear' if d <= 0 else f'{d:.2f} mm deep'}"
+                         for k, d in enumerate(depth_end))
+        notes = [f"the arm starts inside keep-out zone {words}: this motion only leads out of "
+                 f"it (its depth never grows along the whole path; at the end: {ends}) and "
+                 f"enters no other zone; it runs at reduced speed, {ESCAPE_SPEED_PCT:g} % of "
+                 f"the caps"]
+        return reasons, notes
+
+    def _tool_speeds(self, start: Sequence[float], segments: Sequence[Segment]) -> np.ndarray:
+        """Peak tool speed over each segment (mm/s) at its wire duration, bounded by
+        sub-sampled chords: the tool point at TOOL_SPEED_SAMPLES + 1 poses along each
+        joint-linear segment, by the closed-form forward kinematics, all at once."""
+        if not segments:
+            return np.zeros(0)
+        q = np.array([tuple(start)] + [seg.joints for seg in segments], dtype=float)
+        a, step = q[:-1, None, :], np.diff(q, axis=0)[:, None, :]
+        f = np.linspace(0.0, 1.0, TOOL_SPEED_SAMPLES + 1)[None, :, None]
+        _, tool = points_from_joints(self._arm, a + f * step)
+        if not self._arm.is_scara:
+            tool = tool[..., :2]
+        chords = np.linalg.norm(np.diff(tool, axis=1), axis=2).max(axis=1)
+        wire = np.array([wire_duration_s(seg.duration_s) for seg in segments])
+        return chords * TOOL_SPEED_SAMPLES / wire
 
     def check_actions(self, actions: Sequence[Action], start_joints: Sequence[float] | None = None,
                       ) -> Verdict:
         """The static checks, without the driver's state: for dry runs."""
+        return Verdict.of(self._check_actions(actions, start_joints)[0])
+
+    def _check_actions(self, actions: Sequence[Action], start_joints: Sequence[float] | None,
+                       ) -> tuple[list[str], list[str]]:
         start = tuple(start_joints) if start_joints is not None else None
         reasons: list[str] = []
+        notes: list[str] = []
         for index, action in enumerate(actions):
             prefix = f"step {index + 1}: " if len(actions) > 1 else ""
             if isinstance(action, Plan):
@@ -375,7 +629,9 @@ class Interlock:
                         start = None
                         continue
                 begin = start if start is not None else action.summary.start_joints
-                reasons += [prefix + r for r in self._segment_reasons(begin, action.segments)]
+                found, said = self._segment_findings(begin, action.segments)
+                reasons += [prefix + r for r in found]
+                notes += [prefix + r for r in said]
                 start = action.segments[-1].joints if action.segments else begin
             elif isinstance(action, Dwell):
                 if not (math.isfinite(action.seconds) and 0 <= action.seconds <= 3600):
@@ -385,15 +641,23 @@ class Interlock:
                     reasons.append(f"{prefix}output channel {action.channel} outside 0..7")
             else:
                 reasons.append(f"{prefix}unknown action {action!r}")
-        return Verdict.of(reasons)
+        return reasons, notes
 
     # -- proposals (planning only) -----------------------------------------------------
+    def _enabling(self, state: DriverState) -> bool:
+        """True when the drives are off and this gate switches them on after a yes."""
+        return self.enable_on_yes and state.is_open and not state.enabled
+
     def _propose(self, request: str, actions: Sequence[Action], *, jog_mm: float | None = None,
                  jog_joint: tuple[int, float] | None = None,
                  start_joints: Sequence[float] | None = None) -> Proposal:
         state = self.state()
         start = tuple(start_joints) if start_joints is not None else state.joints
-        reasons = self._state_reasons(state)
+        enables = self._enabling(state)
+        # A controller with its drives off may not say whether it is homed (PROTOCOL.md:
+        # mode DISABLED): then that is checked right after the drives come on.
+        homed_unknown = enables and not state.homed
+        reasons = self._state_reasons(state, need_enabled=not enables, need_homed=not homed_unknown)
         if jog_mm is not None and abs(jog_mm) > self._arm.jog_step_max_mm:
             reasons.append(f"jog step {abs(jog_mm):g} mm exceeds the cap "
                            f"{self._arm.jog_step_max_mm:g} mm")
@@ -403,35 +667,69 @@ class Interlock:
             if step > JOINT_JOG_MAX_DEG:
                 reasons.append(f"jog step {step:g} {joint.unit} on {joint.name} exceeds the cap "
                                f"{JOINT_JOG_MAX_DEG:g} {joint.unit}")
-        reasons += self.check_actions(actions, start).reasons
+        found, notes = self._check_actions(actions, start)
+        reasons += found
+        if enables:
+            notes.append("the drives are off: they are switched on only after your yes"
+                          + ("; whether the arm is homed is read then, and an unhomed arm is "
+                             "refused before anything moves" if homed_unknown else ""))
         token = next(self._tokens)
         now = self._clock()
-        proposal = Proposal(request, tuple(actions), Verdict.of(reasons), start, now, token)
-        stale = [t for t, p in self._issued.items()
-                 if now - p.created_s > self.PROGRAM_APPROVAL_TTL_S]
-        for old in stale:  # past every approval limit: they could only expire
-            del self._issued[old]
-        self._issued[token] = proposal
+        with self._issued_lock:
+            stops = self._stops
+        proposal = Proposal(request, tuple(actions), Verdict.of(reasons), start, now, token,
+                            tuple(notes), enables)
+        self._issue(proposal, stops)
         self._journal.record("request", token=token, request=request, ok=proposal.ok,
-                             reasons=list(proposal.verdict.reasons),
+                             start=list(start), reasons=list(proposal.verdict.reasons),
+                             notes=list(notes),
                              segments=sum(len(p.segments) for p in proposal.plans),
                              duration_s=proposal.duration_s)
         return proposal
 
+    def _issue(self, proposal: Proposal, stops: int) -> None:
+        """Keep a proposal that may be confirmed; a refused one is never kept. Safe from
+        any number of threads at once."""
+        if not proposal.ok:
+            return
+        digest = proposal_digest(proposal)
+        now = proposal.created_s
+        with self._issued_lock:
+            if stops != self._stops:
+                return   # a stop came while it was being made: it is void already
+            for old in [t for t, (p, _, _) in self._issued.items()
+                        if now - p.created_s > self.PROGRAM_APPROVAL_TTL_S]:
+                del self._issued[old]   # past every approval limit: they could only expire
+            while len(self._issued) >= ISSUED_MAX:
+                del self._issued[min(self._issued)]
+            self._issued[proposal.token] = (proposal, digest, stops)
+
+    def _planning(self, start: Sequence[float], speed_pct: float) -> tuple[Arm, float]:
+        """The arm and speed to plan with from ``start``: inside a keep-out zone, the
+        planner is shown the other zones only (the gate checks the way out itself) and
+        the speed is cut to ESCAPE_SPEED_PCT."""
+        inside = self._zones_inside(start)
+        if not inside:
+            return self._arm, speed_pct
+        others = tuple(z for i, z in enumerate(self._arm.zones) if i not in inside)
+        return dataclasses.replace(self._arm, zones=others), min(speed_pct, ESCAPE_SPEED_PCT)
+
     def propose_move(self, target: Sequence[float], *, branch: Any = None, path: str = JOINT,
-                     speed_pct: float = 100.0) -> Proposal:
+                     speed_pct: float = 100.0, tolerance_mm: float = LINE_TOLERANCE_MM) -> Proposal:
         start = self.state().joints
-        plan = plan_move(self._arm, start, tuple(target), branch=branch, path=path,
-                         speed_pct=speed_pct)
+        arm, pct = self._planning(start, speed_pct)
+        plan = plan_move(arm, start, tuple(target), branch=branch, path=path, speed_pct=pct,
+                         tolerance_mm=tolerance_mm)
         words = self._target_words(tuple(target))
         chosen = plan.summary.branch.value if plan.summary.branch else "no branch"
-        return self._propose(f"move to {words} ({chosen}, {path} path, {speed_pct:g} %)", [plan],
+        return self._propose(f"move to {words} ({chosen}, {path} path, {pct:g} %)", [plan],
                              start_joints=start)
 
     def propose_joints(self, joints: Sequence[float], *, speed_pct: float = 100.0) -> Proposal:
         joints = check_joints(self._arm, joints)
         start = self.state().joints
-        plan = plan_joint_move(self._arm, start, joints, speed_pct=speed_pct)
+        arm, pct = self._planning(start, speed_pct)
+        plan = plan_joint_move(arm, start, joints, speed_pct=pct)
         shown = ", ".join(f"{j.name} {fmt(j, v)}" for j, v in zip(self._arm.joints, joints))
         return self._propose(f"move joints to {shown}", [plan], start_joints=start)
 
@@ -439,7 +737,8 @@ class Interlock:
         start = self.state().joints
         last = self._last_end
         base = last if last is not None and self._moved_since(last, start) is None else None
-        plan = plan_jog(self._arm, start, axis, delta, speed_pct=speed_pct, base=base)
+        arm, pct = self._planning(start, speed_pct)
+        plan = plan_jog(arm, start, axis, delta, speed_pct=pct, base=base)
         if axis.startswith("j"):
             index = int(axis[1:]) - 1
             joint = self._arm.joints[index]
@@ -474,29 +773,76 @@ class Interlock:
                              segments_sent=result.segments_sent, step=result.step)
         return result
 
+    def _take(self, proposal: Proposal) -> str | None:
+        """Take a proposal out of the issued ones (it is offered once, whatever the
+        outcome); None when it may go on to the question, else the refusal. A stop
+        since the proposal was made voids it (stop() also empties the issued ones)."""
+        token = proposal.token
+        with self._issued_lock:
+            entry = self._issued.get(token)
+            if entry is not None and entry[0] is proposal:
+                del self._issued[token]   # offered once: a copy does not use it up
+            stops = self._stops
+        if entry is None or entry[0] is not proposal:
+            if not proposal.verdict.ok and entry is None:
+                return "refused: " + "; ".join(proposal.verdict.reasons)
+            return ("refused: this plan was not made by the interlock, was refused, was "
+                    "used already, or was cancelled by a stop")
+        _, digest, made_at = entry
+        if made_at != stops:
+            return "refused: a stop came after this plan was made; plan again"
+        if proposal_digest(proposal) != digest:
+            return "refused: this plan was changed after it was made; plan again"
+        if not proposal.ok:
+            return "refused: " + "; ".join(proposal.verdict.reasons)
+        return None
+
     def execute(self, proposal: Proposal, confirmer: Confirmer) -> RunResult:
         """Confirm, then run a proposal; blocks until it finished or halted."""
         token = proposal.token
-        if self._issued.get(token) is not proposal:
-            return self._end(token, RunResult(False, "refused",
-                                              "refused: this plan was not made by the interlock, "
-                                              "was changed after it was made, or was used already"))
-        del self._issued[token]  # a proposal is offered once, whatever the outcome
-        if not proposal.ok:
-            return self._end(token, RunResult(False, "refused",
-                                              "refused: " + "; ".join(proposal.verdict.reasons)))
+        with self._issued_lock:
+            stops = self._stops
+        refusal = self._take(proposal)
+        if refusal:
+            return self._end(token, RunResult(False, "refused", refusal))
         if not self._busy.acquire(blocking=False):
             return self._end(token, RunResult(False, "refused", "refused: another plan is running"))
         try:
-            return self._end(token, self._confirm_and_run(proposal, confirmer))
+            return self._end(token, self._confirm_and_run(proposal, confirmer, stops))
         finally:
             self._busy.release()
 
-    def _confirm_and_run(self, proposal: Proposal, confirmer: Confirmer) -> RunResult:
-        reasons = self._state_reasons(self.state())
+    def _switch_on(self, proposal: Proposal) -> RunResult | None:
+        """After the yes: the drives on, when this proposal said they would come on.
+        None when all is well, else why nothing moves."""
+        if not proposal.enables or self.state().enabled:
+            return None
+        self._journal.record("enable", token=proposal.token, after_yes=True)
+        try:
+            self.__driver.enable()
+        except Exception as exc:  # noqa: BLE001 - one line; nothing moved
+            self._safe_stop()
+            return RunResult(False, "halted", f"halted: the drives could not be switched on: {exc}")
+        if self._stop.is_set():
+            self._safe_stop()
+            return RunResult(False, "stopped", "stopped: stop was pressed as the drives came on; "
+                             "nothing moved")
+        return None
+
+    def _stopped_since(self, stops: int) -> bool:
+        with self._issued_lock:
+            return stops != self._stops
+
+    def _confirm_and_run(self, proposal: Proposal, confirmer: Confirmer, stops: int) -> RunResult:
+        # Before the drives come on (enable_on_yes) homing may be unknown; the full check
+        # follows once they are on.
+        relaxed = {"need_enabled": not proposal.enables, "need_homed": not proposal.enables}
+        reasons = self._state_reasons(self.state(), **relaxed)
         if reasons:
             return RunResult(False, "refused", "refused: " + "; ".join(reasons))
         self._stop.clear()  # from here on, a stop (even during the question) wins
+        if self._stopped_since(stops):
+            return RunResult(False, "stopped", "stopped: stop was pressed; nothing moved")
         self._journal.record("confirm-asked", token=proposal.token)
         answer = bool(confirmer.confirm(proposal))
         waited = self._clock() - proposal.created_s
@@ -504,13 +850,19 @@ class Interlock:
                              after_s=round(waited, 3))
         if not answer:
             return RunResult(False, "cancelled", "cancelled: nothing moved")
-        if self._stop.is_set():
+        if self._stop.is_set() or self._stopped_since(stops):
             return RunResult(False, "stopped", "stopped: stop was pressed while the question was "
                              "open; nothing moved")
         limit = self.approval_ttl_s(proposal)
         if waited > limit:
             return RunResult(False, "expired", f"expired: confirmed {waited:.1f} s after the plan "
                              f"was made (limit {limit:g} s); plan again")
+        reasons = self._state_reasons(self.state(), **relaxed)
+        if reasons:
+            return RunResult(False, "refused", "refused: " + "; ".join(reasons))
+        failed = self._switch_on(proposal)
+        if failed is not None:
+            return failed
         state = self.state()
         reasons = self._state_reasons(state)
         if reasons:
@@ -528,7 +880,7 @@ class Interlock:
         return latched
 
     def _run(self, proposal: Proposal) -> RunResult:
-        sent = 0
+        sent = underruns = 0
         for index, action in enumerate(proposal.actions):
             step = index if len(proposal.actions) > 1 else None
             where = f" at step {index + 1}" if step is not None else ""
@@ -539,6 +891,7 @@ class Interlock:
                 return self._halted(trouble, sent, step, where, None, None)
             try:
                 if isinstance(action, Plan):
+                    dry = self.__driver.state().queue_ran_dry
                     for n, seg in enumerate(action.segments, 1):
                         trouble = self._trouble()
                         if trouble:
@@ -551,6 +904,8 @@ class Interlock:
                     trouble = self._wait_done(action.summary.duration_s + 5.0)
                     if trouble:
                         return self._halted(trouble, sent, step, where, None, None)
+                    # every start from an empty queue after the first is a stop-and-go
+                    underruns += max(0, self.__driver.state().queue_ran_dry - dry - 1)
                 elif isinstance(action, Dwell):
                     deadline = time.monotonic() + action.seconds
                     while time.monotonic() < deadline:
@@ -564,10 +919,19 @@ class Interlock:
                                          channel=action.channel, on=action.on)
             except Exception as exc:  # noqa: BLE001 - any driver failure halts, in one line
                 self._safe_stop()
-                return RunResult(False, "halted", f"halted{where}: {exc}", sent, step)
+                try:
+                    cause = self._halt_reason()   # name a latch (e-stop, fault) when there is one
+                except Exception:  # noqa: BLE001 - the failure itself is reported below
+                    cause = None
+                detail = f"{cause} ({exc})" if cause and cause not in str(exc) else str(exc)
+                return RunResult(False, "halted", f"halted{where}: {detail}", sent, step)
         ends = [p.segments[-1].joints for p in proposal.plans if p.segments]
         if ends:
             self._last_end = tuple(ends[-1])
+        if underruns:
+            return RunResult(True, "done", f"done (stop-and-go: the controller's queue ran empty "
+                             f"{underruns} time(s) mid-move; the link or the host is too slow for "
+                             f"these segments)", sent, None, underruns)
         return RunResult(True, "done", "done", sent, None)
 
     def _trouble(self) -> str | None:
@@ -577,7 +941,7 @@ class Interlock:
 
     def _halted(self, trouble: str, sent: int, step: int | None, where: str,
                 n: int | None, total: int | None) -> RunResult:
-        self.__driver.stop()
+        self._safe_stop()
         self._last_end = None
         seg = f" before segment {n} of {total}" if n is not None else ""
         if trouble == "stop":
@@ -597,46 +961,83 @@ class Interlock:
                 return "the motion did not finish in time"
             time.sleep(0.01)
 
+    HOME_NOTE = ("homing runs the controller's own cycle: its path is NOT checked against "
+                 "the keep-out zones or the soft limits; clear the way before you say yes")
+
     def home(self, confirmer: Confirmer) -> RunResult:
-        """The controller's homing cycle, after confirmation."""
+        """The controller's homing cycle, after confirmation. The gate cannot check its
+        path (the controller chooses it): the confirmation says so in words."""
         state = self.state()
-        reasons = [r for r in self._state_reasons(state, need_homed=False)
+        enables = self._enabling(state)
+        reasons = [r for r in self._state_reasons(state, need_homed=False, need_enabled=not enables)
                    if not r.startswith("position report")]
         token = next(self._tokens)
+        notes = [self.HOME_NOTE]
+        if enables:
+            notes.append("the drives are off: they are switched on only after your yes")
+        with self._issued_lock:
+            stops = self._stops
         proposal = Proposal("home: run the controller's homing cycle", (), Verdict.of(reasons),
-                            state.joints, self._clock(), token)
+                            state.joints, self._clock(), token, tuple(notes), enables)
         self._journal.record("request", token=token, request=proposal.request, ok=proposal.ok,
-                             reasons=list(reasons))
+                             reasons=list(reasons), notes=notes)
         if not proposal.ok:
             return self._end(token, RunResult(False, "refused", "refused: " + "; ".join(reasons)))
         if not self._busy.acquire(blocking=False):
             return self._end(token, RunResult(False, "refused", "refused: another plan is running"))
         try:
             self._stop.clear()
+            if self._stopped_since(stops):
+                return self._end(token, RunResult(False, "stopped", "stopped: nothing moved"))
             answer = bool(confirmer.confirm(proposal))
             self._journal.record("confirmation", token=token, yes=answer)
             if not answer:
                 return self._end(token, RunResult(False, "cancelled", "cancelled: nothing moved"))
-            if self._stop.is_set():
+            if self._stop.is_set() or self._stopped_since(stops):
                 return self._end(token, RunResult(False, "stopped", "stopped: stop was pressed "
                                                   "while the question was open; nothing moved"))
             if self._clock() - proposal.created_s > self.APPROVAL_TTL_S:
                 return self._end(token, RunResult(False, "expired", "expired: confirm again"))
+            if self.journal_error:
+                return self._end(token, RunResult(False, "refused", "refused: " + "; ".join(
+                    self._state_reasons(self.state(), need_homed=False, need_enabled=False))))
+            failed = self._switch_on(proposal)
+            if failed is not None:
+                return self._end(token, failed)
             self.__driver.home()
+            if self._stop.is_set():
+                return self._end(token, RunResult(False, "stopped", "stopped by the user while "
+                                                  "homing; the arm is not homed"))
             return self._end(token, RunResult(True, "done", "homed"))
         except Exception as exc:  # noqa: BLE001 - any driver failure halts, in one line
             self._safe_stop()
+            if self._stop.is_set():
+                return self._end(token, RunResult(False, "stopped", f"stopped by the user while "
+                                                  f"homing: {exc}"))
             return self._end(token, RunResult(False, "halted", f"halted: {exc}"))
         finally:
             self._busy.release()
 
     # -- immediate commands ------------------------------------------------------------
     def stop(self) -> None:
-        """Stop at once, from any thread; never asks for confirmation."""
+        """Stop at once, from any thread; never asks for confirmation, never raises.
+
+        The driver's stop is the very first thing: nothing that can block or raise (no
+        lock a running plan holds, no journal write) stands before it. Then a plan
+        running or waiting for its yes ends, and every proposal not yet confirmed is
+        void (the next motion is planned and asked for again). The journal line is
+        queued last (drivers/journal.py: never waits)."""
+        self._safe_stop()
         self._stop.set()
         self._resume.set()
-        self._journal.record("stop")
-        self._safe_stop()
+        try:
+            with self._issued_lock:   # held only around dict operations, never over I/O
+                self._stops += 1
+                cancelled = len(self._issued)
+                self._issued.clear()
+            self._journal.record("stop", cancelled=cancelled)
+        except Exception:  # noqa: BLE001 - the arm is stopped; nothing else may raise here
+            pass
 
     def _safe_stop(self) -> None:
         try:
@@ -664,6 +1065,7 @@ class Interlock:
         """Clear a latched e-stop (once released) or fault; reconnect a lost link; and
         connect a driver that could not be opened at start."""
         self._journal.record("reset")
+        self._journal.recover()   # a journal that failed is tried again (journal_error)
         if not self.__driver.state().is_open:
             self.__driver.open()
             self.link_error = None

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 MAX_LINE_BYTES = 120   # with the newline
 MAX_SEQ = 65535
+COUNTER_MOD = 65536    # STATE's moves= counts modulo this
 PROTO_VERSION = 1
 MODES = ("DISABLED", "UNHOMED", "IDLE", "MOVING", "FAULT", "ESTOP")
 ERROR_CODES = ("BAD_CRC", "BAD_SEQ", "SYNTAX", "UNKNOWN", "NOT_ENABLED", "NOT_HOMED",

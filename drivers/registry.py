@@ -19,6 +19,7 @@ ENTRY_POINT_GROUP = "benchjog.drivers"
 BUILTIN_DRIVERS: dict[str, str] = {
     "sim": "benchjog.drivers.sim:SimDriver",
     "serial": "benchjog.drivers.serial_link:SerialDriver",
+    "servobus": "benchjog.drivers.servobus.driver:ServoBusDriver",
 }
 
 

@@ -20,6 +20,19 @@ pipelined line is re-sent alone (on a ``BAD_SEQ`` naming it or when its reply is
 overdue), then the lines behind it; every other verb is one line at a time, after the
 pipeline has drained (STOP and HELLO abandon it instead: they never wait).
 
+A pipelined MOVE whose reply was lost while a later line was answered is not taken as
+accepted (PROTOCOL.md): no MOVE goes out until a STATE's ``moves=`` count (or the
+segment's DONE) shows it was; a count short of it is a gap: the driver stops the arm and
+latches ``"fault: the segment to ... (MOVE n) was not accepted ..."``, which the next
+``queue()`` raises and the interlock reports (never as done). A controller whose STATE
+has no ``moves=``/``last=`` is not pipelined (``window`` is taken as 1).
+
+After :meth:`SerialDriver.stop`, DISABLE, an e-stop, a fault or a lost link the position
+is stale (``DriverState.fresh`` False) until a STATE sent after the stop's OK (or after
+the event) is answered; ``stop()`` asks for one at once. ``DriverState.queue_ran_dry``
+counts the MOVEs the controller took into an empty queue (its ``free=``), so a caller
+can tell stop-and-go streaming (the queue running empty mid-motion) from a start.
+
 A background reader dispatches replies, DONE and EVT lines; a heartbeat thread sends
 STATE every ``heartbeat_s`` while the port is open (the watchdog needs a line every
 second; PROTOCOL.md asks for a STATE at least every 250 ms while enabled). After an
@@ -41,6 +54,7 @@ import serial
 from benchjog.drivers import protocol as P
 from benchjog.drivers.base import ControllerError, Driver, DriverError, DriverEvent, DriverState, LinkError, Mode
 from benchjog.drivers.calibration import counts_from_joints, joints_from_counts
+from benchjog.kinematics.limits import fmt
 from benchjog.kinematics.model import Arm, Segment
 
 READ_POLL_S = 0.05
@@ -113,6 +127,20 @@ class SerialDriver(Driver):
         self._events: deque[DriverEvent] = deque(maxlen=MAX_EVENTS)
         self.queue_depth = 1
         self.controller_name: str | None = None
+        # the position is stale after a stop, halt, e-stop or fault until a STATE sent
+        # after the stop's OK (or the event) answers: epochs tell such a STATE apart
+        self._stale = True
+        self._stale_epoch = 0
+        self._epoch_open = True        # a STATE sent now can make the position fresh
+        self._waiting_tag: int | None = None
+        # the MOVE counters of STATE (moves=, last=): None until the first STATE after
+        # HELLO tells whether the controller sends them; without them, no pipelining
+        self.counters: bool | None = None
+        self._moves_ok = 0             # MOVEs known accepted since HELLO (mod 65536)
+        self._moves_sync = True        # _moves_ok matches the controller's count
+        self._unconfirmed: OrderedDict[int, tuple[int, ...]] = OrderedDict()  # reply lost
+        self._gap: str | None = None   # why the last stream was stopped, in words
+        self._ran_dry = 0              # MOVEs the controller took into an empty queue
 
     # -- plumbing -------------------------------------------------------------------
     def _now(self) -> float:
@@ -149,8 +177,25 @@ class SerialDriver(Driver):
             if self._latched is not None and self._latched.startswith("link lost"):
                 return
             self._latched = f"link lost: {reason}"
+            self._mark_stale(False)
             self._event("link-lost", f"{self.port}: link lost: {reason}")
             self._cond.notify_all()
+
+    def _mark_stale(self, open_now: bool) -> None:
+        """The position is stale from here (lock held). ``open_now``: a STATE sent from
+        now on makes it fresh (after an event); else only once :meth:`_open_epoch` is
+        set again (after the stop's OK)."""
+        self._stale = True
+        self._stale_epoch += 1
+        self._epoch_open = open_now
+
+    def _move_words(self, seq: int, counts: tuple[int, ...] | None) -> str:
+        """A MOVE line for people: its target in joint units and its seq."""
+        if counts is None:
+            return f"the segment sent as MOVE {seq}"
+        where = ", ".join(f"{j.name} {fmt(j, v)}" for j, v in
+                          zip(self.arm.joints, joints_from_counts(self.arm, counts)))
+        return f"the segment to {where} (MOVE {seq})"
 
     def _link_lost(self) -> bool:
         return self._latched is not None and self._latched.startswith("link lost")
@@ -180,6 +225,7 @@ class SerialDriver(Driver):
                 elif verb == "HOME":  # before it goes out: its DONE may follow the OK at once
                     self._home_seq, self._home_done, self._homed = seq, False, False
                 self._waiting, self._waiting_verb, self._reply = seq, verb, None
+                self._waiting_tag = self._stale_epoch if self._epoch_open else None
             reply: P.Reply | None = None
             tries = 0
             try:
@@ -212,9 +258,18 @@ class SerialDriver(Driver):
             finally:
                 with self._cond:
                     self._waiting = None
+                    if reply is not None and reply.kind == "OK":
+                        if verb == "MOVE":
+                            self._count_ok(reply)
+                        elif hello:   # a new session: the controller counts from 0
+                            self._moves_ok, self._moves_sync = 0, True
+                            self._unconfirmed.clear()
+                            self.counters = None
                     if reply is None or reply.kind != "OK":
                         if verb == "MOVE":
                             self._outstanding.pop(seq, None)
+                            if reply is None:   # sent, maybe taken: re-read the count
+                                self._moves_sync = False
                         elif verb == "HOME" and self._home_seq == seq:
                             self._home_seq = None
                         self._cond.notify_all()
@@ -228,6 +283,8 @@ class SerialDriver(Driver):
         ``retries`` re-sends of one line the link is declared lost."""
         with self._cond:
             if not self._pipe or self._latched is not None:
+                if self._pipe:
+                    self._moves_sync = False  # abandoned: whether they were taken is unknown
                 self._pipe.clear()  # nothing re-sent once anything is latched
                 self._resend_from, self._recovering = None, None
                 return
@@ -277,35 +334,88 @@ class SerialDriver(Driver):
             expected = msg.int_field("expected")
             if expected is None:
                 return
-            # the controller has taken every line before ``expected``
+            # the controller has answered every line before ``expected``: those whose
+            # reply was lost were taken or refused, which only the counters can tell
+            lost = []
             for seq in list(self._pipe):
                 if seq == expected or not _seq_before(seq, expected):
                     break
                 self._pipe.pop(seq)
+                lost.append(seq)
+            self._unanswered(lost)
             if self._recovering is not None and self._recovering not in self._pipe:
                 self._recovering = None
             if expected in self._pipe and self._recovering is None and self._resend_from is None:
                 self._resend_from, self._resend_single = expected, True
             return
-        # OK or a refusal: this line and every line before it were taken in order
+        # OK or a refusal: this line and every line before it were answered in order;
+        # a line before it without its own reply is not taken for accepted (PROTOCOL.md)
+        lost = []
         for seq in list(self._pipe):
             self._pipe.pop(seq)
             if seq == msg.seq:
                 break
+            lost.append(seq)
+        self._unanswered(lost)
         if self._recovering is not None and self._recovering not in self._pipe:
             self._recovering = None   # the lost line is in: the ones behind it go again
             if self._pipe:
                 self._resend_from, self._resend_single = next(iter(self._pipe)), False
         if msg.kind == "OK":
+            self._count_ok(msg)
             if msg.seq in self._outstanding and self._mode in (Mode.IDLE, Mode.MOVING):
                 self._mode = Mode.MOVING
             return
-        self._outstanding.pop(msg.seq, None)
+        words = self._move_words(msg.seq, self._outstanding.pop(msg.seq, None))
         if self._latched is None:
             # a refused segment in mid-stream breaks the planned path: stop everything
-            self._latched = f"fault: controller refused MOVE: {msg.describe()}"
-            self._event("fault", f"controller refused a streamed segment ({msg.describe()}); stopping")
-            threading.Thread(target=self.stop, name="serial-stop", daemon=True).start()
+            self._gap = f"controller refused MOVE: {msg.describe()}: {words}; the arm was stopped"
+            self._latched = f"fault: {self._gap}"
+            self._event("fault", self._gap)
+            self._halt_stream()
+
+    def _count_ok(self, reply: P.Reply) -> None:
+        """A MOVE's OK (lock held): one more accepted; ``free=`` one less than the
+        queue depth means it went into an empty queue (the arm stood still)."""
+        self._moves_ok = (self._moves_ok + 1) % P.COUNTER_MOD
+        if reply.int_field("free") == self.queue_depth - 1:
+            self._ran_dry += 1
+
+    def _halt_stream(self) -> None:
+        """Stop the arm from the reader thread (lock held): the position is stale."""
+        self._mark_stale(False)
+        self._cond.notify_all()
+        threading.Thread(target=self.stop, name="serial-stop", daemon=True).start()
+
+    def _unanswered(self, seqs: list[int]) -> None:
+        """Pipelined MOVEs whose reply was lost while a later line was answered (lock
+        held): not accepted until a STATE's counters (or their DONE) show it. Without
+        the counters nothing can show it: the stream is stopped at once."""
+        if not seqs:
+            return
+        for seq in seqs:
+            self._unconfirmed[seq] = self._outstanding.get(seq)  # type: ignore[assignment]
+        if not self.counters:
+            self._declare_gap("its reply was lost and this controller sends no MOVE counters")
+            return
+        self._t_state_sent = 0.0   # the heartbeat asks for a STATE at once
+
+    def _declare_gap(self, why: str) -> None:
+        """A MOVE sent but neither answered nor counted (lock held): stop the arm and
+        latch, naming the segment(s); the stream is never reported as done."""
+        seqs = list(self._unconfirmed)
+        words = "; ".join(self._move_words(s, self._unconfirmed[s]) for s in seqs)
+        self._unconfirmed.clear()
+        for seq in seqs:
+            self._outstanding.pop(seq, None)
+        if self._latched is not None:
+            return
+        which = "was" if len(seqs) == 1 else "were (one or more)"
+        self._gap = f"{words} {which} not accepted by the controller ({why}); the arm was stopped"
+        self._latched = f"fault: {self._gap}"
+        self._event("fault", self._gap)
+        self._moves_sync = False
+        self._halt_stream()
 
     # -- reader ---------------------------------------------------------------------
     def _reader(self) -> None:
@@ -390,6 +500,11 @@ class SerialDriver(Driver):
             self._event("info", f"controller event {evt.name}")
 
     def _after_halt(self, mode: Mode) -> None:
+        self._mark_stale(True)      # a STATE sent after the event gives the position
+        self._t_state_sent = 0.0
+        if self._pipe or self._unconfirmed:
+            self._moves_sync = False
+        self._unconfirmed.clear()
         self._outstanding.clear()
         self._pipe.clear()  # pipelined MOVEs are never re-sent after an e-stop or fault
         self._resend_from = self._recovering = None
@@ -404,6 +519,9 @@ class SerialDriver(Driver):
             self._pos = (0,) * self.arm.n_joints
             self._event("done", "homing done")
         elif seq in self._outstanding:
+            if seq in self._unconfirmed:  # its DONE shows it was accepted
+                del self._unconfirmed[seq]
+                self._moves_ok = (self._moves_ok + 1) % P.COUNTER_MOD
             self._pos = self._outstanding.pop(seq)  # that segment's end is where the axes are
             self._t_state = self._now()
             self._event("done", f"segment {seq} done")
@@ -420,8 +538,15 @@ class SerialDriver(Driver):
         out = reply.int_field("out")
         if pos is None or queued is None or out is None:
             return
+        moves, last = reply.int_field("moves"), reply.int_field("last")
+        if self.counters is None:
+            self.counters = moves is not None and last is not None
+        if self.counters and moves is not None:
+            self._check_counters(moves)
         self._mode, self._pos, self._outputs = mode, pos, out
         self._t_state = self._now()
+        if self._waiting_tag is not None and self._waiting_tag == self._stale_epoch:
+            self._stale = False   # sent after the stop's OK (or the event): fresh
         # Every DONE sent before this reply has been read by now: the controller's
         # queue is the newest ``queued`` of ours (a DONE lost on the wire is made good).
         while len(self._outstanding) > queued:
@@ -438,6 +563,38 @@ class SerialDriver(Driver):
             elif mode is Mode.FAULT and self._latched is None:
                 self._latched = "fault: reported by the controller"
                 self._event("fault", "controller reports a fault")
+
+    def _check_counters(self, moves: int) -> None:
+        """Compare the controller's MOVE count with the host's (lock held). Every MOVE
+        line went out before this STATE line (one transaction at a time, the pipeline
+        drained first), and the controller answers lines in order, so ``moves`` counts
+        them all: the lines whose reply was lost were accepted exactly when the count is
+        ours plus theirs."""
+        if not self._moves_sync:
+            if not self._pipe and not self._unconfirmed:
+                self._moves_ok, self._moves_sync = moves, True
+            return
+        extra = (moves - self._moves_ok) % P.COUNTER_MOD
+        if extra == len(self._unconfirmed):
+            self._moves_ok = moves
+            self._unconfirmed.clear()   # all of them were taken: their DONEs will come
+            return
+        if not self._unconfirmed:
+            # the controller took a MOVE the host does not know of: nothing can be trusted
+            self._moves_ok = moves
+            if self._latched is None:
+                self._gap = (f"the controller counted {extra} MOVE line(s) more than the host "
+                             f"knows of; the arm was stopped")
+                self._latched = f"fault: {self._gap}"
+                self._event("fault", self._gap)
+                self._halt_stream()
+            return
+        if extra < len(self._unconfirmed):
+            self._declare_gap(f"its reply was lost on the link and the controller counted only "
+                              f"{extra} of the {len(self._unconfirmed)} unanswered MOVE line(s)")
+        else:
+            self._declare_gap(f"its reply was lost on the link and the controller counted {extra} "
+                              f"MOVE line(s) for {len(self._unconfirmed)} unanswered: the counts disagree")
 
     # -- heartbeat ------------------------------------------------------------------
     def _heartbeat(self) -> None:
@@ -503,6 +660,8 @@ class SerialDriver(Driver):
                                   f"the arm {self.arm.name} has {self.arm.n_joints} joints")
         self.queue_depth = depth
         self.controller_name = reply.get("name")
+        with self._cond:
+            self._mark_stale(True)   # a new session: the STATE that follows gives the position
 
     def _disconnect(self) -> None:
         self._running = False
@@ -554,7 +713,13 @@ class SerialDriver(Driver):
         self._transact("STATE")
 
     def disable(self) -> None:
-        self._command("DISABLE")
+        with self._cond:
+            self._mark_stale(False)   # drives off halts the arm
+        try:
+            self._command("DISABLE")
+        finally:
+            with self._cond:
+                self._epoch_open = True   # from here a STATE tells where the arm is
         with self._cond:
             self._outstanding.clear()
             self._cond.notify_all()
@@ -583,6 +748,16 @@ class SerialDriver(Driver):
         self._transact("STATE")
 
     def _queue(self, segment: Segment, timeout_s: float) -> None:
+        try:
+            self._queue_one(segment, timeout_s)
+        except ControllerError:
+            with self._cond:  # a stream stopped for a lost or refused segment says which
+                gap = self._gap if self._latched == f"fault: {self._gap}" else None
+            if gap is not None:
+                raise ControllerError(gap) from None
+            raise
+
+    def _queue_one(self, segment: Segment, timeout_s: float) -> None:
         self._require_open()
         counts = counts_from_joints(self.arm, segment.joints)
         ms = max(1, round(segment.duration_s * 1000.0))
@@ -590,19 +765,27 @@ class SerialDriver(Driver):
         deadline = self._now() + max(0.0, timeout_s)
 
         def guard() -> None:  # under the state lock, before the MOVE (re)goes out
+            if self._gap is not None and self._latched == f"fault: {self._gap}":
+                raise ControllerError(self._gap)
             if self._stop_gen != gen:
                 raise ControllerError("refused MOVE: stop() was called while it waited")
             self._require_motion_allowed(self._state_locked())
 
         def room() -> bool:
-            return (len(self._outstanding) < self.queue_depth and len(self._pipe) < self.window
-                    and self._recovering is None and self._resend_from is None)
+            window = self.window if self.counters else 1  # PROTOCOL.md: no counters, no pipelining
+            return (len(self._outstanding) < self.queue_depth and len(self._pipe) < window
+                    and self._recovering is None and self._resend_from is None
+                    and not self._unconfirmed)
 
         while True:
+            ask_state = False
             with self._cond:
                 while True:
                     guard()
                     if room():
+                        break
+                    if self._unconfirmed and not self._pipe:
+                        ask_state = True   # a reply was lost: the counters say if it was taken
                         break
                     remaining = deadline - self._now()
                     if remaining <= 0:
@@ -610,6 +793,9 @@ class SerialDriver(Driver):
                     self._cond.wait(min(remaining, self.timeout_s / 4))
                     if self._pipe:
                         break  # service the pipeline (re-sends) below, then look again
+            if ask_state:
+                self._transact("STATE")
+                continue
             with self._txn_lock:
                 self._service_pipe()
                 with self._cond:
@@ -647,12 +833,17 @@ class SerialDriver(Driver):
         with self._cond:
             self._stop_gen += 1
             self._stop_pending += 1
+            self._mark_stale(False)   # until a STATE sent after the STOP's OK answers
+            if self._pipe or self._unconfirmed:
+                self._moves_sync = False
+            self._unconfirmed.clear()
             self._outstanding.clear()
             self._home_seq = None
             if self._mode is Mode.MOVING:
                 self._mode = Mode.IDLE
             self._cond.notify_all()
             usable = self._is_open and self._ser is not None and not self._link_lost()
+        stopped = False
         try:
             if not usable:
                 return
@@ -663,12 +854,16 @@ class SerialDriver(Driver):
             if reply.kind == "OK":
                 with self._cond:
                     self._outstanding.clear()
+                    self._epoch_open = True
                     self._cond.notify_all()
+                stopped = True
         except Exception:  # noqa: BLE001 - stop never raises for a dead link
             pass
         finally:
             with self._cond:
                 self._stop_pending -= 1
+        if stopped:
+            self._transact_quiet("STATE")   # where the arm came to rest: fresh again
 
     def _state_locked(self) -> DriverState:
         enabled = self._mode in (Mode.UNHOMED, Mode.IDLE, Mode.MOVING)
@@ -683,6 +878,8 @@ class SerialDriver(Driver):
             homed=self._homed,
             latched=self._latched,
             link=f"{self.port} @ {self.baud}",
+            fresh=not self._stale,
+            queue_ran_dry=self._ran_dry,
         )
 
     def state(self) -> DriverState:
@@ -708,6 +905,7 @@ class SerialDriver(Driver):
                                   + (" (the e-stop input is still active)" if reply.code == "ESTOP" else ""))
         with self._cond:
             self._latched = None
+            self._gap = None
         self._transact("STATE")
 
     def poll_events(self) -> list[DriverEvent]:

@@ -12,6 +12,14 @@ Every command it accepted and acted on is appended to :attr:`SimDriver.commands`
 (tuples named by the PROTOCOL.md verbs, e.g. ``("MOVE", 500, (1800, -3600))``);
 refused ones go to :attr:`SimDriver.refused` with the reason. So a test can assert
 that nothing moved: ``not [c for c in sim.commands if c[0] == "MOVE"]``.
+
+A "true" arm (option ``true_errors``, a mapping as
+:func:`benchjog.kinematics.identify.true_vector_from_errors` takes it): the arm the
+simulated controller really drives differs from its arm file by those link lengths and
+joint zeros, and its base stands at that pose on a fixture plate.
+:meth:`SimDriver.tool_in_plate_mm` is the simulated bench's ruler: where the tool tip
+really is on the plate, for calibration rehearsals and tests. The controller itself
+still speaks counts only, as a real one does.
 """
 
 from __future__ import annotations
@@ -24,6 +32,7 @@ from dataclasses import dataclass
 
 from benchjog.drivers.base import ControllerError, Driver, DriverEvent, DriverState, LinkError, Mode
 from benchjog.drivers.calibration import counts_from_joints, joints_from_counts, range_violation
+from benchjog.kinematics import identify
 from benchjog.kinematics.model import Arm, Segment
 
 DEFAULT_QUEUE_DEPTH = 8
@@ -40,7 +49,9 @@ class _SimSegment:
 
 class SimDriver(Driver):
     """A simulated controller. Options: ``clock`` (callable -> seconds, default
-    ``time.monotonic``), ``time_scale`` (default 1.0), ``queue_depth`` (default 8)."""
+    ``time.monotonic``), ``time_scale`` (default 1.0), ``queue_depth`` (default 8),
+    ``true_errors`` (default none: the arm is its arm file, its base at the plate's
+    origin)."""
 
     name = "sim"
 
@@ -67,6 +78,7 @@ class SimDriver(Driver):
         self._stops = 0  # counts stop() calls: a queue() waiting for a slot gives up on one
         self.commands: list[tuple] = []
         self.refused: list[tuple[tuple, str]] = []
+        self.true_vector = identify.true_vector_from_errors(arm, dict(options.get("true_errors") or {}))
 
     # -- time -----------------------------------------------------------------------
     def _now(self) -> float:
@@ -265,6 +277,17 @@ class SimDriver(Driver):
             return events
 
     # -- test hooks -----------------------------------------------------------------
+    def tool_in_plate_mm(self) -> tuple[float, ...]:
+        """Where the tool tip of the true arm is on the fixture plate (mm; planar x, y;
+        SCARA x, y, z), from the axes' counts now."""
+        with self._lock:
+            self._advance()
+            counts = [round(p) for p in self._pos]
+        joints = joints_from_counts(self.arm, counts)
+        point = identify.plate_points_mm(self.arm, identify.params_of(self.arm), self.true_vector,
+                                         [joints])[0]
+        return tuple(float(v) for v in point)
+
     @property
     def position_counts(self) -> tuple[int, ...]:
         """Where the simulated axes are, in counts (rounded)."""

@@ -21,6 +21,9 @@ MIN_SPEED = 0.01  # deg/s or mm/s (and per s^2): slower is a typo, and would pla
 ACCEL_PER_SPEED = 4.0  # default max_accel = 4 x max_speed: full speed in 0.25 s (common practice)
 
 
+MAX_COUNTS = 2**31 - 1  # a signed 32-bit position counter (common practice for controllers)
+
+
 def number_problem(value: Any) -> str | None:
     """Why a parsed TOML value is not a usable finite number, or None when it is.
 
@@ -113,6 +116,11 @@ def _joint(r: _Reader, data: Any, index: int) -> Joint:
         raise r.fail(f"{where}.max_accel", f"must be at least {MIN_SPEED:g} ({accel:g})")
     if num["counts_per_unit"] <= 0:
         raise r.fail(f"{where}.counts_per_unit", f"must be > 0 ({num['counts_per_unit']:g})")
+    span = max(abs(num["max"] - num["zero"]), abs(num["min"] - num["zero"]))
+    if span * num["counts_per_unit"] > MAX_COUNTS:
+        raise r.fail(f"{where}.counts_per_unit", f"too large: the soft limits would be "
+                     f"{span * num['counts_per_unit']:.3g} counts from home, beyond the "
+                     f"{MAX_COUNTS} a 32-bit signed count holds ({num['counts_per_unit']:g})")
     if num["direction"] not in (1.0, -1.0):
         raise r.fail(f"{where}.direction", f"must be 1 or -1 ({num['direction']:g})")
     scale = math.radians if jtype == REVOLUTE else (lambda v: v)

@@ -114,8 +114,9 @@ def within(joint: Joint, value: float) -> bool:
 
 
 def fmt(joint: Joint, value: float) -> str:
-    """A joint value for people: '152.30 deg' or '12.50 mm'."""
-    return f"{joint.to_display(value):.2f} {joint.unit}"
+    """A joint value for people: '152.30 deg' or '12.50 mm' (a huge one as '1e+308 deg')."""
+    shown = joint.to_display(value)
+    return f"{shown:.4g} {joint.unit}" if abs(shown) >= 1e7 else f"{shown:.2f} {joint.unit}"
 
 
 def limit_problem(joint: Joint, value: float) -> str | None:

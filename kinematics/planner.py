@@ -34,12 +34,12 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from benchjog.kinematics import planar, profile, scara, solve, sweep
+from benchjog.kinematics.options import (JOINT, LINE, LINE_TOLERANCE_MAX_MM, LINE_TOLERANCE_MIN_MM,
+                                         LINE_TOLERANCE_MM, PATHS)
 from benchjog.kinematics.limits import TWO_PI, limit_clearance, limit_problem
 from benchjog.kinematics.model import Arm, Branch, Segment
 from benchjog.kinematics.solve import TargetError
 
-JOINT, LINE = "joint", "line"
-PATHS = (JOINT, LINE)
 NEAR_LIMIT_RAD = math.radians(5.0)   # warn when a joint comes this close to a soft limit
 NEAR_LIMIT_MM = 5.0
 DENSE_STEP_MM = 0.5                  # refusal checks along a line: one IK pose per 0.5 mm
@@ -97,6 +97,9 @@ class PlanSummary:
     singular_distance_rad: float
     zone_clearance_mm: dict[str, float] = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
+    tolerance_mm: float | None = None      # lines: the chordal tolerance asked for
+    chord_count: int | None = None         # lines: chords the tolerance alone needs
+    continuous_s: float | None = None      # lines: the continuous speed profile's duration
 
     def lines(self, arm: Arm) -> list[str]:
         """Human text, degrees and mm."""
@@ -122,11 +125,28 @@ class PlanSummary:
                    for j, v in zip(arm.joints, self.limit_clearance)),
                f"least elbow angle from a singular pose: "
                f"{math.degrees(self.singular_distance_rad):.2f} deg"]
+        if self.chord_count is not None:
+            out.append(self._segment_words())
         for name, gap in self.zone_clearance_mm.items():
             out.append(f"least gap to keep-out zone {name!r}: "
                        + (f"{gap:.1f} mm" if math.isfinite(gap) else "never at its height"))
         out += [f"warning: {w}" for w in self.warnings]
         return out
+
+    def _segment_words(self) -> str:
+        """Why a line has as many segments as it has."""
+        n = self.chord_count
+        words = (f"straight within {self.tolerance_mm:g} mm: {n} chord{'' if n == 1 else 's'} "
+                 "for the tolerance")
+        extra = self.segment_count - self.chord_count
+        if extra > 0:
+            words += (f", {extra} more to cut the speed ramps (no segment spans more than "
+                      f"1/{profile.LINE_RAMP_SEGMENTS} of the peak speed) and to end on whole "
+                      "milliseconds")
+        if self.continuous_s:
+            words += (f"; {self.duration_s:.3f} s against {self.continuous_s:.3f} s for the "
+                      "continuous speed profile")
+        return words
 
     def to_dict(self, arm: Arm) -> dict:
         """JSON-ready, degrees and mm (None for an infinite clearance)."""
@@ -147,6 +167,9 @@ class PlanSummary:
             "singular_distance_deg": math.degrees(self.singular_distance_rad),
             "zone_clearance_mm": {k: _json_number(v) for k, v in self.zone_clearance_mm.items()},
             "warnings": list(self.warnings),
+            **({"tolerance_mm": self.tolerance_mm, "chords_for_tolerance": self.chord_count,
+                "continuous_duration_s": self.continuous_s}
+               if self.chord_count is not None else {}),
         }
 
 
@@ -666,12 +689,66 @@ def _line_timing(arm: Arm, q0: np.ndarray, u: np.ndarray, q: np.ndarray, p: floa
     finite_a = np.isfinite(a_lim)
     a_lim = np.where(finite_a, a_lim, a_lim[finite_a].max() if finite_a.any() else 1.0)
     v, peak, t = profile.line_speeds(du, vlim, a_lim)
-    return vlim, reason, v, peak, t, gain
+    return vlim, reason, v, peak, t, gain, a_lim
+
+
+def check_tolerance(tolerance_mm: float) -> float:
+    """A line's chordal tolerance (mm) if it is within the planner's bounds, else a
+    TargetError in words.
+
+    >>> check_tolerance(0.01)
+    0.01
+    """
+    tol = float(tolerance_mm)
+    if not (math.isfinite(tol) and LINE_TOLERANCE_MIN_MM <= tol <= LINE_TOLERANCE_MAX_MM):
+        raise TargetError(f"line tolerance must be {LINE_TOLERANCE_MIN_MM:g}..{LINE_TOLERANCE_MAX_MM:g}"
+                          f" mm ({tol:g})")
+    return tol
+
+
+def _whole_ms_knots(line: _Line, q0: np.ndarray, u: np.ndarray, v: np.ndarray,
+                    peak: np.ndarray, a_lim: np.ndarray, t: np.ndarray, tol: float
+                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """Knots placed at whole milliseconds of the continuous speed profile.
+
+    The wire takes whole-ms segments. Rounding each chord's duration up (a 5 ms chord
+    becomes 6 ms) and stretching all of them to match slows a tight line by up to 2x;
+    instead each knot moves to the whole millisecond at or before the time the
+    continuous profile reaches it, so the rounding remainder is carried along and only
+    the last segment ends up to 1 ms late. A moved chord that leaves ``tol`` is split
+    at its middle millisecond. Because every segment is the average of the continuous
+    profile over its interval, the discrete speeds and accelerations stay within what
+    the profile respects (profile module docstring); fit_durations still verifies.
+
+    Returns:
+        (u, q, durations) with q[0] = q0, or None when a 1 ms chord would still leave
+        the tolerance (the caller then rounds up and stretches, as before).
+    """
+    du = np.diff(u)
+    ends = np.cumsum(t)
+    end_ms = max(1, math.ceil(ends[-1] / profile.MS - 1e-6))
+    marks = np.unique(np.floor(ends[:-1] / profile.MS + 1e-6).astype(np.int64))
+    marks = np.append(marks[(marks > 0) & (marks < end_ms)], end_ms)
+    for _ in range(30):
+        un = profile.line_positions(du, v, peak, a_lim, t, marks * profile.MS)
+        un[-1] = 1.0
+        qn = line.joints(un)
+        qa = np.vstack([q0[None, :], qn[:-1]])
+        bad = np.flatnonzero(line.deviation(qa, qn) > tol)
+        if not bad.size:
+            durations = np.diff(np.concatenate([[0], marks])) * profile.MS
+            return np.concatenate([[0.0], un]), np.vstack([q0[None, :], qn]), durations
+        lo = np.concatenate([[0], marks])[bad]
+        hi = marks[bad]
+        if (hi - lo < 2).any():
+            return None
+        marks = np.unique(np.concatenate([marks, (lo + hi) // 2]))
+    return None
 
 
 def plan_line_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
                    branch: Branch | str | None = None, speed_pct: float = 100.0,
-                   tolerance_mm: float = 0.05) -> Plan:
+                   tolerance_mm: float = LINE_TOLERANCE_MM) -> Plan:
     """A straight tool line from the pose at ``start`` to the tool ``target``
     (solve.check_target shape), on the start's branch.
 
@@ -686,9 +763,7 @@ def plan_line_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
     q0 = np.array(solve.check_joints(arm, start))
     tgt = solve.check_target(arm, target)
     want = _check_branch(branch)
-    tol = float(tolerance_mm)
-    if not (tol > 0 and math.isfinite(tol)):
-        raise TargetError(f"line tolerance must be a positive number of mm ({tol:g})")
+    tol = check_tolerance(tolerance_mm)
     b0 = branch_of(arm, q0)
     if b0 is None:
         return _refused(arm, LINE, q0, None, None, [
@@ -710,8 +785,9 @@ def plan_line_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
         return _joint_plan(arm, q0, q_end, p, b0, warnings)  # nothing (measurable) to draw
     knots = _balanced_knots(line, q0, tol)
     u, q = knots if knots is not None else _greedy_knots(line, q0, tol)
+    chord_count = len(u) - 1
     for _ in range(12):  # subdivide pieces that span too much of the speed ramp
-        vlim, reason, v, peak, t, gain = _line_timing(arm, q0, u, q, p)
+        vlim, reason, v, peak, t, gain, a_lim = _line_timing(arm, q0, u, q, p)
         top = float(peak.max())
         span = np.maximum(peak - v[:-1], peak - v[1:])
         wide = np.flatnonzero(span > top / profile.LINE_RAMP_SEGMENTS * (1 + 1e-9))
@@ -721,6 +797,12 @@ def plan_line_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
         u = np.insert(u, wide + 1, mids)
         q = np.insert(q, wide + 1, line.joints(mids), axis=0)
     vmax, amax = _limits(arm, p)
+    continuous_s = float(t.sum())
+    u_timing = u  # the knots the speed caps were computed on (for the words below)
+    whole = _whole_ms_knots(line, q0, u, v, peak, a_lim, t, tol)
+    if whole is not None:  # knots at whole ms of the continuous profile: no rounding up
+        u, q, t = whole
+        gain = sweep.tool_speed_gain(arm, q[:-1], np.diff(q, axis=0))
     t, stretch = profile.fit_durations(q0, q[1:], t, vmax, amax, gain,
                                        p * arm.tool_speed_max_mm_s)
     where_knot = lambda k: line.where(float(u[k]))  # noqa: E731
@@ -746,7 +828,7 @@ def plan_line_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
             slow = vlim[k] * line.length_mm
             if slow < cap * 0.999:
                 warnings.append(f"speed reduced to {slow:.1f} mm/s by joint speed or "
-                                f"acceleration limits {line.where(float(u[k]))}")
+                                f"acceleration limits {line.where(float(u_timing[k]))}")
         if peak_tool >= cap * 0.98:
             warnings.append(f"speed limited by the tool speed cap of {cap:g} mm/s")
     if stretch > 1.0 + 1e-6:
@@ -756,7 +838,8 @@ def plan_line_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
     summary = PlanSummary(
         tuple(map(float, q0)), tuple(map(float, q[-1])), solve.tool_from_joints(arm, q0),
         solve.tool_from_joints(arm, q[-1]), b0, False, LINE, float(t_seg.sum()), len(t_seg),
-        peak_w, peak_tool, clear, sing, sw.clearance_mm, tuple(warnings))
+        peak_w, peak_tool, clear, sing, sw.clearance_mm, tuple(warnings),
+        tolerance_mm=tol, chord_count=chord_count, continuous_s=continuous_s)
     return Plan(_segments(q_seg, t_seg), summary, ())
 
 
@@ -796,7 +879,7 @@ def _joint_distance_s(arm: Arm, a: Sequence[float], b: Sequence[float]) -> float
 
 def plan_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
               branch: Branch | str | None = None, path: str = JOINT, speed_pct: float = 100.0,
-              tolerance_mm: float = 0.05) -> Plan:
+              tolerance_mm: float = LINE_TOLERANCE_MM) -> Plan:
     """One move to a tool target (CONTRACT.md ``move``).
 
     ``branch`` None: for a joint move, the usable IK solution nearest the start joints

@@ -109,6 +109,39 @@ def line_speeds(du: np.ndarray, vlim: np.ndarray, alim: np.ndarray
     return v, peak, t
 
 
+def line_positions(du: np.ndarray, v: np.ndarray, peak: np.ndarray, alim: np.ndarray,
+                   durations: np.ndarray, at_s: np.ndarray) -> np.ndarray:
+    """Where the line parameter is at the times ``at_s`` (s from the start) on the
+    continuous profile of :func:`line_speeds`: in each piece the speed ramps at its
+    acceleration cap from the knot speed to the piece's peak, cruises, and ramps down
+    to the next knot speed. Times past the end give the end of the line.
+
+    One piece of length 1 from rest to rest with peak 1 and acceleration 1 takes 2 s
+    (1 s up, 1 s down); after 0.5 s it has covered a t^2 / 2 = 0.125:
+
+    >>> line_positions(np.array([1.0]), np.array([0.0, 0.0]), np.array([1.0]),
+    ...                np.array([1.0]), np.array([2.0]), np.array([0.5, 1.0, 1.5, 9.0])).tolist()
+    [0.125, 0.5, 0.875, 1.0]
+    """
+    du = np.asarray(du, dtype=float)
+    ends = np.cumsum(durations)
+    starts = ends - durations
+    u_starts = np.concatenate([[0.0], np.cumsum(du)[:-1]])
+    at = np.clip(np.asarray(at_s, dtype=float), 0.0, ends[-1])
+    j = np.minimum(np.searchsorted(ends, at, side="right"), len(du) - 1)
+    tau = at - starts[j]
+    va, vb, pk, a, d, tj = v[:-1][j], v[1:][j], peak[j], alim[j], du[j], durations[j]
+    t_acc = (pk - va) / a
+    t_dec = (pk - vb) / a
+    d_acc = va * t_acc + a * t_acc * t_acc / 2.0
+    sigma = np.maximum(tj - tau, 0.0)
+    rising = va * tau + a * tau * tau / 2.0
+    cruising = d_acc + pk * (tau - t_acc)
+    falling = d - (vb * sigma + a * sigma * sigma / 2.0)
+    local = np.where(tau <= t_acc, rising, np.where(sigma <= t_dec, falling, cruising))
+    return np.minimum(u_starts[j] + np.clip(local, 0.0, d), u_starts[-1] + du[-1])
+
+
 def segment_rates(start: np.ndarray, joints: np.ndarray, durations: np.ndarray
                   ) -> tuple[np.ndarray, np.ndarray]:
     """Per-segment joint speeds (n, J) and the accelerations (n+1, J) at the n+1
@@ -142,13 +175,26 @@ def excess(start: np.ndarray, joints: np.ndarray, durations: np.ndarray,
 def fit_durations(start: np.ndarray, joints: np.ndarray, durations: np.ndarray,
                   v_max: np.ndarray, a_max: np.ndarray, tool_gain: np.ndarray,
                   tool_cap: float) -> tuple[np.ndarray, float]:
-    """Round durations up to whole ms, then stretch all of them together until the
-    discrete speeds and accelerations are within limits.
+    """Round durations up to whole ms, lengthen by whole ms the few segments whose own
+    speed is over a limit, and only when that is not enough (an acceleration over its
+    limit) stretch all of them together until the discrete speeds and accelerations
+    are within limits.
 
     Returns:
-        durations (whole ms), the overall stretch applied (1.0: none needed).
+        durations (whole ms), the overall stretch applied (1.0: none needed; the ratio
+        of the total durations when only some segments were lengthened).
     """
     base = np.asarray(durations, dtype=float)
+    t = np.array([ceil_ms(x) for x in base])
+    for _ in range(4):  # local repair: a segment a hair too fast gets its own extra ms
+        if excess(start, joints, t, v_max, a_max, tool_gain, tool_cap) <= 1.0 + RATE_TOL:
+            return t, float(t.sum() / base.sum()) if base.sum() > 0 else 1.0
+        w, _ = segment_rates(start, joints, t)
+        ratio = np.maximum((np.abs(w) / v_max).max(axis=1), tool_gain / t / tool_cap)
+        over = ratio > 1.0 + RATE_TOL
+        if not over.any():
+            break  # an acceleration: only a global stretch helps
+        t = np.where(over, np.maximum(t + MS, [ceil_ms(x) for x in t * ratio]), t)
     stretch = 1.0
     for _ in range(40):
         t = np.array([ceil_ms(x * stretch) for x in base])

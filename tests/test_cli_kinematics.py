@@ -31,7 +31,8 @@ def test_solve_json_has_exactly_the_contract_keys(capsys):
     assert doc["target"] == [150.0, -200.0]
     assert doc["reachable"] is True
     for sol in doc["solutions"]:
-        assert set(sol) == {"branch", "joints", "usable", "problems"}
+        # the contract's keys, and the one documented extra (docs/calibration.md)
+        assert set(sol) == {"branch", "joints", "usable", "problems", "accuracy"}
 
 
 def test_branch_labels_follow_the_sign_of_j2(capsys):
@@ -103,7 +104,7 @@ def test_no_usable_solution_exits_1(capsys):
     (["solve", "1e400", "0"], "X: not a finite number"),
     (["solve", "nan", "0"], "X: not a finite number"),
     (["solve", "1", "2", "3"], "a planar arm takes X Y"),
-    (["fk", "1"], "a planar arm takes 2 joint values"),
+    (["fk", "1"], "the following arguments are required: J2"),
     (["fk", "1", "2", "3"], "a planar arm takes 2 joint values"),
     (["solve", "1", "2", "--arm", "/no/such/arm.toml"], "/no/such/arm.toml: file:"),
     (["move", "100", "200", "--port", "loop://", "--baud", "0"], "--baud: must be > 0"),
@@ -134,7 +135,7 @@ def test_the_installed_command_prints_no_traceback(tmp_path):
 
 def test_an_internal_error_is_one_line_and_exit_70(capsys, monkeypatch):
     # A bug must not spill a traceback on a technician either (BENCHJOG_DEBUG=1 shows it).
-    import benchjog.console.cli.cmd_kinematics as cmd
+    import benchjog.kinematics.solve as cmd  # the command imports the solver when it runs
 
     def broken(*args, **kwargs):
         raise RuntimeError("something inside broke\nsecond line")
@@ -149,3 +150,46 @@ def test_an_internal_error_is_one_line_and_exit_70(capsys, monkeypatch):
     monkeypatch.setenv("BENCHJOG_DEBUG", "1")
     with pytest.raises(RuntimeError):
         main(["solve", "100", "200"])
+
+
+def test_huge_values_print_sensibly_and_fk_warns_as_for_720(capsys):
+    # solve 1e308 1e308: refused as out of reach, the target shown as 1e+308, not 309 digits
+    assert main(["solve", "1e308", "1e308"]) == 1
+    out = capsys.readouterr().out
+    assert "x 1e+308 mm, y 1e+308 mm" in out and max(len(line) for line in out.splitlines()) < 120
+    # fk 1e308 0 warns like fk 720 0: beyond the shoulder's max, exit 0, short lines
+    assert main(["fk", "720", "0"]) == 0
+    small = capsys.readouterr().out
+    assert main(["fk", "1e308", "0"]) == 0
+    huge = capsys.readouterr().out
+    assert "warning: shoulder at 720.00 deg passes its max 150.00 deg" in small
+    assert "warning: shoulder at 1e+308 deg passes its max 150.00 deg" in huge
+    assert max(len(line) for line in huge.splitlines()) < 120
+    assert "-0.000" not in small
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["fk", "0", "0", "--arm", "nosuch"], "nosuch: arm: no such arm file or built-in arm "
+                                           "(built-in: planar-bench, scara-bench)"),
+    (["move", "100", "200", "--speed", "1e-9"], "--speed: must be 1 to 100"),
+    (["move", "100", "200", "--speed", "0.5"], "--speed: must be 1 to 100"),
+    (["move", "100", "200", "--speed", "nan"], "--speed: must be 1 to 100"),
+    (["move", "100", "200", "--speed", "101"], "--speed: must be 1 to 100"),
+])
+def test_arm_names_and_speed_bounds_are_one_line_exit_2(capsys, argv, words):
+    assert main(argv) == 2
+    err = capsys.readouterr().err
+    assert words in err and len(err.strip().splitlines()) == 1
+
+
+def test_usage_lines_name_one_target():
+    # nargs='+' printed "X Y [Z [ROLL]] [X Y [Z [ROLL]] ...]", as if several targets were taken
+    from benchjog.console.cli.main import build_parser
+    import argparse
+
+    parser = build_parser()
+    subs = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction)).choices
+    assert subs["solve"].format_usage().rstrip().endswith("X Y [Z] [ROLL]")
+    assert subs["move"].format_usage().rstrip().endswith("X Y [Z] [ROLL]")
+    assert subs["fk"].format_usage().rstrip().endswith("J1 J2 [J3] [J4]")
+    assert "..." not in subs["solve"].format_usage()

@@ -78,10 +78,10 @@ async def test_sketch_gives_way_below_120_and_toggles(rig):
         await pilot.pause(0.2)
         sketch = app.jog_screen.query_one("#sketch")
         assert not fully_visible(sketch, (80, 24))
-        await pilot.press("k")
+        await pilot.press("o")
         await pilot.pause(0.1)
         assert fully_visible(sketch, (80, 24))
-        await pilot.press("k")
+        await pilot.press("o")
         await pilot.pause(0.1)
         assert fully_visible(app.jog_screen.query_one("#readout"), (80, 24))
 

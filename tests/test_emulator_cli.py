@@ -56,14 +56,14 @@ def raw():
 def test_power_up_hello_and_state(raw):
     assert raw.ask("7 HELLO") == "OK 7 proto=1 axes=2 queue=2 name=benchjog-emulator"
     # after power-up: drives off, not homed, at count 0
-    assert raw.ask("8 STATE") == "OK 8 mode=DISABLED pos=0,0 queued=0 out=0"
+    assert raw.ask("8 STATE") == "OK 8 mode=DISABLED pos=0,0 queued=0 out=0 moves=0 last=0"
 
 
 def test_example_session_of_protocol_md(raw):
     assert raw.ask("1 HELLO").startswith("OK 1 ")
     assert raw.ask("2 MOVE 100 10 10") == "ERR 2 NOT_ENABLED"
     assert raw.ask("3 ENABLE") == "OK 3"
-    assert raw.ask("4 STATE") == "OK 4 mode=UNHOMED pos=0,0 queued=0 out=0"
+    assert raw.ask("4 STATE") == "OK 4 mode=UNHOMED pos=0,0 queued=0 out=0 moves=0 last=0"
     assert raw.ask("5 MOVE 100 10 10") == "ERR 5 NOT_HOMED"
     assert raw.ask("6 HOME") == "OK 6"
     assert raw.read() == "DONE 6"
@@ -71,7 +71,7 @@ def test_example_session_of_protocol_md(raw):
     assert raw.ask("8 MOVE 200 4000 -2000") == "OK 8 free=0"
     assert raw.ask("9 MOVE 200 0 0") == "ERR 9 QUEUE_FULL"
     reply = raw.ask("10 STATE")
-    assert reply.startswith("OK 10 mode=MOVING pos=") and reply.endswith(" queued=2 out=0")
+    assert reply.startswith("OK 10 mode=MOVING pos=") and reply.endswith(" queued=2 out=0 moves=2 last=8")  # 9 was refused: not counted
     assert raw.read() == "DONE 7"
     assert raw.read() == "DONE 8"
 
@@ -108,7 +108,7 @@ def test_bad_lines_and_errors(raw):
     assert raw.ask("11 MOVE 10 0") == "ERR 11 SYNTAX"        # one count short
     assert raw.ask("12 OUT 8 1") == "ERR 12 SYNTAX"
     assert raw.ask("13 OUT 7 1") == "OK 13"
-    assert raw.ask("14 STATE").endswith("out=128")           # output 7 is bit 1 << 7
+    assert raw.ask("14 STATE").endswith("out=128 moves=1 last=6")  # output 7 is bit 1 << 7; one MOVE taken
     # A line with a good seq but no verb it can parse is answered and counted, like any
     # refused line (PROTOCOL.md: each new host line uses the previous seq + 1).
     assert raw.ask("15 fly") == "ERR 15 SYNTAX"
@@ -125,7 +125,7 @@ def test_stop_flushes_without_done(raw):
     raw.ask("4 MOVE 1000 4000 0")
     raw.ask("5 MOVE 1000 0 0")
     assert raw.ask("6 STOP") == "OK 6"
-    assert raw.ask("7 STATE").endswith("queued=0 out=0")
+    assert raw.ask("7 STATE").endswith("queued=0 out=0 moves=2 last=5")
     raw.port.timeout = 0.3
     assert raw.read() is None                                # no DONE for flushed segments
 
@@ -215,5 +215,7 @@ def test_typed_commands_press_and_release_the_estop():
         assert run_console_command(emu, " RELEASE ") and not emu.estop_input
         assert emu.mode == "ESTOP"  # the latch stays until RESET (PROTOCOL.md)
         assert run_console_command(emu, "dance") is None
+        assert run_console_command(emu, "limit") and emu.hw.limit == 1
+        assert run_console_command(emu, "clear") and emu.hw.limit == 0
     finally:
         emu.stop()

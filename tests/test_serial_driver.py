@@ -418,3 +418,56 @@ def test_wait_idle_is_false_at_once_when_the_link_is_lost(make_rig):
     assert wait_for(lambda: (d.state().latched or "").startswith("link lost"), 3.0)
     assert d.state().queued == 1                      # nobody knows whether it ran
     assert d.wait_idle(30.0) is False                 # (and it does not sit out the 30 s)
+
+
+# -- the position after a stop or a halt (PROTOCOL.md) --------------------------------------
+
+def test_stop_returns_with_the_position_where_the_arm_came_to_rest(make_rig):
+    r = make_rig()
+    d = r.driver
+    ready(d)
+    d.queue(Segment((DEG(90.0), DEG(90.0)), 2.0))
+    time.sleep(0.3)
+    d.stop()
+    st = d.state()
+    # stop() asked for a STATE after the STOP's OK: fresh, and where the emulator stands
+    assert st.fresh
+    from benchjog.drivers.calibration import counts_from_joints
+    assert counts_from_joints(ARM, st.joints) == r.counts()
+    assert 0 < r.counts()[0] < 3600
+
+
+def test_after_a_fault_the_position_is_stale_until_reported_again(make_rig):
+    r = make_rig(heartbeat_s=0)                         # no STATE unless asked
+    d = r.driver
+    ready(d)
+    assert d.state().fresh
+    r.fault("FOLLOWING", 1)
+    assert events_of(d, "fault")
+    assert not d.state().fresh                          # the halt made the old one stale
+    d.reset()                                           # RESET, then a STATE: fresh again
+    assert d.state().fresh
+
+
+def test_counters_decide_pipelining(make_rig):
+    assert make_rig().driver.counters is True
+    old = make_rig({"counters": False})
+    assert old.driver.counters is False
+    ready(old.driver)
+    _stream(old.driver, 5)                              # served, one MOVE at a time
+    assert old.emulator.moves_accepted == 5 and old.counts() == (200, 0)
+
+
+def test_queue_ran_dry_counts_starts_from_an_empty_queue(make_rig):
+    r = make_rig()
+    d = r.driver
+    ready(d)
+    before = d.state().queue_ran_dry
+    for k in range(1, 4):                               # long segments: one stream
+        d.queue(Segment((DEG(2.0 * k), DEG(90.0)), 0.1))
+    assert d.wait_idle(3.0)
+    assert d.state().queue_ran_dry - before == 1        # the start only
+    for k in range(4, 7):                               # each waits for the last to finish
+        d.queue(Segment((DEG(2.0 * k), DEG(90.0)), 0.02))
+        assert d.wait_idle(2.0)
+    assert d.state().queue_ran_dry - before == 4        # three more starts from empty

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sys
 import tomllib
 from importlib import resources
 from pathlib import Path
@@ -11,6 +12,16 @@ from benchjog.kinematics.model import Arm
 
 BUILTIN_ARMS = ("planar-bench", "scara-bench")
 DEFAULT_ARM = "planar-bench"
+MAX_ARM_FILE_BYTES = 1024 * 1024  # an arm file is a few kB
+
+
+
+def _info(message: str, *args: object) -> None:
+    """Log at INFO when logging is in use (``-v``); a command without it does not pay
+    for importing the logging package just to drop the record."""
+    logging = sys.modules.get("logging")
+    if logging is not None:
+        logging.getLogger(__name__).info(message, *args)
 
 
 def _arm_from_text(text: str, source: str) -> Arm:
@@ -18,7 +29,11 @@ def _arm_from_text(text: str, source: str) -> Arm:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ArmSpecError(source, "toml", str(exc).splitlines()[0]) from None
-    return arm_from_mapping(data, source)
+    except RecursionError:
+        raise ArmSpecError(source, "toml", "arrays or tables nested too deeply") from None
+    arm = arm_from_mapping(data, source)
+    _info("arm %s (%s, %d joints) from %s", arm.name, arm.geometry, arm.n_joints, source)
+    return arm
 
 
 def builtin_arm(name: str = DEFAULT_ARM) -> Arm:
@@ -38,13 +53,23 @@ def load_arm(spec: str | Path | None) -> Arm:
     """
     if spec is None:
         return builtin_arm(DEFAULT_ARM)
-    path = Path(spec)
-    if not path.exists() and str(spec) in BUILTIN_ARMS:
-        return builtin_arm(str(spec))
+    from benchjog.console.cell.safe_files import FileError, read_bytes
+
+    name = str(spec)
     try:
-        raw = path.read_bytes()
-    except OSError as exc:
-        raise ArmSpecError(str(spec), "file", exc.strerror or str(exc)) from None
+        exists = Path(spec).exists()
+    except (OSError, ValueError):  # a NUL byte, a name too long: read_bytes says which
+        exists = True
+    if not exists:
+        if name in BUILTIN_ARMS:
+            return builtin_arm(name)
+        if "/" not in name and not name.endswith(".toml"):
+            raise ArmSpecError(name, "arm", "no such arm file or built-in arm (built-in: "
+                               f"{', '.join(BUILTIN_ARMS)})")
+    try:
+        raw = read_bytes(spec, MAX_ARM_FILE_BYTES)
+    except FileError as exc:
+        raise ArmSpecError(exc.source, "file", exc.problem.removeprefix("cannot read: ")) from None
     try:
         text = raw.decode("utf-8-sig")  # a leading byte-order mark (some editors) is dropped
     except UnicodeDecodeError:

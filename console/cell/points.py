@@ -34,8 +34,8 @@ The points file::
 
 from __future__ import annotations
 
+import difflib
 import math
-import tomllib
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
@@ -43,7 +43,8 @@ from pathlib import Path
 from typing import Any
 
 from benchjog.kinematics.armspec import number_problem
-from benchjog.console.cell.safe_files import FileError, FileLock, read_text, real_path, toml_text, write_atomic
+from benchjog.console.cell.safe_files import (FileError, FileLock, parse_toml, read_text, real_path,
+                                             toml_text_keeping, write_atomic)
 from benchjog.kinematics.frames import FrameError, UserFrame, base_from_frame, frame_from_base, \
     frame_from_two_points
 from benchjog.kinematics.model import Arm, Branch
@@ -54,6 +55,7 @@ FILE_VERSION = 1
 BASE = "base"
 CONSISTENCY_MM = 0.05  # stored joints and Cartesian values further apart than this: a warning
 POINT_KEYS = ("name", "frame", "cartesian", "joints", "branch", "taught", "note")
+MAX_CELL_MM = 1e6  # a kilometre: any bench cell's coordinates are far inside this
 FRAME_KEYS = ("name", "origin", "angle_deg", "z_mm", "taught")
 
 
@@ -139,6 +141,8 @@ class PointBook:
     path: Path | None = None
     warnings: list[str] = field(default_factory=list)
     _lock: FileLock | None = field(default=None, repr=False)
+    _where: dict[str, int] | None = field(default=None, repr=False, compare=False)
+    _as_read: str | None = field(default=None, repr=False)  # the file's text: a save keeps its style
 
     # --- files ---------------------------------------------------------------------
 
@@ -150,8 +154,10 @@ class PointBook:
             FileError: one line naming the file, the key and the problem.
         """
         path = Path(path)
-        book = book_from_mapping(_parse(path), arm, str(path))
+        text = read_text(path)
+        book = book_from_mapping(parse_toml(text, str(path)), arm, str(path))
         book.path = path
+        book._as_read = text
         return book
 
     @classmethod
@@ -186,16 +192,21 @@ class PointBook:
         target = Path(path) if path is not None else self.path
         if target is None:
             raise PointError("the book has no file yet: give a path")
-        text = self.to_text()
-        if self._lock is not None and real_path(target) == real_path(self.path):
+        same_file = self.path is not None and real_path(target) == real_path(self.path)
+        text = self.to_text(keep=self._as_read if same_file else None)
+        if self._lock is not None and same_file:
             write_atomic(target, text)
         else:
             with FileLock(target):
                 write_atomic(target, text)
+        if same_file:
+            self._as_read = text
         return target
 
-    def to_text(self) -> str:
-        return toml_text(self.to_mapping(), header=(
+    def to_text(self, keep: str | None = None) -> str:
+        """The file's text; ``keep``: the text as read, whose comments and formatting
+        stay (safe_files.toml_text_keeping)."""
+        return toml_text_keeping(keep, self.to_mapping(), header=(
             "benchjog points file: taught points and user frames (mm and degrees).\n"
             "Written by benchjog; edit with care: motion goes to cartesian, in frame,\n"
             "on branch."))
@@ -223,14 +234,35 @@ class PointBook:
         return [p.name for p in self.points]
 
     def has(self, name: str) -> bool:
-        return any(p.name == name for p in self.points)
+        return self._position(name) is not None
 
     def point(self, name: str) -> TaughtPoint:
-        for p in self.points:
-            if p.name == name:
-                return p
-        raise PointError(f"no point named {name!r}" + (
-            f" (points: {', '.join(self.names)})" if self.points else " (the book is empty)"))
+        i = self._position(name)
+        if i is not None:
+            return self.points[i]
+        if not self.points:
+            raise PointError(f"no point named {name!r} (the book is empty)")
+        close = difflib.get_close_matches(name, self.names, n=3, cutoff=0.6)
+        hint = (f"did you mean {', '.join(map(repr, close))}?" if close
+                else f"{len(self.points)} points, none like it")
+        raise PointError(f"no point named {name!r} ({hint})")
+
+    def _position(self, name: str) -> int | None:
+        """Where the point of that name is in ``points``, by a name index kept beside
+        the list (rebuilt when the list was changed other than through the book)."""
+        where = self._where
+        if where is None or len(where) != len(self.points):
+            where = self._where = {p.name: i for i, p in enumerate(self.points)}
+        i = where.get(name)
+        if i is not None and self.points[i].name != name:
+            self._where = None
+            return self._position(name)
+        return i
+
+    def _append(self, point: TaughtPoint) -> None:
+        if self._where is not None and len(self._where) == len(self.points):
+            self._where[point.name] = len(self.points)
+        self.points.append(point)
 
     def frame(self, name: str) -> UserFrame | None:
         """The user frame of that name; None for "base"."""
@@ -263,7 +295,7 @@ class PointBook:
         if self.has(name):
             raise PointError(f"a point named {name!r} exists already (update or rename it)")
         point = self._make(name, joints, frame, note, taught)
-        self.points.append(point)
+        self._append(point)
         return point
 
     def teach_current(self, interlock: Any, name: str, *, frame: str = BASE,
@@ -288,6 +320,7 @@ class PointBook:
             raise PointError(f"a point named {new!r} exists already")
         renamed = replace(point, name=new)
         self.points[self._index(old)] = renamed
+        self._where = None
         return renamed
 
     def set_note(self, name: str, note: str) -> TaughtPoint:
@@ -298,6 +331,7 @@ class PointBook:
     def delete(self, name: str) -> TaughtPoint:
         point = self.point(name)
         del self.points[self._index(name)]
+        self._where = None
         return point
 
     def define_frame(self, name: str, origin_joints: Sequence[float],
@@ -354,7 +388,10 @@ class PointBook:
         return frame
 
     def _index(self, name: str) -> int:
-        return self.names.index(name)
+        i = self._position(name)
+        if i is None:
+            self.point(name)  # raises, in words
+        return i
 
     def _make(self, name: str, joints: Sequence[float], frame: str, note: str,
               taught: str | None) -> TaughtPoint:
@@ -394,11 +431,7 @@ def points_arm(path: str | Path) -> str | None:
 
 
 def _parse(path: Path) -> Mapping[str, Any]:
-    text = read_text(path)
-    try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise FileError(str(path), "toml", str(exc).splitlines()[0]) from None
+    return parse_toml(read_text(path), str(path))
 
 
 class _Reader:
@@ -499,6 +532,10 @@ def book_from_mapping(data: Mapping[str, Any], arm: Arm, source: str = "<points>
         ox, oy = r.numbers(raw, "origin", where, 2, "x, y mm")
         angle = math.radians(r.number(raw, "angle_deg", where))
         z = r.number(raw, "z_mm", where, default=0.0)
+        for key, value in (("origin", ox), ("origin", oy), ("z_mm", z)):
+            if abs(value) > MAX_CELL_MM:  # 1e308 would overflow the frame's arithmetic
+                raise r.fail(f"{where}: {key}", f"{value:g} mm is beyond +-{MAX_CELL_MM:g} mm: "
+                             "not a place on a bench")
         book.frames[name] = UserFrame(name, ox, oy, angle, z)
         book.frame_taught[name] = r.timestamp(raw, where)
 
@@ -532,7 +569,7 @@ def book_from_mapping(data: Mapping[str, Any], arm: Arm, source: str = "<points>
                          f"({branch_text!r})") from None
         point = TaughtPoint(name, tuple(cart), tuple(joints), branch, frame,
                             r.timestamp(raw, where), r.text(raw, "note", where, required=False))
-        book.points.append(point)
+        book._append(point)
         book.warnings += _consistency(book, point, source)
     return book
 

@@ -108,6 +108,10 @@ def _step_target(book: PointBook, step: MoveStep) -> tuple[Any, tuple[float, ...
     return point, book.base_target(point)
 
 
+def _tolerance(step: MoveStep) -> dict[str, float]:
+    return {} if step.tolerance_mm is None else {"tolerance_mm": step.tolerance_mm}
+
+
 def plan_program(arm: Arm, program: Program, book: PointBook,
                  start_joints: tuple[float, ...] | None = None,
                  gate: Interlock | None = None, start_words: str | None = None) -> ProgramReport:
@@ -121,6 +125,10 @@ def plan_program(arm: Arm, program: Program, book: PointBook,
     own_gate = gate is None
     if own_gate:
         gate = Interlock.open(arm, "sim", journal=False)
+    # A program that repeats a cycle asks for the same move from the same pose again:
+    # the plan and the gate's verdict on it are the same, so each is made once.
+    plans: dict[tuple, Any] = {}
+    verdicts: dict[tuple, list[str]] = {}
     try:
         here = start
         reports: list[StepReport] = []
@@ -134,9 +142,13 @@ def plan_program(arm: Arm, program: Program, book: PointBook,
                     report.problems.append(str(exc))
                     continue
                 report.target = target
+                key = (here, target, point.branch, step.path, step.speed_pct, step.tolerance_mm)
                 try:
-                    plan = plan_move(arm, here, target, branch=point.branch, path=step.path,
-                                     speed_pct=step.speed_pct)
+                    plan = plans.get(key)
+                    if plan is None:
+                        plan = plans[key] = plan_move(arm, here, target, branch=point.branch,
+                                                      path=step.path, speed_pct=step.speed_pct,
+                                                      **_tolerance(step))
                 except TargetError as exc:
                     report.problems.append(str(exc))
                     continue
@@ -154,8 +166,10 @@ def plan_program(arm: Arm, program: Program, book: PointBook,
                 # the interlock's static checks for this one action (no driver state);
                 # a plan's own problems come back among them
                 begin = report.summary.start_joints if report.summary is not None else None
-                verdict = gate.check_actions([report.action], begin)
-                report.problems += [r for r in verdict.reasons if r not in report.problems]
+                key = (id(report.action), begin)
+                if isinstance(report.action, (Dwell, SetOutput)) or key not in verdicts:
+                    verdicts[key] = list(gate.check_actions([report.action], begin).reasons)
+                report.problems += [r for r in verdicts[key] if r not in report.problems]
         return ProgramReport(arm, program, start, here, reports, list(book.warnings),
                              start_words=start_words)
     finally:

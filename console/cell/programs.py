@@ -19,6 +19,7 @@ The program file::
     point = "clear"               # a point of the points file
     path = "joint"                # "joint" (default) or "line"
     speed_pct = 80.0              # 1..100, default 100
+    tolerance_mm = 0.02           # line only: chordal tolerance, default 0.05 mm
 
     [[steps]]
     action = "dwell"
@@ -36,15 +37,17 @@ Every step may carry an optional ``note``. Steps are numbered from 1 for people
 from __future__ import annotations
 
 import math
-import tomllib
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Union
 
 from benchjog.kinematics.armspec import number_problem
+from benchjog.console.cell.safe_files import (FileError, FileLock, parse_toml, read_text, real_path,
+                                             toml_text_keeping, write_atomic)
+from benchjog.kinematics.planner import check_tolerance
+from benchjog.kinematics.solve import TargetError
 from benchjog.kinematics.model import Arm
-from benchjog.console.cell.safe_files import FileError, FileLock, read_text, real_path, toml_text, write_atomic
 
 FILE_KIND = "benchjog-program"
 FILE_VERSION = 1
@@ -64,9 +67,11 @@ class MoveStep:
     path: str = "joint"
     speed_pct: float = 100.0
     note: str = ""
+    tolerance_mm: float | None = None  # line steps: None for the planner's default
 
     def describe(self) -> str:
-        return f"move to {self.point} ({self.path} path, {self.speed_pct:g} %)"
+        within = f", within {self.tolerance_mm:g} mm" if self.tolerance_mm is not None else ""
+        return f"move to {self.point} ({self.path} path{within}, {self.speed_pct:g} %)"
 
 
 @dataclass(frozen=True)
@@ -100,6 +105,13 @@ def check_step(step: Step) -> Step:
             raise ProgramError(f"path must be 'joint' or 'line' ({step.path!r})")
         if not (math.isfinite(step.speed_pct) and SPEED_MIN_PCT <= step.speed_pct <= 100.0):
             raise ProgramError(f"speed must be {SPEED_MIN_PCT:g}..100 % ({step.speed_pct:g})")
+        if step.tolerance_mm is not None:
+            if step.path != "line":
+                raise ProgramError("a tolerance is for line moves only")
+            try:
+                check_tolerance(step.tolerance_mm)
+            except TargetError as exc:
+                raise ProgramError(str(exc)) from None
     elif isinstance(step, DwellStep):
         if not (math.isfinite(step.seconds) and 0 < step.seconds <= DWELL_MAX_S):
             raise ProgramError(f"a dwell lasts more than 0 and at most {DWELL_MAX_S:g} s "
@@ -126,6 +138,7 @@ class Program:
     note: str = ""
     path: Path | None = None
     arm: str = ""          # the name of the arm the program is for ("" when not named)
+    _as_read: str | None = field(default=None, repr=False, compare=False)  # a save keeps its style
 
     @property
     def points_path(self) -> Path:
@@ -176,7 +189,7 @@ class Program:
         count = 0
         for i, step in enumerate(self.steps):
             if isinstance(step, MoveStep) and step.point == old:
-                self.steps[i] = MoveStep(new, step.path, step.speed_pct, step.note)
+                self.steps[i] = replace(step, point=new)
                 count += 1
         return count
 
@@ -188,6 +201,8 @@ class Program:
             if isinstance(step, MoveStep):
                 item = {"action": "move", "point": step.point, "path": step.path,
                         "speed_pct": float(step.speed_pct)}
+                if step.tolerance_mm is not None:
+                    item["tolerance_mm"] = float(step.tolerance_mm)
             elif isinstance(step, DwellStep):
                 item = {"action": "dwell", "seconds": float(step.seconds)}
             else:
@@ -202,8 +217,10 @@ class Program:
             doc["steps"] = steps
         return doc
 
-    def to_text(self) -> str:
-        return toml_text(self.to_mapping(), header=(
+    def to_text(self, keep: str | None = None) -> str:
+        """The file's text; ``keep``: the text as read, whose comments and formatting
+        stay (safe_files.toml_text_keeping)."""
+        return toml_text_keeping(keep, self.to_mapping(), header=(
             "benchjog program: steps run in order; moves go to points of the points file."))
 
     def save(self, path: str | Path | None = None, lock: FileLock | None = None) -> Path:
@@ -212,12 +229,15 @@ class Program:
         target = Path(path) if path is not None else self.path
         if target is None:
             raise ProgramError("the program has no file yet: give a path")
+        same_file = self.path is not None and real_path(target) == real_path(self.path)
+        text = self.to_text(keep=self._as_read if same_file else None)
         if lock is not None and lock.held and lock.path == real_path(target):
-            write_atomic(target, self.to_text())
+            write_atomic(target, text)
         else:
             with FileLock(target):
-                write_atomic(target, self.to_text())
+                write_atomic(target, text)
         self.path = target
+        self._as_read = text
         return target
 
     @classmethod
@@ -229,16 +249,13 @@ class Program:
         """
         path = Path(path)
         text = read_text(path)
-        try:
-            data = tomllib.loads(text)
-        except tomllib.TOMLDecodeError as exc:
-            raise FileError(str(path), "toml", str(exc).splitlines()[0]) from None
-        program = program_from_mapping(data, str(path))
+        program = program_from_mapping(parse_toml(text, str(path)), str(path))
         program.path = path
+        program._as_read = text
         return program
 
 
-_STEP_KEYS = {"move": ("action", "point", "path", "speed_pct", "note"),
+_STEP_KEYS = {"move": ("action", "point", "path", "speed_pct", "tolerance_mm", "note"),
               "dwell": ("action", "seconds", "note"),
               "output": ("action", "channel", "on", "note")}
 
@@ -292,7 +309,16 @@ def step_from_mapping(raw: Any, source: str, number: int) -> Step:
         if not SPEED_MIN_PCT <= speed <= 100.0:
             raise FileError(source, f"{where}: speed_pct",
                             f"must be {SPEED_MIN_PCT:g}..100 ({speed:g})")
-        return MoveStep(point, path, speed, note)
+        tolerance = None
+        if "tolerance_mm" in raw:
+            if path != "line":
+                raise FileError(source, f"{where}: tolerance_mm", "for line moves only (path = \"line\")")
+            tolerance = _number(source, where, raw, "tolerance_mm")
+            try:
+                check_tolerance(tolerance)
+            except TargetError as exc:
+                raise FileError(source, f"{where}: tolerance_mm", str(exc)) from None
+        return MoveStep(point, path, speed, note, tolerance)
     if action == "dwell":
         seconds = _number(source, where, raw, "seconds")
         if not 0 < seconds <= DWELL_MAX_S:

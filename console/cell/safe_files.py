@@ -11,6 +11,12 @@ and a small TOML writer (``tomllib`` reads TOML but does not write it).
   the message.
 - :func:`toml_text`: tables, arrays of tables, strings (escaped), numbers, booleans and
   flat arrays of them - all our files need.
+- :func:`toml_text_keeping`: a save over a file a person edited keeps their comments,
+  key order and formatting (tomlkit, the style-preserving TOML library), changing only
+  the values that changed.
+- :func:`read_text` caps the size (:data:`MAX_FILE_BYTES`) and turns every way a path
+  can be bad (too long, a NUL byte, a device) into one line; :func:`parse_toml` turns a
+  too-deep nesting (RecursionError in ``tomllib``) into one line too.
 """
 
 from __future__ import annotations
@@ -21,6 +27,8 @@ import os
 import re
 import stat
 import tempfile
+import time
+import tomllib
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -80,6 +88,7 @@ def write_atomic(path: str | Path, text: str, *, backup: bool = True) -> None:
     path = real_path(path)
     directory = path.parent
     tmp_name = None
+    remove_stale_temps(path)
     try:
         fd, tmp_name = tempfile.mkstemp(dir=directory, prefix=f".{path.name}.", suffix=".tmp")
         os.fchmod(fd, _mode_for(path))  # mkstemp makes 0600; keep the file's own mode
@@ -103,6 +112,35 @@ def write_atomic(path: str | Path, text: str, *, backup: bool = True) -> None:
                 os.unlink(tmp_name)
             except OSError:
                 pass
+
+
+STALE_TEMP_S = 60.0  # a temp file of a save this old was left by a save that was killed
+
+
+def remove_stale_temps(path: str | Path, *, older_than_s: float = STALE_TEMP_S) -> list[Path]:
+    """Remove the hidden temporary files (``.<name>.*.tmp``) that a killed save left
+    beside ``path``. Saves hold the file's lock, so no other save of this file is in
+    progress; the age limit spares a temp file that something else is still writing.
+    Returns what was removed."""
+    path = real_path(path)
+    removed = []
+    now = time.time()
+    try:
+        entries = list(os.scandir(path.parent))
+    except OSError:
+        return removed
+    prefix = f".{path.name}."
+    for entry in entries:
+        if not (entry.name.startswith(prefix) and entry.name.endswith(".tmp")):
+            continue
+        try:
+            if entry.is_file(follow_symlinks=False) and \
+                    now - entry.stat(follow_symlinks=False).st_mtime >= older_than_s:
+                os.unlink(entry.path)
+                removed.append(Path(entry.path))
+        except OSError:
+            pass
+    return removed
 
 
 def _mode_for(path: Path) -> int:
@@ -139,16 +177,46 @@ def _keep_backup(path: Path) -> None:
         raise
 
 
-def read_text(path: str | Path) -> str:
-    """A file's UTF-8 text, or a one-line FileError."""
+MAX_FILE_BYTES = 16 * 1024 * 1024  # far above any hand-kept cell (10,000 points: ~2 MB)
+
+
+def read_bytes(path: str | Path, limit: int = MAX_FILE_BYTES) -> bytes:
+    """A file's bytes, at most ``limit`` of them, or a one-line FileError: a missing or
+    unreadable file, a name too long (ENAMETOOLONG), a NUL byte in the name, a
+    directory, or something larger than the limit (``/dev/zero`` included: it is read
+    only up to the limit)."""
+    name = str(path)
+    shown = name if len(name) <= 80 else name[:60] + "..." + name[-16:]
+    if "\0" in name:
+        raise FileError(shown.replace("\0", "\\0"), "", "the file name holds a NUL byte")
     try:
-        raw = Path(path).read_bytes()
+        with open(path, "rb") as handle:
+            raw = handle.read(limit + 1)
     except OSError as exc:
-        raise FileError(str(path), "", f"cannot read: {exc.strerror or exc}") from None
+        raise FileError(shown, "", f"cannot read: {exc.strerror or exc}") from None
+    if len(raw) > limit:
+        raise FileError(shown, "", f"larger than {limit // (1024 * 1024)} MiB: not a benchjog file")
+    return raw
+
+
+def read_text(path: str | Path, limit: int = MAX_FILE_BYTES) -> str:
+    """A file's UTF-8 text (size-capped, see :func:`read_bytes`), or a one-line FileError."""
+    raw = read_bytes(path, limit)
     try:
         return raw.decode("utf-8-sig")  # a leading byte-order mark (some editors) is dropped
     except UnicodeDecodeError:
         raise FileError(str(path), "", "not UTF-8 text") from None
+
+
+def parse_toml(text: str, source: str) -> dict[str, Any]:
+    """``tomllib.loads``, with every failure one FileError line: a syntax error, and
+    arrays or inline tables nested so deep that the parser's recursion runs out."""
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise FileError(source, "toml", str(exc).splitlines()[0]) from None
+    except RecursionError:
+        raise FileError(source, "toml", "arrays or tables nested too deeply") from None
 
 
 # --- lock ----------------------------------------------------------------------------
@@ -182,6 +250,14 @@ class FileLock:
     def acquire(self) -> "FileLock":
         if self._fd is not None:
             return self
+        for _ in range(10):  # a holder removed the lock file between our open and flock
+            fd = self._try_acquire()
+            if fd is not None:
+                self._fd = fd
+                return self
+        raise FileError(str(self.path), "", "cannot lock: the lock file keeps changing")
+
+    def _try_acquire(self) -> int | None:
         try:
             fd = os.open(self.lock_file, os.O_RDWR | os.O_CREAT, 0o644)
         except OSError as exc:
@@ -198,20 +274,42 @@ class FileLock:
         except OSError as exc:
             os.close(fd)
             raise FileError(str(self.path), "", f"cannot lock: {exc.strerror or exc}") from None
-        os.ftruncate(fd, 0)
-        os.pwrite(fd, f"{os.getpid()}\n".encode("ascii"), 0)
-        self._fd = fd
-        return self
-
-    def release(self) -> None:
-        fd, self._fd = self._fd, None
-        if fd is None:
-            return
+        try:
+            if not os.path.samestat(os.fstat(fd), os.stat(self.lock_file)):
+                os.close(fd)  # locked a file that its last holder had just removed
+                return None
+        except FileNotFoundError:
+            os.close(fd)
+            return None
         try:
             os.ftruncate(fd, 0)
+            if os.pwrite(fd, f"{os.getpid()}\n".encode("ascii"), 0) <= 0:
+                raise OSError(28, "No space left on device")
+        except OSError as exc:  # a full disk: the project's one line, not a raw OSError
+            self._drop(fd)
+            raise FileError(str(self.path), "", f"cannot lock: {exc.strerror or exc}") from None
+        return fd
+
+    def _drop(self, fd: int) -> None:
+        """Remove the lock file, then unlock and close (removal first, while still
+        held, so nobody else can be holding it when it goes)."""
+        try:
+            try:
+                if os.path.samestat(os.fstat(fd), os.stat(self.lock_file)):
+                    os.unlink(self.lock_file)
+            except OSError:
+                pass
             fcntl.flock(fd, fcntl.LOCK_UN)
         finally:
             os.close(fd)
+
+    def release(self) -> None:
+        """Unlock and remove the lock file (a lock file left behind means its holder
+        died; the kernel has dropped its lock even then)."""
+        fd, self._fd = self._fd, None
+        if fd is None:
+            return
+        self._drop(fd)
 
     def __enter__(self) -> "FileLock":
         return self.acquire()
@@ -318,10 +416,131 @@ def toml_text(doc: Mapping[str, Any], header: str = "") -> str:
     return "\n".join(lines) + "\n"
 
 
+def toml_text_keeping(original: str | None, doc: Mapping[str, Any], header: str = "") -> str:
+    r"""TOML text for ``doc`` that keeps what a person wrote in ``original`` (the file as
+    last read): comments, key order, blank lines and number formatting stay; values
+    that changed are replaced, keys that went are removed, new keys and tables are
+    appended. Tables in an array of tables (``[[points]]``) are matched by their
+    ``name`` when every one has one (a rename or a delete leaves the others' comments
+    alone), otherwise by position.
+
+    The result is checked: it must read back (``tomllib``) exactly as ``toml_text(doc)``
+    does; if not (or when ``original`` is empty or not TOML), the plain writer's text is
+    returned, so a save is never wrong for the sake of formatting.
+
+    >>> old = '# my cell\n[file]\nkind = "points"   # do not change\nscale = 1.50\n'
+    >>> print(toml_text_keeping(old, {"file": {"kind": "points", "scale": 1.5, "n": 2}}), end="")
+    # my cell
+    [file]
+    kind = "points"   # do not change
+    scale = 1.50
+    n = 2
+    """
+    fresh = toml_text(doc, header)
+    if not original or not original.strip():
+        return fresh
+    try:
+        import tomlkit
+
+        kept = tomlkit.parse(original)
+        _merge_table(kept, doc)
+        text = tomlkit.dumps(kept)
+        if tomllib.loads(text) == tomllib.loads(fresh):
+            return text
+    except Exception:  # noqa: BLE001 - any surprise: the plain writer's text, never a wrong file
+        pass
+    return fresh
+
+
+def _same(item: Any, value: Any) -> bool:
+    plain = item.unwrap() if hasattr(item, "unwrap") else item
+    return type(plain) is type(value) and plain == value or (
+        isinstance(plain, list) and isinstance(value, (list, tuple)) and list(value) == plain
+        and all(type(a) is type(b) for a, b in zip(plain, value)))
+
+
+def _merge_table(table: Any, doc: Mapping[str, Any]) -> None:
+    import tomlkit
+
+    for key in list(table.keys()):
+        if doc.get(key) is None:
+            del table[key]
+    for key, value in doc.items():
+        if value is None:
+            continue
+        if isinstance(value, Mapping):
+            current = table.get(key)
+            if isinstance(current, dict):
+                _merge_table(current, value)
+            else:
+                table[key] = _new_table(value)
+        elif _is_table_array(value):
+            _merge_array(table, key, value)
+        elif key in table and _same(table[key], value):
+            continue
+        else:
+            table[key] = list(value) if isinstance(value, tuple) else value
+            if isinstance(value, float):
+                table[key] = tomlkit.item(0.0 if value == 0 else value)
+
+
+def _new_table(value: Mapping[str, Any]) -> Any:
+    import tomlkit
+
+    table = tomlkit.table()
+    for key, item in value.items():
+        if item is not None:
+            table[key] = list(item) if isinstance(item, tuple) else item
+    return table
+
+
+def _merge_array(table: Any, key: str, items: Sequence[Mapping[str, Any]]) -> None:
+    import tomlkit
+    from tomlkit.items import AoT
+
+    current = table.get(key)
+    if not isinstance(current, AoT):
+        aot = tomlkit.aot()
+        for item in items:
+            aot.append(_new_table(item))
+        table[key] = aot
+        return
+    old = list(current)
+    by_name = all("name" in t for t in old) and all("name" in i for i in items)
+    pool = {str(t["name"]): t for t in old} if by_name else None
+    chosen = []
+    for index, item in enumerate(items):
+        if pool is not None:
+            match = pool.pop(str(item["name"]), None)
+        else:
+            match = old[index] if index < len(old) else None
+        if match is None:
+            match = _new_table(item)
+        else:
+            _merge_table(match, item)
+        chosen.append(match)
+    kept = [t for t in chosen if any(t is o for o in old)]
+    survivors = [o for o in old if any(o is t for t in chosen)]
+    if chosen[:len(kept)] == kept and all(a is b for a, b in zip(kept, survivors)):
+        # deletions and additions at the end only: edit the array in place, so the
+        # blank lines and comments between tables stay as they were
+        for index in reversed(range(len(old))):
+            if not any(old[index] is t for t in chosen):
+                del current[index]
+        for t in chosen[len(kept):]:
+            current.append(t)
+        return
+    aot = tomlkit.aot()
+    for t in chosen:
+        aot.append(t)
+    table[key] = aot
+
+
 def _is_table_array(value: Any) -> bool:
     return (isinstance(value, Sequence) and not isinstance(value, str) and len(value) > 0
             and all(isinstance(v, Mapping) for v in value))
 
 
-__all__ = ["FileError", "FileLocked", "FileLock", "write_atomic", "read_text",
+__all__ = ["FileError", "FileLocked", "FileLock", "write_atomic", "read_text", "read_bytes",
+           "parse_toml", "remove_stale_temps", "toml_text_keeping", "MAX_FILE_BYTES",
            "backup_path", "lock_path", "toml_text", "toml_string", "toml_value"]

@@ -18,13 +18,9 @@ import math
 import sys
 
 from benchjog.console import exit_codes
-from benchjog.console.cell.armfile import load_arm
-from benchjog.console.cell.program_runs import (load_program, load_program_for, plan_program, report_json, report_lines,
-                                                result_words, run_program)
-from benchjog.console.cli.common import (add_arm_option, add_journal_option, add_port_options, drives_off,
-                                         exit_code_of, open_gate, print_json, run_stoppable)
-from benchjog.console.cli.confirm import PromptConfirmer
-from benchjog.console.errors import UsageError
+from benchjog.console.cli.common import (add_arm_option, add_journal_option, add_output_options,
+                                         add_port_options, drives_off, exit_code_of, open_gate,
+                                         print_json, quiet, result_json, run_stoppable)
 
 
 # --- the commands----------------------------------------------------------------
@@ -43,7 +39,7 @@ def register(sub: argparse._SubParsersAction) -> None:
                        "point of the program's points file, or joint values in degrees (mm "
                        "for the quill) separated by commas, e.g. 0,90")
     add_arm_option(check)
-    check.add_argument("--json", action="store_true", help="machine-readable output")
+    add_output_options(check)
     check.set_defaults(func=cmd_check)
 
     run = sub.add_parser("run", help="run a program for real after one confirmation",
@@ -54,10 +50,15 @@ def register(sub: argparse._SubParsersAction) -> None:
     add_arm_option(run)
     add_port_options(run)
     add_journal_option(run)
+    add_output_options(run, json_help="one JSON object a line on stdout: one per step as it "
+                       "starts, then the result (docs/cli-json.md)")
     run.set_defaults(func=cmd_run)
 
 
 def cmd_check(args: argparse.Namespace) -> int:
+    from benchjog.console.cell.program_runs import (load_program_for, plan_program, report_json,
+                                                    report_lines)
+
     # the arm: --arm, else the one the files name; bad files: one line, exit 2 (errors.py)
     arm, program, book = load_program_for(args.program, args.arm)
     start, words = start_pose(arm, book, args.start)
@@ -75,6 +76,8 @@ def start_pose(arm, book, text: str) -> tuple[tuple[float, ...] | None, str]:
     Raises:
         UsageError: one line naming what is wrong.
     """
+    from benchjog.console.errors import UsageError
+
     text = text.strip()
     if text == "home":
         return None, "the home pose"
@@ -96,18 +99,108 @@ def start_pose(arm, book, text: str) -> tuple[tuple[float, ...] | None, str]:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
+    from benchjog.console.cell.program_runs import (load_program_for, report_lines, result_words,
+                                                    run_program)
+    from benchjog.console.cli.confirm import PromptConfirmer
+
     arm, program, book = load_program_for(args.program, args.arm)
     confirmer = PromptConfirmer(arm, question="Run this program?")
-    with open_gate(arm, args) as gate:
-        gate.enable()
+    steps = StepReporter(args, program.steps)
+    result = None
+    with open_gate(arm, args, enable_on_yes=True) as gate:   # drives on only after the yes
+        steps.watch(gate)
         try:
             report, result = run_stoppable(
                 gate, lambda: run_program(gate, arm, program, book, confirmer))
         finally:
+            steps.close(result_completed=result is not None and result.completed)
             drives_off(gate)
-    if not report.ok:
-        for line in report_lines(report):
-            print(line, file=sys.stderr)
-    print(result_words(report, result))
-    return exit_code_of(result)
+        if not report.ok:
+            for line in report_lines(report):
+                print(line, file=sys.stderr)
+        code = exit_code_of(result, gate)   # waits for the journal; warns when it failed
+        if args.json:
+            doc = result_json("run", result)
+            doc["summary"] = result_words(report, result)
+            print_json(doc)
+        else:
+            print(result_words(report, result))
+        return code
 
+
+class StepReporter:
+    """Shows a running program's steps as they start: with ``--json`` one JSON line a
+    step on stdout; on a terminal (stdout and stderr both, not ``--quiet``) a rich
+    progress bar on stderr; into a pipe, nothing extra.
+
+    It learns of each step from the interlock's journal records (a ``segment`` or an
+    ``output`` record names its step), so it watches and never drives the arm."""
+
+    def __init__(self, args: argparse.Namespace, program_steps) -> None:
+        self.steps = list(program_steps)
+        self.json = bool(getattr(args, "json", False))
+        self.bar = (not self.json and not quiet(args) and sys.stdout.isatty()
+                    and sys.stderr.isatty())
+        self.shown = 0  # steps announced so far
+        self._progress = None
+        self._task = None
+
+    def watch(self, gate) -> None:
+        journal = gate._journal  # noqa: SLF001 - read-only tap on what the gate records
+        record = journal.record
+
+        def tapped(kind: str, **fields):
+            record(kind, **fields)
+            if kind in ("segment", "output") and fields.get("step") is not None:
+                self.reached(int(fields["step"]))
+
+        journal.record = tapped
+
+    def reached(self, index: int) -> None:
+        """Steps up to ``index`` (0-based) have started (a dwell records nothing, so
+        it is announced when the step after it starts, or at the end)."""
+        while self.shown <= index and self.shown < len(self.steps):
+            step = self.steps[self.shown]
+            self.shown += 1
+            if self.json:
+                print_json({"event": "step", "step": self.shown, "of": len(self.steps),
+                            "description": step.describe()})
+            elif self.bar:
+                self._advance(step.describe())
+
+    def _advance(self, text: str) -> None:
+        if self._progress is None:
+            from rich.console import Console
+            from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+
+            self._progress = Progress(TextColumn("{task.description}"), BarColumn(),
+                                      MofNCompleteColumn(), console=Console(stderr=True),
+                                      transient=True)
+            self._task = self._progress.add_task("", total=len(self.steps))
+            self._progress.start()
+        self._progress.update(self._task, completed=self.shown - 1,
+                              description=f"step {self.shown}: {text}")
+
+    def close(self, result_completed: bool) -> None:
+        if result_completed and self.shown:
+            self.reached(len(self.steps) - 1)
+        if self._progress is not None:
+            self._progress.update(self._task, completed=self.shown)
+            self._progress.stop()
+            self._progress = None
+
+
+
+_FROM_RUNS = ("load_program", "plan_program", "report_json", "report_lines", "result_words",
+              "run_program")
+
+
+def __getattr__(name: str):
+    """The program functions, re-exported lazily from console/cell/program_runs.py (where
+    they live) for callers that import them from here; the module itself stays light so
+    the parser's start-up does not load the planner."""
+    if name in _FROM_RUNS:
+        from benchjog.console.cell import program_runs
+
+        return getattr(program_runs, name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

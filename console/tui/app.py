@@ -120,6 +120,8 @@ class BenchjogApp(App):
         Binding("r", "reset", "reset", tooltip="Clear a latched e-stop (once released), fault or "
                 "lost link; connect when not connected", id="app.reset"),
         Binding("t", "teach", "teach", tooltip="Teach points and edit programs", id="app.teach"),
+        Binding("k", "calibrate", "calibrate", tooltip="Touch fixture-plate holes and calibrate the "
+                "arm file", id="app.calibrate"),
         Binding("ctrl+q", "quit", "quit", tooltip="Stop any motion and quit", priority=True,
                 id="app.quit"),
         Binding("f1", "help", "help", tooltip="List every key of this screen, what it does and "
@@ -447,12 +449,19 @@ class BenchjogApp(App):
 
     # -- controls (driver I/O in a worker, stop at once) ----------------------------------
     def action_stop(self) -> None:
-        self.pending = None
+        # The gate's stop reaches the driver before anything else and never raises or
+        # waits (drivers/interlock.py); nothing here stands before it.
         self.interlock.stop()            # returns at once, from the UI thread
-        if self.confirm_screen is not None and self.confirm_screen.is_attached:
-            self.confirm_screen.action_answer(False)
-        self.jog_screen.log_event("stop", "stop sent")
-        self.set_message("stop sent", error=True)
+        self.pending = None
+        try:
+            if self.confirm_screen is not None and self.confirm_screen.is_attached:
+                self.confirm_screen.action_answer(False)
+            self.jog_screen.log_event("stop", "stop sent")
+            journal_error = self.interlock.journal_error
+            self.set_message("stop sent" + (f" (journal failing: {journal_error})"
+                                            if journal_error else ""), error=True)
+        except Exception:  # noqa: BLE001 - the stop went out; the screen must not crash on it
+            pass
 
     def action_drives(self) -> None:
         on = self.state is not None and self.state.enabled
@@ -505,9 +514,18 @@ class BenchjogApp(App):
             self.install_screen(screen, name="teach")  # kept, not unmounted, when left
         self.push_screen("teach")
 
+    def action_calibrate(self) -> None:
+        """The calibration screen; one for the session, so its touches survive jogging."""
+        if not self.is_screen_installed("calibrate"):
+            from benchjog.console.tui.screens.commission import CalibrationScreen
+
+            self.install_screen(CalibrationScreen(self.interlock, self.arm), name="calibrate")
+        if self.screen is not self.get_screen("calibrate"):
+            self.push_screen("calibrate")
+
     async def action_quit(self) -> None:
         try:
-            self.interlock.stop()
+            self.interlock.stop()        # the driver's stop first; never raises
         finally:
             self.closing = True
             self.exit(0)

@@ -34,6 +34,16 @@ def best_of(fn, runs=15):
     return out, min(times)
 
 
+def tight_lines(arm, start, target) -> None:
+    """Duration against the continuous speed profile at each tolerance (one run)."""
+    for tol in (0.1, 0.01, 0.001, 0.0005, 0.0001):
+        plan, t = best_of(lambda: planner.plan_line_move(arm, start, target, tolerance_mm=tol), runs=3)
+        s = plan.summary
+        print(f"{arm.name}:   tolerance {tol:g} mm: {s.duration_s:.3f} s, continuous profile "
+              f"{s.continuous_s:.3f} s (ratio {s.duration_s / s.continuous_s:.4f}), "
+              f"{s.segment_count} segments ({s.chord_count} chords), planned in {t * 1e3:.1f} ms")
+
+
 def main() -> None:
     cases = []
     arm = builtin_arm("planar-bench")
@@ -53,6 +63,7 @@ def main() -> None:
         print(f"{arm.name}: line {length:.1f} mm at 0.01 mm: {len(plan.segments)} segments, "
               f"lower bound {bound:.1f} (ratio {len(plan.segments) / bound:.2f}), "
               f"best {t * 1e3:.2f} ms, duration {plan.summary.duration_s:.3f} s")
+        tight_lines(arm, start, target)
         q0 = np.array(start)
         line, _ = planner._line_setup(arm, q0, solve.check_target(arm, target), plan.summary.branch)
         (u, _), t_bal = best_of(lambda: planner._balanced_knots(line, q0, 0.01))

@@ -5,8 +5,10 @@ Run by hand: ``python tests/perf/bench_serial.py [--baud 115200] [--segments 100
 Two ways to stream short MOVE segments over a pty to the emulator (``pace`` on: every
 byte takes 10 bit times, both ways):
 - flow control: MOVE lines are pipelined (up to 4 without their OK, the driver's
-  default ``window``) and the controller's queue is kept full (the driver waits for
-  a DONE only when it is full); also with ``window=1``, each OK awaited;
+  default ``window``; PROTOCOL.md allows it because STATE's ``moves=``/``last=`` find a
+  MOVE whose reply was lost) and the controller's queue is kept full (the driver waits
+  for a DONE only when it is full); also against an older controller whose STATE has no
+  counters, where the driver awaits each OK (as ``window=1`` does);
 - stop-and-wait: the next MOVE goes out only after the previous segment's DONE.
 
 Rates are printed in segments/s and as a ratio to the line rate the baud allows for
@@ -18,7 +20,6 @@ arm-bound case (at most 50 segments/s whatever the link).
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 import time
 
@@ -43,8 +44,9 @@ def _wait_done(d: SerialDriver) -> None:
             d._cond.wait(0.5)
 
 
-def run(mode: str, arm, baud: int, n: int, ms: int, window: int) -> tuple[float, float, float]:
-    emu = Emulator(arm, {"pace": True, "baud": baud, "home_s": 0.05})
+def run(mode: str, arm, baud: int, n: int, ms: int, window: int,
+        counters: bool = True) -> tuple[float, float, float, int]:
+    emu = Emulator(arm, {"pace": True, "baud": baud, "home_s": 0.05, "counters": counters})
     path = emu.start()
     d = SerialDriver(arm, port=path, baud=baud, window=window)
     try:
@@ -60,6 +62,7 @@ def run(mode: str, arm, baud: int, n: int, ms: int, window: int) -> tuple[float,
                 _wait_done(d)
         t_sent = time.perf_counter() - t0
         _wait_done(d)
+        dry = d.state().queue_ran_dry
         assert emu.position_counts() == _counts(n - 1), "the arm did not reach the last target"
         assert d.state().latched is None
         moves = [b for b in emu.received if " MOVE " in b]
@@ -69,7 +72,7 @@ def run(mode: str, arm, baud: int, n: int, ms: int, window: int) -> tuple[float,
         move_b = sum(len(P.host_line(s, "MOVE", ms, *_counts(k))) for k, s in enumerate(seqs)) / n
         ok_b = sum(len(P.frame(f"OK {s} free=0")) for s in seqs) / n
         done_b = sum(len(P.frame(f"DONE {s}")) for s in seqs) / n
-        return n / t_sent, move_b + ok_b, max(move_b, ok_b + done_b)
+        return n / t_sent, move_b + ok_b, max(move_b, ok_b + done_b), dry - 1
     finally:
         d.close()
         emu.stop()
@@ -86,17 +89,19 @@ def main() -> int:
           f"{BITS_PER_BYTE} bits/byte, queue 8")
     byte_rate = args.baud / BITS_PER_BYTE
     print(f"the arm could run {1000.0 / args.ms:.0f} segments/s")
-    for label, mode, window in (("flow control, pipelined (window 4)", "flow", 4),
-                                ("flow control, each OK awaited", "flow", 1),
-                                ("stop-and-wait, each DONE awaited", "stop-and-wait", 1)):
+    for label, mode, window, counters in (
+            ("flow control, pipelined (window 4)", "flow", 4, True),
+            ("flow control, controller without counters", "flow", 4, False),
+            ("stop-and-wait, each DONE awaited", "stop-and-wait", 1, True)):
         n = args.segments if mode == "flow" else max(50, args.segments // 3)
-        rate, line_bytes, busiest = run(mode, arm, args.baud, n, args.ms, window)
+        rate, line_bytes, busiest, underruns = run(mode, arm, args.baud, n, args.ms, window, counters)
         line_rate = byte_rate / line_bytes
         duplex = byte_rate / busiest
         print(f"{label:>36}: {rate:6.1f} segments/s = {rate / line_rate:6.1%} of the line rate "
               f"({line_rate:.1f}/s: {line_bytes:.1f} bytes MOVE+OK), "
               f"{rate / duplex:6.1%} of the full-duplex bound ({duplex:.1f}/s: "
-              f"{busiest:.1f} bytes on the busier direction, OK+DONE or MOVE)")
+              f"{busiest:.1f} bytes on the busier direction, OK+DONE or MOVE); "
+              f"the queue ran empty mid-stream {underruns} of {n - 1} times")
     return 0
 
 

@@ -97,7 +97,7 @@ class JogScreen(DimmedKeyHints, Screen):
         Binding("a", "teach_point", "teach pt", tooltip="Teach the pose here as a new point "
                 "(p1, p2, ...) without leaving this screen; t shows the points",
                 id="jog.teach-point"),
-        Binding("k", "sketch", "sketch", show=False, tooltip="Show or hide the sketch (hidden "
+        Binding("o", "sketch", "sketch", show=False, tooltip="Show or hide the sketch (hidden "
                 "by default below 120 x 36, so the panels fit)", id="jog.sketch"),
     ]
 
@@ -107,7 +107,7 @@ class JogScreen(DimmedKeyHints, Screen):
 
     def compose(self) -> ComposeResult:
         # one tree for every size: benchjog.tcss lays it out wide (sketch | panels) from
-        # 120 x 36 and compact below (no sketch unless k, pose and branches side by side)
+        # 120 x 36 and compact below (no sketch unless o, pose and branches side by side)
         yield TooSmall()
         yield Banner(id="banner")
         with Horizontal(id="main"):

@@ -9,6 +9,7 @@ from rich.text import Text
 from textual.message import Message
 from textual.widgets import Static
 
+from benchjog.kinematics.identify import accuracy_at
 from benchjog.kinematics.model import Arm, Branch
 from benchjog.kinematics.solve import IKResult
 
@@ -49,7 +50,25 @@ def branch_rows(arm: Arm, ik: IKResult | None, active: Branch | None) -> list[tu
         else:
             status.append("usable" if sol.usable else "; ".join(sol.problems))
     rows.append(tuple(status))
+    rows.append(accuracy_row(arm, sols))
     return rows
+
+
+def accuracy_row(arm: Arm, sols: dict) -> tuple[str, ...]:
+    """The tool's largest step per encoder count on each branch (mm), and the task
+    Jacobian's condition number when it is ill-conditioned (kinematics/identify.py)."""
+    cells = ["mm/count"]
+    for b in BRANCH_ORDER:
+        sol = sols[b]
+        if sol is None:
+            cells.append("-")
+            continue
+        acc = accuracy_at(arm, sol.joints)
+        cell = f"{max(acc.step_per_count_mm):.3f}"
+        if acc.conditioning:
+            cell += " ill-cond. " + (f"{acc.condition_number:.0f}" if acc.condition_number < 1e6 else "inf")
+        cells.append(cell)
+    return tuple(cells)
 
 
 class BranchTable(Static):
