@@ -88,7 +88,8 @@ def test_ports_json_is_an_array():
     assert done.returncode == 0
     ports = json.loads(done.stdout)
     assert isinstance(ports, list)
-    assert all(set(p) == {"device", "description", "hwid"} for p in ports)
+    assert all(set(p) == {"device", "vid_pid", "serial_number", "description", "hwid", "guess"}
+               for p in ports)  # docs/cli-json.md
 
 
 def test_run_on_a_terminal_shows_a_progress_bar(tmp_path):

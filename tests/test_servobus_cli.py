@@ -93,14 +93,15 @@ def test_port_rows_show_usb_ids_serial_and_a_guess():
     rows = port_rows([info, SimpleNamespace(device="/dev/ttyS0", vid=None, pid=None,
                                             serial_number=None, description="n/a")])
     assert rows[1] == {"device": "/dev/ttyUSB0", "vid_pid": "0403:6014", "serial_number": "FT6Z1",
-                       "description": "USB <-> Serial Converter", "guess": usb_guess(0x0403, 0x6014)}
+                       "description": "USB <-> Serial Converter", "hwid": None,
+                       "guess": usb_guess(0x0403, 0x6014)}
     assert "servo-bus" in rows[1]["guess"]
-    assert rows[0]["vid_pid"] is None and rows[0]["description"] == ""
+    assert rows[0]["vid_pid"] is None and rows[0]["description"] is None
 
 
 def test_ports_json_is_one_document(monkeypatch, capsys):
     code, out, _ = run(monkeypatch, capsys, "", "ports", "--json")
-    assert code == 0 and isinstance(json.loads(out)["ports"], list)
+    assert code == 0 and isinstance(json.loads(out), list)
 
 
 def bus_arm_file(tmp_path, bus_text: str, joint_extra: str = "") -> str:

@@ -154,11 +154,12 @@ def port_rows(ports) -> list[dict]:
     rows = []
     for p in sorted(ports, key=lambda p: p.device):
         vid, pid = getattr(p, "vid", None), getattr(p, "pid", None)
-        desc = p.description if p.description and p.description != "n/a" else ""
+        desc = p.description if p.description and p.description != "n/a" else None
+        hwid = p.hwid if getattr(p, "hwid", None) and p.hwid != "n/a" else None
         rows.append({"device": p.device,
                      "vid_pid": f"{vid:04X}:{pid:04X}" if vid is not None and pid is not None else None,
                      "serial_number": getattr(p, "serial_number", None) or None,
-                     "description": desc, "guess": usb_guess(vid, pid)})
+                     "description": desc, "hwid": hwid, "guess": usb_guess(vid, pid)})
     return rows
 
 
@@ -173,7 +174,7 @@ def cmd_ports(args: argparse.Namespace) -> int:
     rows = port_rows(list_ports.comports())
     if getattr(args, "json", False):
         from benchjog.console.cli.common import print_json
-        print_json({"ports": rows})
+        print_json(rows)
         return exit_codes.OK
     if not rows:
         note(args, "no serial ports found")
