@@ -170,7 +170,7 @@ def test_bad_files_exit_2_with_one_line(monkeypatch, capsys, tmp_path):
 
 def test_arm_option_after_the_subcommand(monkeypatch, capsys):
     code, _, err = cli(monkeypatch, capsys, "", "check", str(DEMO), "--arm", "scara-bench")
-    assert code == 2 and "points.toml" in err  # planar points do not fit the SCARA
+    assert code == 2 and "planar-bench" in err  # the demo program is for the planar arm
 
 
 # --- run -------------------------------------------------------------------------------

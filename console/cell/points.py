@@ -419,6 +419,17 @@ def _display_cartesian(arm: Arm, values: Sequence[float]) -> list[float]:
 
 # --- reading ---------------------------------------------------------------------------
 
+def points_arm(path: str | Path) -> str | None:
+    """The arm a points file names in ``[file] arm`` (None when it names none).
+
+    Raises:
+        FileError: the file cannot be read or is not TOML.
+    """
+    head = _parse(Path(path)).get("file")
+    arm = head.get("arm") if isinstance(head, Mapping) else None
+    return arm.strip() if isinstance(arm, str) and arm.strip() else None
+
+
 def _parse(path: Path) -> Mapping[str, Any]:
     return parse_toml(read_text(path), str(path))
 

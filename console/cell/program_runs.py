@@ -54,6 +54,13 @@ class ProgramReport:
     end_joints: tuple[float, ...]
     steps: list[StepReport]
     warnings: list[str] = field(default_factory=list)   # not tied to one step (the points file)
+    start_words: str = "the home pose"   # where the plan starts, in words
+
+    def start_line(self) -> str:
+        """Which pose the plan starts from, with its joint values."""
+        joints = ", ".join(f"{j.name} {j.to_display(v):.2f} {j.unit}"
+                           for j, v in zip(self.arm.joints, self.start_joints))
+        return f"planned from {self.start_words} ({joints})"
 
     @property
     def problems(self) -> list[str]:
@@ -107,11 +114,14 @@ def _tolerance(step: MoveStep) -> dict[str, float]:
 
 def plan_program(arm: Arm, program: Program, book: PointBook,
                  start_joints: tuple[float, ...] | None = None,
-                 gate: Interlock | None = None) -> ProgramReport:
+                 gate: Interlock | None = None, start_words: str | None = None) -> ProgramReport:
     """Plan every step (no motion). ``start_joints`` default: the arm's home pose.
     ``gate``: the interlock whose static checks to apply; a simulated one is opened
-    (and closed) when none is given."""
+    (and closed) when none is given. ``start_words`` names the start pose in the
+    report (default: "the home pose", or "the given joints")."""
     start = tuple(start_joints) if start_joints is not None else arm.home_joints
+    if start_words is None:
+        start_words = "the home pose" if start_joints is None else "the given joints"
     own_gate = gate is None
     if own_gate:
         gate = Interlock.open(arm, "sim", journal=False)
@@ -160,7 +170,8 @@ def plan_program(arm: Arm, program: Program, book: PointBook,
                 if isinstance(report.action, (Dwell, SetOutput)) or key not in verdicts:
                     verdicts[key] = list(gate.check_actions([report.action], begin).reasons)
                 report.problems += [r for r in verdicts[key] if r not in report.problems]
-        return ProgramReport(arm, program, start, here, reports, list(book.warnings))
+        return ProgramReport(arm, program, start, here, reports, list(book.warnings),
+                             start_words=start_words)
     finally:
         if own_gate:
             gate.close()
@@ -182,7 +193,8 @@ def report_lines(report: ProgramReport) -> list[str]:
     """The dry run for people: one block per step, then the totals."""
     arm, program = report.arm, report.program
     where = f" ({program.path})" if program.path else ""
-    out = [f"program {program.name!r}{where}: {len(program.steps)} steps on arm {arm.name}"]
+    out = [f"program {program.name!r}{where}: {len(program.steps)} steps on arm {arm.name}",
+           report.start_line()]
     out += [f"warning: {w}" for w in report.warnings]
     for s in report.steps:
         head = f"step {s.number:>2}: {s.step.describe()}"
@@ -271,6 +283,7 @@ def report_json(report: ProgramReport) -> dict[str, Any]:
         "arm": arm.name,
         "ok": report.ok,
         "start_joints": [j.to_display(v) for j, v in zip(arm.joints, report.start_joints)],
+        "start": report.start_words,
         "steps": steps,
         "total": {
             "duration_s": report.duration_s,
@@ -303,6 +316,17 @@ def load_program(path: str | Path, arm: Arm) -> tuple[Program, PointBook]:
     return program, book
 
 
+def load_program_for(path: str | Path, arm_option: str | None) -> tuple[Arm, Program, PointBook]:
+    """The arm (``--arm``, else the one the files name), the program and its points.
+    Raises FileError (one line) for bad files and for a file written for another arm."""
+    from benchjog.console.cell.armfile import load_arm
+    from benchjog.console.cell.programs import arm_for_program
+    program = Program.load(path)
+    arm = arm_for_program(program, arm_option, load_arm)
+    book = PointBook.load(program.points_path, arm)
+    return arm, program, book
+
+
 def program_request(program: Program) -> str:
     name = program.path.name if program.path else program.name
     return f"program {name} ({program.name}, {len(program.steps)} steps)"
@@ -318,7 +342,8 @@ def run_program(gate: Interlock, arm: Arm, program: Program, book: PointBook,
                 confirmer: Confirmer) -> tuple[ProgramReport, RunResult]:
     """Plan from the arm's current joints, propose once, execute after one yes.
     Blocks until done: call it from a worker thread in the UI."""
-    report = plan_program(arm, program, book, gate.state().joints, gate=gate)
+    report = plan_program(arm, program, book, gate.state().joints, gate=gate,
+                          start_words="the arm's current pose")
     if not report.ok:
         detail = "refused: " + ("; ".join(report.problems) or "the program has no steps")
         first = next((s.number - 1 for s in report.steps if s.problems), None)

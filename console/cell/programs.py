@@ -11,6 +11,7 @@ The program file::
     version = 1
     name = "pick-and-place"
     points = "points.toml"        # the points file, relative to this file
+    arm = "planar-bench"          # optional: the arm it was written for (its [arm] name)
     note = "..."                  # optional
 
     [[steps]]
@@ -46,6 +47,7 @@ from benchjog.console.cell.safe_files import (FileError, FileLock, parse_toml, r
                                              toml_text_keeping, write_atomic)
 from benchjog.kinematics.planner import check_tolerance
 from benchjog.kinematics.solve import TargetError
+from benchjog.kinematics.model import Arm
 
 FILE_KIND = "benchjog-program"
 FILE_VERSION = 1
@@ -135,6 +137,7 @@ class Program:
     steps: list[Step] = field(default_factory=list)
     note: str = ""
     path: Path | None = None
+    arm: str = ""          # the name of the arm the program is for ("" when not named)
     _as_read: str | None = field(default=None, repr=False, compare=False)  # a save keeps its style
 
     @property
@@ -208,6 +211,7 @@ class Program:
             steps.append(item)
         doc: dict[str, Any] = {"program": {"kind": FILE_KIND, "version": FILE_VERSION,
                                            "name": self.name, "points": self.points,
+                                           "arm": self.arm or None,
                                            "note": self.note or None}}
         if steps:
             doc["steps"] = steps
@@ -341,7 +345,7 @@ def program_from_mapping(data: Mapping[str, Any], source: str = "<program>") -> 
     extra = [k for k in data if k not in ("program", "steps")]
     if extra:
         raise FileError(source, extra[0], "unknown key")
-    extra = [k for k in head if k not in ("kind", "version", "name", "points", "note")]
+    extra = [k for k in head if k not in ("kind", "version", "name", "points", "arm", "note")]
     if extra:
         raise FileError(source, f"program: {extra[0]}", "unknown key")
     if head.get("kind") != FILE_KIND:
@@ -357,14 +361,95 @@ def program_from_mapping(data: Mapping[str, Any], source: str = "<program>") -> 
     if not isinstance(raw_steps, list):
         raise FileError(source, "steps", "must be an array of tables ([[steps]])")
     steps = [step_from_mapping(raw, source, i + 1) for i, raw in enumerate(raw_steps)]
-    return Program(name, points, steps, _text(source, "program", head, "note", ""))
+    return Program(name, points, steps, _text(source, "program", head, "note", ""),
+                   arm=_text(source, "program", head, "arm", "").strip())
+
+
+def named_arms(program: Program) -> list[tuple[str, str]]:
+    """The arms the program's files name, each with the file naming it: the program's
+    own ``arm`` and its points file's ``[file] arm`` (a points file that cannot be
+    read names none here: loading it later says why)."""
+    from benchjog.console.cell.points import points_arm
+    out = [(program.arm, str(program.path or "the program"))] if program.arm else []
+    try:
+        named = points_arm(program.points_path)
+    except FileError:
+        named = None
+    if named:
+        out.append((named, str(program.points_path)))
+    return out
+
+
+def wanted_arm(program: Program) -> tuple[str, str] | None:
+    """The arm the program's files want (the program's own word first), with the file
+    naming it; None when neither names one.
+
+    Raises:
+        FileError: the program and its points file name different arms.
+    """
+    named = named_arms(program)
+    if len(named) == 2 and named[0][0] != named[1][0]:
+        raise FileError(named[1][1], "arm", f"taught on arm {named[1][0]!r}, but the program "
+                        f"{named[0][1]} is for arm {named[0][0]!r}")
+    return named[0] if named else None
+
+
+def arm_for_program(program: Program, arm_option: str | None, load_arm) -> Arm:
+    """The arm to check or run ``program`` on: ``--arm`` when given (it must be the
+    arm the files name), else the arm the files name, else the default demo arm.
+
+    Raises:
+        FileError: a file names another arm than ``--arm`` (the message names the arm
+            the file wants), or names an arm that is neither built in nor a file.
+    """
+    wanted = wanted_arm(program)
+    if arm_option is None:
+        if wanted is None:
+            return load_arm(None)
+        name, source = wanted
+        try:
+            return load_arm(name)
+        except Exception as exc:  # noqa: BLE001 - said in one line below
+            raise FileError(source, "arm", f"wants arm {name!r}, which is not built in: give "
+                            f"its arm file with --arm ({str(exc).splitlines()[0]})") from None
+    arm = load_arm(arm_option)
+    if wanted is not None and wanted[0] != arm.name:
+        raise FileError(wanted[1], "arm", f"written for arm {wanted[0]!r}, but --arm gives "
+                        f"{arm.name!r}: use --arm {wanted[0]} (or that arm's file)")
+    return arm
 
 
 def new_program(name: str, points: str) -> Program:
     return Program(name, points)
 
 
-__all__ = ["Program", "MoveStep", "DwellStep", "OutputStep", "Step", "ProgramError",
+def arm_for_files(arm_option: str | None, program_path: str | Path | None,
+                  points_path: str | Path | None, load_arm) -> Arm:
+    """The console's arm: ``--arm`` when given, else the arm the program file (or,
+    without one, the points file) names, else the default demo arm. Files that do not
+    exist yet name nothing (the teach screen starts them).
+
+    Raises:
+        FileError: a file written for another arm than ``--arm``, or an unreadable one.
+    """
+    if program_path is not None and Path(program_path).exists():
+        return arm_for_program(Program.load(program_path), arm_option, load_arm)
+    if points_path is not None and Path(points_path).exists():
+        from benchjog.console.cell.points import points_arm
+        named = points_arm(points_path)
+        if named is not None:
+            if arm_option is None:
+                return arm_for_program(Program("", str(points_path), arm=named,
+                                               path=Path(points_path)), None, load_arm)
+            arm = load_arm(arm_option)
+            if arm.name != named:
+                raise FileError(str(points_path), "arm", f"taught on arm {named!r}, but --arm "
+                                f"gives {arm.name!r}: use --arm {named} (or that arm's file)")
+            return arm
+    return load_arm(arm_option)
+
+
+__all__ = ["Program", "wanted_arm", "arm_for_files", "arm_for_program", "MoveStep", "DwellStep", "OutputStep", "Step", "ProgramError",
            "check_step", "program_from_mapping", "step_from_mapping", "new_program",
            "describe_step"]
 

@@ -26,7 +26,9 @@ from textual.binding import Binding
 
 from benchjog.console.tui.messages import ControlDone, MotionDone, StateUpdated
 from benchjog.console.tui.screens.confirm import ConfirmMoveScreen
+from benchjog.console.tui.screens.help import HelpScreen
 from benchjog.console.tui.screens.jog import JogScreen
+from benchjog.console.tui.widgets.keys import HEIGHT_CLASSES, WIDTH_CLASSES
 from benchjog.drivers.interlock import Confirmer, Interlock, Proposal
 from benchjog.drivers.jog_session import DEADMAN_S, SessionError
 from benchjog.kinematics.model import Arm, Branch
@@ -109,6 +111,8 @@ class BenchjogApp(App):
     CSS_PATH = "benchjog.tcss"
     TITLE = "benchjog"
     ENABLE_COMMAND_PALETTE = False
+    HORIZONTAL_BREAKPOINTS = WIDTH_CLASSES   # compact below 120 x 36, "too small" below 80 x 24
+    VERTICAL_BREAKPOINTS = HEIGHT_CLASSES
 
     BINDINGS = [
         Binding("space", "stop", "stop", tooltip="Stop the arm at once (never asks)",
@@ -126,6 +130,10 @@ class BenchjogApp(App):
                 "arm file", id="app.calibrate"),
         Binding("ctrl+q", "quit", "quit", tooltip="Stop any motion and quit", priority=True,
                 id="app.quit"),
+        Binding("f1", "help", "help", tooltip="List every key of this screen, what it does and "
+                "why a dimmed key cannot act now", id="app.help"),
+        Binding("question_mark", "help", "help", show=False, tooltip="List every key of this "
+                "screen (same as f1)", id="app.help-qm"),
     ]
 
     def __init__(self, arm: Arm, interlock: Interlock, *, points_path: Path | str | None = None,
@@ -169,6 +177,10 @@ class BenchjogApp(App):
 
     def on_unmount(self) -> None:
         self.closing = True
+        if self.is_screen_installed("teach"):   # taught from the jog screen only: its locks
+            close = getattr(self.get_screen("teach"), "_close_files", None)
+            if close is not None:
+                close()
 
     # -- state refresh (thread worker, never blocks the UI) ------------------------------
     def _poll_tick(self) -> None:
@@ -615,6 +627,55 @@ class BenchjogApp(App):
         return True
 
 
+    # -- teaching from the jog screen ------------------------------------------------------
+    def teach_point_here(self) -> None:
+        """Teach the pose here as a new point (p1, p2, ...) without leaving the jog
+        screen: the teach screen's book does it, so its files, locks and rules apply."""
+        if self.busy is not None:
+            self.set_message(f"not taught: the arm is moving ({self.busy.words(self.arm)}); "
+                             "teach when it has stopped", error=True)
+            return
+        if not self.is_screen_installed("teach"):
+            try:
+                module = importlib.import_module(TEACH_MODULE)
+                screen = module.TeachScreen(self.interlock, self.arm, self.points_path,
+                                            self.program_path)
+            except Exception as exc:  # noqa: BLE001 - a broken plug-in screen is one line
+                self.set_message(f"teach screen unavailable: {one_line(exc)}", error=True)
+                return
+            self.install_screen(screen, name="teach")
+        words, ok = self.get_screen("teach").teach_here()
+        self.jog_screen.log_event("teach", words)
+        self.set_message(words, error=not ok)
+
+    # -- help: every key and why a dimmed one cannot act ----------------------------------
+    def action_help(self) -> None:
+        if not isinstance(self.screen, HelpScreen):
+            self.push_screen(HelpScreen(self.screen))
+
+    def why_dimmed(self, action: str, parameters: tuple = ()) -> str:
+        """Why one of the app's keys is dimmed now, in words (the help panel and a
+        refused key show it)."""
+        s = self.state
+        if action in ("drives", "home", "reset") and (s is None or not s.is_open):
+            return "not connected: r connects" if action != "reset" else "not connected yet"
+        if action == "drives":
+            return "latched: clear it with r first"
+        if action == "home":
+            if self.busy is not None:
+                return f"busy with {self.busy.words(self.arm)}"
+            if self.latched():
+                return "latched: clear it with r first"
+            return "drives off: e switches them on"
+        if action == "reset":
+            return "nothing to reset: no e-stop, fault or lost link latched"
+        if action == "teach":
+            if not self.has_teach():
+                return "the teach screen is not installed"
+            return f"busy with {self.busy.words(self.arm)}" if self.busy else "not available now"
+        return "not available now"
+
+
 def make_app(arm: Arm, interlock: Interlock, *, points_path: Path | str | None = None,
              program_path: Path | str | None = None) -> BenchjogApp:
     """The console on an open interlock (shared by the CLI and the tests). The caller
@@ -627,8 +688,11 @@ def run_console(args) -> int:
     controller over serial when ``--port`` is given."""
     from benchjog.console.cell.armfile import load_arm
     from benchjog.console.cell.link import open_gate
+    from benchjog.console.cell.programs import arm_for_files
 
-    arm = load_arm(args.arm)
+    # --arm, else the arm the program or points file names (a mismatch: one line, exit 2)
+    arm = arm_for_files(args.arm, getattr(args, "program", None), getattr(args, "points", None),
+                        load_arm)
     gate = open_gate(arm, args, require_link=False)  # not connected: shown, r retries
     try:
         make_app(arm, gate, points_path=getattr(args, "points", None),

@@ -7,9 +7,11 @@ from collections.abc import Sequence
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import VerticalScroll
+from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Footer, Static
+
+from benchjog.console.tui.widgets.keys import TooSmall
 
 
 class ConfirmMoveScreen(ModalScreen[bool]):
@@ -29,7 +31,9 @@ class ConfirmMoveScreen(ModalScreen[bool]):
                 id="confirm.stop"),
         Binding("s", "app.stop", "stop", show=False, tooltip="Stop the arm at once and answer no",
                 id="confirm.stop-s"),
+        Binding("f1", "app.help", "help", tooltip="List these keys", id="confirm.help"),
     ]
+    HELP_NAME = "confirmation"
 
     def __init__(self, lines: Sequence[str], *, title: str = "confirm motion"):
         super().__init__()
@@ -38,22 +42,26 @@ class ConfirmMoveScreen(ModalScreen[bool]):
         self.answered = False
 
     def compose(self) -> ComposeResult:
-        with VerticalScroll(id="confirm-box"):
+        # the answer keys stay in view at any size: only the plan scrolls
+        yield TooSmall()
+        with Vertical(id="confirm-box"):
             yield Static(Text(self.title_words, style="bold"), id="confirm-title")
-            text = Text()
-            for n, line in enumerate(self.lines):
-                if n:
-                    text.append("\n")
-                low = line.lower()
-                style = ("bold red" if line.startswith("REFUSED") else
-                         "yellow" if ("warning" in low or "near" in low) else "")
-                text.append(line, style=style)
-            yield Static(text, id="confirm-lines")
-            yield Static(Text("Keep clear of the arm; the hardware e-stop is the safety "
-                              "function, this prompt is not.", style="yellow"), id="confirm-caution")
             yield Static(Text("y: move now    n / escape: cancel (nothing moves)",
                               style="bold"), id="confirm-keys")
-        yield Footer()
+            with VerticalScroll(id="confirm-scroll"):
+                yield Static(self._lines_text(), id="confirm-lines")
+            yield Static(Text("Keep clear of the arm; the hardware e-stop is the safety "
+                              "function, this prompt is not.", style="yellow"), id="confirm-caution")
+        yield Footer(compact=True)
+
+    def check_action(self, action: str, parameters: tuple) -> bool | None:
+        if action == "answer" and parameters and parameters[0] is True and (
+                self.has_class("-too-narrow") or self.has_class("-too-short")):
+            return None   # no yes to a plan the terminal is too small to show
+        return True
+
+    def why_dimmed(self, action: str, parameters: tuple = ()) -> str:
+        return "the terminal is too small to show the plan: enlarge it first"
 
     def action_answer(self, yes: bool) -> None:
         if not self.answered:
@@ -72,7 +80,7 @@ class ConfirmMoveScreen(ModalScreen[bool]):
             return   # compose() will use the new lines
         self.query_one("#confirm-title", Static).update(Text(self.title_words, style="bold"))
         self.query_one("#confirm-lines", Static).update(self._lines_text())
-        self.query_one("#confirm-box", VerticalScroll).scroll_home(animate=False)
+        self.query_one("#confirm-scroll", VerticalScroll).scroll_home(animate=False)
 
     def _lines_text(self) -> Text:
         text = Text()

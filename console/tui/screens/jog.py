@@ -18,13 +18,15 @@ from textual.widgets import Footer, Static
 
 from benchjog.console.tui.widgets.branch_table import BranchTable
 from benchjog.console.tui.widgets.joint_readout import JointReadout
+from benchjog.console.tui.widgets.keys import DimmedKeyHints, KeyFooter, TooSmall
 from benchjog.console.tui.widgets.sketch import PoseSketch
 from benchjog.console.tui.widgets.status import (Banner, EventLog, JogStatus, LinkStatus, WarningsPanel,
-                                    banner_lines, link_words)
+                                    banner_lines, link_short, link_words)
 from benchjog.console.tui.widgets.target_input import TargetInput
 from benchjog.kinematics.model import Arm
 
 CARTESIAN_AXES = ("x", "y", "z", "roll")
+SHORT_CAUTION = "Not a safety function: keep the hardware e-stop in reach (ISO 10218/13849)."
 SCARA_ONLY = ("z", "roll", "j3", "j4")
 
 
@@ -61,8 +63,15 @@ STEP_GROUP = Binding.Group("step", compact=True)
 SPEED_STEPS_PCT = (100.0, 50.0, 25.0, 10.0)
 
 
-class JogScreen(Screen):
+class JogScreen(DimmedKeyHints, Screen):
     AUTO_FOCUS = ""   # nothing focused: keys go to the screen; g focuses the target field
+    HELP_NAME = "jog screen"
+    # the footer's keys (binding ids): the most used; f1 lists them all
+    FOOTER_KEYS = ("jog.x-minus", "jog.x-plus", "jog.y-minus", "jog.y-plus", "jog.z-minus",
+                   "jog.z-plus", "jog.roll-minus", "jog.roll-plus", "jog.j1-minus", "jog.j1-plus",
+                   "jog.j2-minus", "jog.j2-plus", "jog.j3-minus", "jog.j3-plus", "jog.j4-minus",
+                   "jog.j4-plus", "jog.target", "jog.move", "app.stop", "jog.teach-point",
+                   "app.teach", "app.help")
 
     BINDINGS = jog_bindings() + [
         Binding("1", "step(0.1)", "0.1", tooltip="Jog step 0.1 mm / 0.1 deg", id="jog.step-fine",
@@ -85,6 +94,11 @@ class JogScreen(Screen):
                 "100, 50, 25 or 10 %", id="jog.speed"),
         Binding("escape", "clear_target", "clear", show=False, tooltip="Forget the typed target",
                 id="jog.clear"),
+        Binding("a", "teach_point", "teach pt", tooltip="Teach the pose here as a new point "
+                "(p1, p2, ...) without leaving this screen; t shows the points",
+                id="jog.teach-point"),
+        Binding("o", "sketch", "sketch", show=False, tooltip="Show or hide the sketch (hidden "
+                "by default below 120 x 36, so the panels fit)", id="jog.sketch"),
     ]
 
     def __init__(self, arm: Arm):
@@ -92,23 +106,28 @@ class JogScreen(Screen):
         self.arm = arm
 
     def compose(self) -> ComposeResult:
+        # one tree for every size: benchjog.tcss lays it out wide (sketch | panels) from
+        # 120 x 36 and compact below (no sketch unless o, pose and branches side by side)
+        yield TooSmall()
         yield Banner(id="banner")
         with Horizontal(id="main"):
             with Vertical(id="left"):
                 yield PoseSketch(self.arm, id="sketch")
             with Vertical(id="right"):
                 yield LinkStatus(id="link")
-                yield JointReadout(self.arm, id="readout")
-                yield BranchTable(self.arm, id="branches")
-                yield WarningsPanel(id="warnings")
-        with Horizontal(id="bottom"):
-            with Vertical(id="entry"):
-                yield TargetInput(self.arm, id="target")
-                yield JogStatus(id="jogstatus")
-                yield Static("", id="message")
-                yield Static(CAUTION, id="caution")
-            yield EventLog(id="events")
-        yield Footer(compact=True)
+                with Horizontal(id="pose-row"):
+                    yield JointReadout(self.arm, id="readout")
+                    yield BranchTable(self.arm, id="branches")
+                with Horizontal(id="notes"):
+                    yield WarningsPanel(id="warnings")
+                    yield EventLog(id="events")
+        with Vertical(id="entry"):
+            yield TargetInput(self.arm, id="target", compact=True)
+            yield JogStatus(id="jogstatus")
+            yield Static("", id="message")
+            yield Static(CAUTION, id="caution")
+            yield Static(SHORT_CAUTION, id="caution-short")
+        yield KeyFooter(compact=True)
 
     def on_mount(self) -> None:
         self.query_one("#sketch").border_title = f"{self.arm.name}: seen from above" + (
@@ -134,7 +153,12 @@ class JogScreen(Screen):
         session = app.session_view()
         self.query_one(LinkStatus).show(link_words(app.state, app.driver_name, app.state_error,
                                                    polled) + "\n" + self.motion_words()
-                                        + "\n" + self.session_words(session))
+                                        + "\n" + self.session_words(session),
+                                        short=link_short(app.state, app.driver_name,
+                                                         app.state_error) + "   "
+                                        + self.motion_words()
+                                        + (f"   {self.session_words(session)}"
+                                           if session is not None else ""))
         actual = app.actual
         self.query_one(JointReadout).show(actual, app.commanded_joints())
         ik, active, title = app.current_ik()
@@ -148,9 +172,11 @@ class JogScreen(Screen):
 
     def jog_words(self) -> str:
         app = self.app
-        mode = "joints" if app.joint_mode else "tool (Cartesian)"
-        unit = "mm / deg" if (app.joint_mode or self.arm.is_scara) else "mm"
-        return (f"jog {mode}   step {app.step:g} {unit}   move path {app.path} (p)   "
+        mode = "joints" if app.joint_mode else "tool"
+        unit = "mm/deg" if (app.joint_mode or self.arm.is_scara) else "mm"
+        if isinstance(self.focused, TargetInput):
+            return "TYPING A TARGET: enter previews it, escape hands the keys back to jogging"
+        return (f"keys jog: {mode} (j)  step {app.step:g} {unit} (1 2 3)  path {app.path} (p)  "
                 f"speed {app.speed_pct:g} % (v)")
 
     # -- the jog session (the interlock holds it; this only shows it) ---------------------
@@ -244,8 +270,12 @@ class JogScreen(Screen):
         self.refresh_view()
 
     def action_clear_target(self) -> None:
+        self.query_one(TargetInput).value = ""   # the field says what the target is
         if self.app.target is not None:
             self.app.clear_target()
+
+    def on_target_input_cleared(self, message) -> None:
+        self.action_clear_target()
 
     def check_action(self, action: str, parameters: tuple) -> bool | None:
         app = self.app
@@ -268,3 +298,64 @@ class JogScreen(Screen):
             ik, _active, _ = app.current_ik()
             return True if (ik is not None and ik.reachable and len(ik.solutions) > 1) else None
         return True
+
+    # -- layout and help ---------------------------------------------------------------
+    def on_descendant_focus(self, event) -> None:
+        self.refresh_view()   # the status line says where keys go
+
+    def on_descendant_blur(self, event) -> None:
+        self.refresh_view()
+
+    # the start of a typed number outside the field opens the field with it (the step
+    # keys 1 2 3 stay step keys): "-180 0" typed by mistake never jogs or stops
+    NUMBER_STARTS = "-.+0456789"
+
+    def on_key(self, event) -> None:
+        if (event.character and event.character in self.NUMBER_STARTS
+                and not isinstance(self.focused, TargetInput)
+                and not self.active_bindings.get(event.key)):
+            field = self.query_one(TargetInput)
+            select = field.select_on_focus
+            field.select_on_focus = False      # the typed character is kept, not selected
+            field.value = event.character
+            field.cursor_position = len(field.value)
+            field.focus()
+            self.call_after_refresh(setattr, field, "select_on_focus", select)
+            event.stop()
+            event.prevent_default()   # also skips DimmedKeyHints.on_key (Textual walks the MRO)
+
+    def action_teach_point(self) -> None:
+        self.app.teach_point_here()
+
+    def action_sketch(self) -> None:
+        self.toggle_class("-sketch-toggled")
+
+    def show_refusal(self, words: str) -> None:
+        self.app.set_message(words, error=True)
+
+    def why_dimmed(self, action: str, parameters: tuple = ()) -> str:
+        """Why a jog-screen key is dimmed now, in words."""
+        app = self.app
+        if action in ("jog", "move", "home"):
+            s = app.state
+            if s is None or not s.is_open:
+                return "not connected: r connects"
+            if app.latched():
+                return "latched: r resets (once the cause is cleared)"
+            if not s.enabled:
+                return "drives off: e switches them on"
+            if not s.homed:
+                return "not homed: h runs the homing cycle"
+            if app.busy is not None:
+                return f"busy with {app.busy.words(self.arm)}"
+        if action == "move":
+            if app.target is None:
+                return "no target: g to type one"
+            sol = app.target_ik.solution(app.branch) if (app.target_ik and app.branch) else None
+            if sol is None:
+                return "the target is out of reach"
+            if not sol.usable:
+                return f"{sol.branch} not usable: {'; '.join(sol.problems)}"
+        if action == "branch":
+            return "only one branch here (out of reach, or a stretched or folded arm)"
+        return "not available now"

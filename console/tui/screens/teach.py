@@ -34,10 +34,18 @@ from benchjog.console.cell.program_runs import plan_program, report_lines, resul
 from benchjog.console.cell.points import BASE, PointBook, PointError
 from benchjog.console.cell.programs import DwellStep, MoveStep, OutputStep, Program, ProgramError
 from benchjog.console.cell.safe_files import FileError, FileLock
-from benchjog.drivers.interlock import Confirmer, Interlock
+from benchjog.console.tui.widgets.joint_readout import readout_rows
+from benchjog.console.tui.widgets.keys import DimmedKeyHints, KeyFooter, TooSmall
+from benchjog.console.tui.widgets.sketch import PoseSketch
+from benchjog.drivers.interlock import START_TOL_MM, START_TOL_RAD, Confirmer, Interlock
 from benchjog.kinematics.model import Arm
 
 SPEEDS = (100.0, 50.0, 25.0, 10.0)
+# the commanded end of the last motion is the pose taught while the measured pose is
+# this close to it (a following error); further away, the arm is elsewhere and the
+# measured pose is taught (deg for revolute joints, mm for the quill)
+FOLLOW_MAX_DEG = 2.0
+FOLLOW_MAX_MM = 2.0
 
 
 def one_line(exc: BaseException) -> str:
@@ -120,21 +128,79 @@ class YesNoScreen(ModalScreen[bool]):
         self.dismiss(bool(yes))
 
 
-class TeachScreen(Screen):
+class RunClock:
+    """Progress of a running program estimated from its plan: the step durations and
+    the time since the yes, with paused time left out. The interlock reports no
+    progress of its own; this is the console's estimate and says so ("about")."""
+
+    def __init__(self, clock=None):
+        import time
+        self.clock = clock or time.monotonic
+        self.durations_s: list[float] = []
+        self.started_at: float | None = None
+        self.held_at: float | None = None
+        self.held_s = 0.0
+
+    @property
+    def started(self) -> bool:
+        return self.started_at is not None
+
+    def start(self, durations_s: list[float]) -> None:
+        self.durations_s = list(durations_s)
+        self.started_at = self.clock()
+
+    def hold(self, on: bool) -> None:
+        now = self.clock()
+        if on and self.held_at is None:
+            self.held_at = now
+        elif not on and self.held_at is not None:
+            self.held_s += now - self.held_at
+            self.held_at = None
+
+    def progress(self) -> tuple[int, int, float]:
+        """(step number from 1, steps, seconds left)."""
+        total = len(self.durations_s)
+        if self.started_at is None or not total:
+            return 0, total, 0.0
+        now = self.held_at if self.held_at is not None else self.clock()
+        elapsed = max(0.0, now - self.started_at - self.held_s)
+        done = 0.0
+        for n, d in enumerate(self.durations_s, 1):
+            done += d
+            if elapsed < done:
+                return n, total, max(0.0, sum(self.durations_s) - elapsed)
+        return total, total, 0.0
+
+    def watching(self, confirmer: Confirmer, screen: "TeachScreen") -> Confirmer:
+        """The confirmer, passed through: a yes starts this clock (on the UI thread,
+        by a message) with the steps of the plan that was confirmed."""
+        clock = self
+
+        class _Watch(Confirmer):
+            def confirm(self, proposal) -> bool:
+                yes = confirmer.confirm(proposal)
+                if yes:
+                    durations = [a.summary.duration_s if hasattr(a, "summary") else
+                                 getattr(a, "seconds", 0.0) for a in proposal.actions]
+                    screen.post_message(TeachScreen.RunStarted(durations,
+                                                               proposal.lines(screen.arm)))
+                return yes
+
+        return _Watch()
+
+
+class TeachScreen(DimmedKeyHints, Screen):
     """Points, frames and the program. Built by the app's ``t`` key."""
 
-    DEFAULT_CSS = """
-    TeachScreen #teach-tables { height: 1fr; }
-    TeachScreen #points-box, TeachScreen #steps-box { width: 1fr; }
-    TeachScreen DataTable { height: 1fr; }
-    TeachScreen #teach-report-box { height: 12; border-top: solid $accent; }
-    TeachScreen #teach-status { height: 2; }
-    """
     AUTO_FOCUS = "#points-table"
+    HELP_NAME = "teach screen"
+    # the footer's keys (binding ids): the most used; f1 lists every key
+    FOOTER_KEYS = ("teach.stop", "teach.teach", "teach.goto", "teach.add-step", "teach.check",
+                   "teach.run", "teach.pause", "teach.back", "app.help")
 
     BINDINGS = [
         Binding("space", "stop", "stop", priority=True, tooltip="Stop the arm at once (never asks)",
-                id="teach.stop"),
+                id="teach.stop", key_display="spc"),
         Binding("a", "teach", "teach", tooltip="Teach the current pose as a new named point",
                 id="teach.teach"),
         Binding("u", "update", "update", tooltip="Teach the selected point again at the current "
@@ -166,10 +232,17 @@ class TeachScreen(Screen):
                 id="teach.check"),
         Binding("ctrl+r", "run", "run", tooltip="Run the whole program (shows the plan, asks once)",
                 id="teach.run"),
-        Binding("p", "pause", "pause/resume", tooltip="Pause the running program before its next "
+        Binding("p", "pause", "pause", tooltip="Pause the running program before its next "
                 "step, or resume it", id="teach.pause"),
         Binding("escape", "back", "back", tooltip="Back to the jog screen", id="teach.back"),
     ]
+
+    @dataclass
+    class RunStarted(Message):
+        """The program was confirmed and starts (posted from the worker thread)."""
+
+        durations_s: list[float]
+        lines: list[str]
 
     @dataclass
     class MotionFinished(Message):
@@ -178,6 +251,7 @@ class TeachScreen(Screen):
         words: str
         outcome: str
         detail: str
+        end_joints: tuple | None = None   # the commanded end when it completed
 
     def __init__(self, interlock: Interlock, arm: Arm, points_path: Path | str | None = None,
                  program_path: Path | str | None = None):
@@ -190,19 +264,26 @@ class TeachScreen(Screen):
         self.program: Program | None = None
         self.program_lock = FileLock(self.program_path)
         self.read_only = False
+        self.read_only_reason = ""
         self.busy: str | None = None       # what is moving, for the footer and the status
         self.paused = False
         self.new_path = "joint"
         self.new_speed = SPEEDS[0]
         self.frame_origin: tuple[str, tuple[float, ...]] | None = None  # a frame half taught
         self.status = ""
+        self.status_error = False
         self.report_text: list[str] = []
+        self.run_clock: RunClock | None = None
 
     # --- life cycle ------------------------------------------------------------------
 
     def compose(self) -> ComposeResult:
+        yield TooSmall()
         yield Static(id="teach-alarm")
         yield Static(id="teach-files")
+        with Horizontal(id="teach-live"):
+            yield Static(id="teach-pose")
+            yield PoseSketch(self.arm, id="teach-sketch")
         with Horizontal(id="teach-tables"):
             with Vertical(id="points-box"):
                 yield Label(Text("points", style="bold"))
@@ -213,7 +294,7 @@ class TeachScreen(Screen):
         yield Static(id="teach-status")
         with VerticalScroll(id="teach-report-box"):
             yield Static(id="teach-report")
-        yield Footer()
+        yield KeyFooter(compact=True)
 
     def on_mount(self) -> None:
         points = self.query_one("#points-table", DataTable)
@@ -221,16 +302,20 @@ class TeachScreen(Screen):
         steps = self.query_one("#steps-table", DataTable)
         steps.add_columns("#", "step", "note")
         self._open_files()
+        self.set_status(self.status, error=self.status_error)   # set before it was composed
         self.refresh_all()
 
     def on_unmount(self) -> None:
         self._close_files()
 
     def _open_files(self) -> None:
+        if self.book is not None:
+            return   # opened already (a point taught from the jog screen)
         try:
             self.book = PointBook.open(self.points_path, self.arm)
         except FileError as exc:
             self.read_only = True
+            self.read_only_reason = one_line(exc)
             self.set_status(f"read only: {one_line(exc)}", error=True)
             try:
                 self.book = PointBook.load(self.points_path, self.arm) \
@@ -242,6 +327,7 @@ class TeachScreen(Screen):
             self.program_lock.acquire()
         except FileError as exc:
             self.read_only = True
+            self.read_only_reason = self.read_only_reason or one_line(exc)
             self.set_status(f"read only: {one_line(exc)}", error=True)
         try:
             if self.program_path.exists():
@@ -252,7 +338,8 @@ class TeachScreen(Screen):
                                     f"this screen edits {self.points_path}", error=True)
             else:
                 rel = os.path.relpath(self.points_path.resolve(), self.program_path.resolve().parent)
-                self.program = Program(self.program_path.stem, rel, path=self.program_path)
+                self.program = Program(self.program_path.stem, rel, path=self.program_path,
+                                       arm=self.arm.name)
         except FileError as exc:
             self.read_only = True
             self.program = Program(self.program_path.stem, str(self.points_path),
@@ -270,6 +357,7 @@ class TeachScreen(Screen):
 
     def set_status(self, words: str, *, error: bool = False) -> None:
         self.status = words
+        self.status_error = error
         try:
             self.query_one("#teach-status", Static).update(
                 Text(words, style="bold red" if error else ""))
@@ -289,6 +377,9 @@ class TeachScreen(Screen):
             alarm = self.query_one("#teach-alarm", Static)
         except NoMatches:
             return  # not composed yet, or being taken down
+        self._show_pose(state)
+        if self.run_clock is not None and self.run_clock.started:
+            self.query_one("#teach-files", Static).update(self.files_words())
         latched = getattr(state, "latched", None) if state is not None else None
         if state is not None and not state.is_open:
             latched = "not connected"
@@ -299,14 +390,45 @@ class TeachScreen(Screen):
         else:
             alarm.display = False
 
-    def refresh_all(self) -> None:
+    def _show_pose(self, state) -> None:
+        """The live pose (measured) on one line and in the small sketch."""
+        joints = tuple(state.joints) if state is not None else None
+        try:
+            pose = self.query_one("#teach-pose", Static)
+            sketch = self.query_one("#teach-sketch", PoseSketch)
+        except NoMatches:
+            return
+        if joints is None:
+            pose.update("pose: unknown (not connected)")
+            return
+        rows = readout_rows(self.arm, joints, None)
+        n_tool = 4 if self.arm.is_scara else 3
+        tool = " ".join(f"{name.split()[-2]} {actual}" for name, _t, actual, _e in rows[:n_tool])
+        each = " ".join(f"{name.rsplit(' ', 1)[0]} {actual}"
+                        for name, _t, actual, _e in rows[n_tool:])
+        words = f"now {tool} | {each}"
+        if words != getattr(self, "_pose_words", None):
+            self._pose_words = words
+            pose.update(words)
+            sketch.show(joints)
+
+    def files_words(self) -> str:
         files = (f"points: {self.points_path}   program: {self.program_path}   new steps: "
                  f"{self.new_path} path, {self.new_speed:g} %")
         if self.read_only:
             files += "   (read only)"
         if self.busy:
             files += f"   in progress: {self.busy}" + (" (paused)" if self.paused else "")
-        self.query_one("#teach-files", Static).update(files)
+            progress = self.progress_words()
+            if progress:
+                files += f": {progress}"
+        return files
+
+    def refresh_all(self) -> None:
+        try:
+            self.query_one("#teach-files", Static).update(self.files_words())
+        except NoMatches:
+            return   # not composed (taught from the jog screen): shown when it is
         table = self.query_one("#points-table", DataTable)
         row = table.cursor_row
         table.clear()
@@ -387,6 +509,32 @@ class TeachScreen(Screen):
             self.set_status(f"cannot read the arm's position: {one_line(exc)}", error=True)
             return None
 
+    def _teach_joints(self) -> tuple[tuple[float, ...] | None, str]:
+        """The pose to teach and a note for the status: the commanded pose the user
+        jogged or moved to (not the measured one, which carries the following error),
+        and the measured difference when it exceeds the interlock's position tolerance
+        (START_TOL_RAD / START_TOL_MM). Without a commanded pose near the arm (after a
+        stop, a homing, a fault), the measured pose, said so."""
+        measured = self._current_joints()
+        if measured is None:
+            return None, ""
+        commanded = getattr(self.app, "last_end_joints", None)
+        if commanded is None or len(commanded) != len(measured):
+            return measured, "measured pose (no commanded pose to use)"
+        over: list[str] = []
+        for joint, c, m in zip(self.arm.joints, commanded, measured):
+            gap = m - c
+            far = FOLLOW_MAX_DEG if joint.is_revolute else FOLLOW_MAX_MM
+            if abs(joint.to_display(c) - joint.to_display(m)) > far:
+                return measured, "measured pose (the arm is not at the last commanded pose)"
+            tol = START_TOL_RAD if joint.is_revolute else START_TOL_MM
+            if abs(gap) > tol:
+                shown = joint.to_display(m) - joint.to_display(c)
+                over.append(f"{joint.name} {shown:+.2f} {joint.unit}")
+        if over:
+            return tuple(commanded), ("commanded pose; measured differs by " + ", ".join(over))
+        return tuple(commanded), "commanded pose"
+
     # --- points ------------------------------------------------------------------------
 
     def action_teach(self) -> None:
@@ -400,22 +548,43 @@ class TeachScreen(Screen):
                                        [("name", "point name", name), ("note", "note", "")],
                                        frames=frames), self._teach_answered)
 
+    def teach_here(self) -> tuple[str, bool]:
+        """Teach the pose here as the next free ``p<n>`` in the base frame, from the
+        jog screen (this screen need not be shown). Returns (words, saved)."""
+        self._open_files()
+        if self.read_only:
+            return f"not taught: read only ({self.read_only_reason})", False
+        if self.busy:
+            return f"not taught: busy with {self.busy}", False
+        n = len(self.book.points) + 1
+        while self.book.has(f"p{n}"):
+            n += 1
+        name = f"p{n}"
+        joints, how = self._teach_joints()
+        if joints is None:
+            return self.status, False
+        self._edit(f"taught {name} at the {how}", lambda: self.book.teach(name, joints) and None,
+                   points=True)
+        return self.status, self.status.endswith("(saved)")
+
     def _teach_answered(self, values: dict | None) -> None:
         if not values:
             return
-        joints = self._current_joints()
+        joints, how = self._teach_joints()
         if joints is None:
             return
-        self._edit(f"taught {values['name'].strip()}",
+        self._edit(f"taught {values['name'].strip()} at the {how}",
                    lambda: self.book.teach(values["name"], joints, frame=values["frame"],
                                            note=values["note"]) and None, points=True)
 
     def action_update(self) -> None:
         name = self.selected_point()
-        joints = self._current_joints()
-        if name is None or joints is None:
+        if name is None:
             return
-        self._edit(f"{name} taught again at the current pose",
+        joints, how = self._teach_joints()
+        if joints is None:
+            return
+        self._edit(f"{name} taught again at the {how}",
                    lambda: self.book.update(name, joints) and None, points=True)
 
     def action_rename(self) -> None:
@@ -573,8 +742,14 @@ class TeachScreen(Screen):
     # --- dry run -----------------------------------------------------------------------
 
     def dry_run(self) -> list[str]:
-        """The dry-run report of the program as it is now (from the home pose)."""
-        report = plan_program(self.arm, self.program, self.book, gate=self.interlock)
+        """The dry-run report of the program as it is now, planned from the arm's
+        current pose: where a run started now would start (a dead link: from home,
+        and the report says so)."""
+        joints = self._current_joints()
+        words = "the arm's current pose" if joints is not None else \
+            "the home pose (the arm's pose could not be read)"
+        report = plan_program(self.arm, self.program, self.book, joints, gate=self.interlock,
+                              start_words=words)
         self.report_text = report_lines(report)
         return self.report_text
 
@@ -584,7 +759,12 @@ class TeachScreen(Screen):
         except Exception as exc:  # noqa: BLE001 - shown, never a crash
             self.set_status(f"dry run failed: {one_line(exc)}", error=True)
             return
-        self.set_status(lines[-1] if lines else "")
+        summary = next((line for line in lines if line.startswith("problems:")), "")
+        first = lines[lines.index(summary) + 1].strip() if summary.startswith("problems: ") \
+            and summary != "problems: none" and lines.index(summary) + 1 < len(lines) else ""
+        self.set_status(f"dry run from the current pose: {summary}"
+                        + (f" (first: {first})" if first and summary[10:].isdigit() else ""),
+                        error=summary != "problems: none")
         self.refresh_all()
 
     # --- motion (through the gate, in a thread worker) ------------------------------------
@@ -610,7 +790,9 @@ class TeachScreen(Screen):
             proposal = self.interlock.propose_move(target, branch=branch, path=self.new_path,
                                                    speed_pct=self.new_speed)
             result = self.interlock.execute(proposal, self._confirmer())
-            self.post_message(self.MotionFinished(words, result.outcome, result.detail))
+            ends = [p.segments[-1].joints for p in proposal.plans if p.segments]
+            end = tuple(ends[-1]) if ends and result.completed else None
+            self.post_message(self.MotionFinished(words, result.outcome, result.detail, end))
         except Exception as exc:  # noqa: BLE001 - one line on the screen
             self.post_message(self.MotionFinished(words, "error", one_line(exc)))
 
@@ -622,6 +804,9 @@ class TeachScreen(Screen):
             return
         self.busy = f"program {self.program.name}"
         self.paused = False
+        self.report_text = []            # an old report never stands for this run
+        self.run_clock = RunClock()
+        self.set_status(f"program {self.program.name}: planning from the current pose")
         self.refresh_all()
         self._run_worker()
 
@@ -630,21 +815,46 @@ class TeachScreen(Screen):
         words = f"program {self.program.name}"
         try:
             report, result = run_program(self.interlock, self.arm, self.program, self.book,
-                                         self._confirmer())
+                                         self.run_clock.watching(self._confirmer(), self))
             self.report_text = report_lines(report)
+            end = tuple(report.end_joints) if result.completed else None
             self.post_message(self.MotionFinished(words, result.outcome,
-                                                  result_words(report, result)))
+                                                  result_words(report, result), end))
         except Exception as exc:  # noqa: BLE001
             self.post_message(self.MotionFinished(words, "error", one_line(exc)))
 
     def on_teach_screen_motion_finished(self, message: "TeachScreen.MotionFinished") -> None:
         self.busy = None
+        self.run_clock = None
+        if message.outcome != "cancelled" and hasattr(self.app, "last_end_joints"):
+            # where the arm was sent: teaching and jogging start from it (none when it
+            # did not arrive)
+            self.app.last_end_joints = message.end_joints
         if self.paused:
             self.interlock.resume()
             self.paused = False
         self.set_status(f"{message.words}: {message.detail}",
                         error=message.outcome not in ("done", "cancelled"))
+        log = getattr(getattr(self.app, "jog_screen", None), "log_event", None)
+        if log is not None:   # the jog screen's events panel keeps each result
+            log(message.outcome, f"{message.words}: {message.detail}")
         self.refresh_all()
+
+    def on_teach_screen_run_started(self, message: "TeachScreen.RunStarted") -> None:
+        if self.run_clock is not None:
+            self.run_clock.start(message.durations_s)
+            self.report_text = message.lines
+            self.refresh_all()
+
+    def progress_words(self) -> str:
+        """While a program runs: step n of N and the time left, estimated from the
+        plan's step durations and the time since the yes (pauses not counted)."""
+        clock = self.run_clock
+        if clock is None or not clock.started:
+            return ""
+        n, total, left = clock.progress()
+        return (f"step {n} of {total}, about {left:.1f} s left"
+                + (" (paused)" if self.paused else ""))
 
     def action_stop(self) -> None:
         self.interlock.stop()
@@ -655,6 +865,8 @@ class TeachScreen(Screen):
     def action_pause(self) -> None:
         if not self.busy:
             return
+        if self.run_clock is not None:
+            self.run_clock.hold(not self.paused)
         if self.paused:
             self.interlock.resume()
             self.paused = False
@@ -669,6 +881,25 @@ class TeachScreen(Screen):
         if self.busy:
             return
         self.dismiss()
+
+    # --- help ----------------------------------------------------------------------------
+
+    def show_refusal(self, words: str) -> None:
+        self.set_status(words, error=True)
+
+    def why_dimmed(self, action: str, parameters: tuple = ()) -> str:
+        """Why a teach-screen key is dimmed now, in words."""
+        if action in self.EDITS and self.read_only:
+            return f"read only: {self.read_only_reason or 'another console holds the files'}"
+        if self.busy and action != "pause":
+            return f"busy: {self.busy} (space stops, p pauses)"
+        if action in ("update", "rename", "delete_point", "goto", "add_step"):
+            return "no point selected: a teaches one"
+        if action in ("move_step", "delete_step"):
+            return "no step selected: i adds one"
+        if action == "pause":
+            return "nothing is running"
+        return "not available now"
 
 
 __all__ = ["TeachScreen", "AskScreen", "YesNoScreen"]

@@ -92,10 +92,16 @@ class BranchTable(Static):
             return
         self.ik, self.active, self.title, self.rows = ik, active, title, rows
         self.border_title = title
-        table = Table(box=None, expand=True, show_edge=False, pad_edge=False)
+        table = Table(box=None, expand=True, show_edge=False, pad_edge=False,
+                      collapse_padding=True)
         for i, head in enumerate(rows[0]):
             style = "bold reverse" if head.startswith(ACTIVE_MARK) else "bold"
-            table.add_column(Text(head, style=style), ratio=1 if i == 0 else 2)
+            if i == 0:
+                table.add_column(Text(head, style=style), no_wrap=True,
+                                 min_width=max(len(r[0]) for r in rows))
+            else:   # "> elbow-down" on one line even at 80 columns
+                table.add_column(Text(head, style=style), ratio=1, no_wrap=True,
+                                 min_width=len(head))
         for row in rows[1:]:
             cells = []
             for i, cell in enumerate(row):

@@ -59,6 +59,8 @@ def readout_rows(arm: Arm, actual: Sequence[float] | None, target: Sequence[floa
 def _num(value: float | None, signed: bool = False) -> str:
     if value is None:
         return "-"
+    if round(value, 2) == 0:
+        value = 0.0   # never "-0.00"
     return f"{value:+.2f}" if signed else f"{value:.2f}"
 
 
@@ -77,10 +79,11 @@ class JointReadout(Static):
         if rows == self.rows:
             return
         self.rows = rows
-        table = Table(box=None, expand=True, show_edge=False, pad_edge=False)
-        table.add_column("", ratio=3)
+        table = Table(box=None, expand=True, show_edge=False, pad_edge=False,
+                      collapse_padding=True)
+        table.add_column("", no_wrap=True, min_width=max(len(r[0]) for r in rows))
         for head in ("target", "actual", "error"):
-            table.add_column(head, justify="right", ratio=2)
+            table.add_column(head, justify="right", no_wrap=True)
         n_tool = len(tool_fields(self.arm))
         for i, row in enumerate(rows):
             err_style = ""

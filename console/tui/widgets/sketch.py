@@ -19,6 +19,7 @@ Units in: mm and radians (kinematics/ conventions).
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -42,17 +43,18 @@ HATCH = "#"        # keep-out zones
 REACH = "."        # reach boundaries (max, and min when > 0)
 GROUND = "="       # the table (side view)
 ENVELOPE = "~"     # the jog session's envelope (top view)
+WORKSPACE = "·"   # where the arm's present branch reaches within limits, outside zones
 
 LEGEND_ITEMS = (f"{BASE} base", f"{ELBOW} joint", f"{TOOL} tool", f"{TARGET} target",
                 f"{PLANNED} chosen branch", f"{OTHER} other branch", f"{HATCH} keep-out",
-                f"{REACH} reach", f"{ENVELOPE} jog envelope")
+                f"{REACH} reach", f"{ENVELOPE} jog envelope", f"{WORKSPACE} this branch reaches")
 LEGEND = "  ".join(LEGEND_ITEMS)
 
 
 def legend_lines(width: int) -> list[str]:
     """The legend packed into lines of at most ``width`` characters.
 
-    >>> legend_lines(40)
+    >>> legend_lines(40)[:3]
     ['@ base  o joint  T tool  X target', '+ chosen branch  : other branch', '# keep-out  . reach  ~ jog envelope']
     """
     lines: list[str] = []
@@ -222,14 +224,47 @@ def _draw_pose(canvas: Canvas, view: View, arm: Arm, joints: Sequence[float], li
         canvas.put(*view.cell(*tool), tool_char)
 
 
+@functools.lru_cache(maxsize=32)
+def workspace_cells(arm: Arm, branch: str, z_mm: float, roll_rad: float,
+                    view: View) -> frozenset[tuple[int, int]]:
+    """The cells of ``view`` whose centre the arm reaches on ``branch`` (the contract
+    string) with every joint within its soft limits and the tool outside every
+    keep-out zone: the IK front (``joints_from_tool``) asked at each cell, so the map
+    says exactly what a move there on this branch would be told. A SCARA is asked at
+    the tool's present height and roll. Cached per arm, branch, height, roll and view.
+    """
+    from benchjog.kinematics.solve import joints_from_tool
+    out = set()
+    for row in range(view.rows):
+        for col in range(view.cols):
+            x, y = view.world(col, row)
+            target = (x, y, z_mm, roll_rad) if arm.is_scara else (x, y)
+            ik = joints_from_tool(arm, target)
+            if not ik.reachable:
+                continue
+            sol = next((s for s in ik.solutions if str(s.branch) == branch), None)
+            if sol is None and len(ik.solutions) == 1:
+                sol = ik.solutions[0]      # a stretched or folded arm: both branches meet
+            if sol is not None and sol.usable:
+                out.add((col, row))
+    return frozenset(out)
+
+
+def branch_words(arm: Arm, joints: Sequence[float]) -> str:
+    """The contract branch string of a joint vector (elbow j2 > 0: elbow-down)."""
+    t2 = joints[1] + arm.joints[1].offset_rad
+    return "elbow-down" if math.sin(t2) >= 0 else "elbow-up"
+
+
 def render_top(arm: Arm, joints: Sequence[float], *, width: int, height: int,
                target: Sequence[float] | None = None,
                other_joints: Sequence[float] | None = None,
                planned_joints: Sequence[float] | None = None,
                label: str | None = None,
                envelope: Sequence[float] | None = None,
-               note: str | None = None) -> list[str]:
-    """The top view alone (see :func:`render_sketch`)."""
+               note: str | None = None, workspace: bool = True) -> list[str]:
+    """The top view alone (see :func:`render_sketch`); ``workspace`` dots the cells
+    the present branch reaches (:func:`workspace_cells`)."""
     canvas = Canvas(width, height)
     reach = arm.max_reach_mm
     x0, x1, y0, y1 = -reach, reach, -reach, reach
@@ -240,6 +275,11 @@ def render_top(arm: Arm, joints: Sequence[float], *, width: int, height: int,
         x0, x1 = min(x0, target[0]), max(x1, target[0])
         y0, y1 = min(y0, target[1]), max(y1, target[1])
     view = View.fit(x0, x1, y0, y1, width, height)
+    if workspace and _finite(joints):
+        tool = tool_from_joints(arm, tuple(joints))
+        z, roll = (round(tool[2], 1), round(tool[3], 3)) if arm.is_scara else (0.0, 0.0)
+        for col, row in workspace_cells(arm, branch_words(arm, joints), z, roll, view):
+            canvas.put(col, row, WORKSPACE)
     draw_circle(canvas, view, arm.max_reach_mm, REACH)
     if arm.min_reach_mm > 0:
         draw_circle(canvas, view, arm.min_reach_mm, REACH)
@@ -285,13 +325,50 @@ def _radial_span(zone: Zone) -> tuple[float, float]:
     return math.hypot(nx, ny), far
 
 
+def ray_span(zone: Zone, phi: float) -> tuple[float, float] | None:
+    """Where the half-plane of the arm (from the base axis at angle ``phi``, rad, seen
+    from above) cuts a zone's footprint: (nearest, farthest) distance from the base
+    axis in mm, or None when it misses the zone. A circle: the ray-circle quadratic; a
+    box: the slab method (Kay and Kajiya, SIGGRAPH 1986; from memory).
+
+    >>> post = Zone("post", "circle", cx=100.0, cy=0.0, r=20.0)
+    >>> [round(v, 6) for v in ray_span(post, 0.0)]
+    [80.0, 120.0]
+    >>> ray_span(post, math.pi) is None
+    True
+    >>> tray = Zone("tray", "box", x_min=-300.0, x_max=-200.0, y_min=-70.0, y_max=70.0)
+    >>> [round(v, 6) for v in ray_span(tray, math.pi)], ray_span(tray, math.pi / 2)
+    ([200.0, 300.0], None)
+    """
+    ux, uy = math.cos(phi), math.sin(phi)
+    if zone.kind == "circle":
+        along = ux * zone.cx + uy * zone.cy
+        disc = along * along - (zone.cx ** 2 + zone.cy ** 2 - zone.r ** 2)
+        if disc < 0.0:
+            return None
+        r0, r1 = along - math.sqrt(disc), along + math.sqrt(disc)
+    else:
+        r0, r1 = -math.inf, math.inf
+        for u, lo, hi in ((ux, zone.x_min, zone.x_max), (uy, zone.y_min, zone.y_max)):
+            if abs(u) < 1e-12:
+                if not lo <= 0.0 <= hi:
+                    return None
+                continue
+            a, b = sorted((lo / u, hi / u))
+            r0, r1 = max(r0, a), min(r1, b)
+    if r1 < max(r0, 0.0):
+        return None
+    return max(r0, 0.0), r1
+
+
 def render_side(arm: Arm, joints: Sequence[float], *, width: int, height: int,
                 target: Sequence[float] | None = None, label: str | None = None) -> list[str]:
     """The SCARA seen from the side, unrolled about the base axis: distance from the
     base axis to the right, height z up (both mm, same aspect correction as the top
     view). Shows the table (z = 0), the base column, the links at the flange height,
     the quill down to the tool tip, the target's height and each zone's radial span
-    and z range."""
+    and z range where the arm's plane (through the base axis and the tool) cuts it: a
+    zone at another angle is not drawn."""
     canvas = Canvas(width, height)
     flange = flange_z_mm(arm)
     base_top = arm.joints[0].d_mm
@@ -311,8 +388,12 @@ def render_side(arm: Arm, joints: Sequence[float], *, width: int, height: int,
     view = View.fit(0.0, r1, z0, z1, width, height)
     for col in range(width):
         canvas.put(col, view.cell(0.0, 0.0)[1], GROUND)
+    phi = math.atan2(tip[1], tip[0]) if tip is not None else None
     for zone in arm.zones:
-        zr0, zr1 = _radial_span(zone)
+        span = ray_span(zone, phi) if phi is not None else None
+        if span is None:
+            continue   # not in the arm's plane (or no pose to say where that is)
+        zr0, zr1 = span
         zz0 = max(zone.z_min, z0) if math.isfinite(zone.z_min) else z0
         zz1 = min(zone.z_max, z1) if math.isfinite(zone.z_max) else z1
         c0, rb = view.cell(zr0, zz0)

@@ -15,6 +15,44 @@ STALE_S = 0.5   # a position report older than this is called stale (the interlo
 LEVEL_STYLE = {"estop": "bold white on red", "warn": "bold black on yellow", "info": ""}
 
 
+# The controller's fault codes (PROTOCOL.md, EVT FAULT) in words: the cause and how to
+# clear it. The causes are the usual ones of the trade (from memory), not a diagnosis.
+FAULT_WORDS = {
+    "FOLLOWING": ("following error on {axis}: the axis fell too far behind its command "
+                  "(blocked, overloaded, or a loose coupling)",
+                  "free the axis and check the load, then press r"),
+    "WATCHDOG": ("controller watchdog: the host's heartbeat stopped reaching the controller",
+                 "check the cable and that this console is still running, then press r"),
+    "LIMIT_SWITCH": ("limit switch on {axis}: the axis reached the end of its travel",
+                     "press r, then jog the axis away from the switch (check the arm "
+                     "file's soft limits)"),
+    "DRIVE": ("drive fault on {axis}: the amplifier reported an error (overcurrent, "
+              "overtemperature or supply)",
+              "check the drive's indicator, wiring and supply, then press r"),
+}
+
+
+def fault_words(latched: str) -> str:
+    """A latched fault (``fault: CODE axis=N``) as its cause and how to clear it.
+
+    >>> fault_words("fault: DRIVE axis=2")[:48]
+    'drive fault on axis 2: the amplifier reported an'
+    >>> fault_words("fault: WATCHDOG axis=0").split(". ")[0]
+    "controller watchdog: the host's heartbeat stopped reaching the controller"
+    >>> fault_words("fault: reported by the controller")
+    'reported by the controller. Clear the cause, then press r to reset.'
+    """
+    text = latched.removeprefix("fault:").strip()
+    parts = text.split()
+    code = parts[0] if parts else ""
+    axis = next((p.split("=", 1)[1] for p in parts[1:] if p.startswith("axis=")), "0")
+    if code in FAULT_WORDS:
+        cause, clear = FAULT_WORDS[code]
+        where = "the controller" if axis in ("0", "") else f"axis {axis}"
+        return f"{cause.format(axis=where)}. To clear: {clear}."
+    return f"{text or 'the controller reports a fault'}. Clear the cause, then press r to reset."
+
+
 def banner_lines(state, error: str | None = None, reach_warning: str | None = None,
                  ) -> list[tuple[str, str]]:
     """The conditions that block or endanger motion, most serious first, as
@@ -35,8 +73,7 @@ def banner_lines(state, error: str | None = None, reach_warning: str | None = No
         out.append(("estop", f"LINK LOST: {latched}. Check the cable; press r to reset when "
                              "the controller answers."))
     elif latched or mode == "FAULT":
-        out.append(("estop", f"FAULT: {latched or 'the controller reports a fault'}. Clear "
-                             "the cause, then press r to reset."))
+        out.append(("estop", f"FAULT: {fault_words(latched)}"))
     if not state.enabled and not latched:
         out.append(("warn", "DRIVES OFF: press e to enable them."))
     if not state.homed:
@@ -95,16 +132,41 @@ def link_words(state, driver_name: str, error: str | None, polled_age_s: float |
             + (f"\nerror: {error}" if error else ""))
 
 
+def link_short(state, driver_name: str, error: str | None) -> str:
+    """The link state in one line, for the compact layout (80 x 24)."""
+    if state is None:
+        return f"{driver_name}: {error or 'waiting for the first state'}"
+    latched = state.latched or ""
+    return (f"{driver_name} {getattr(state.mode, 'value', state.mode)}  "
+            f"drives {'on' if state.enabled else 'off'}  "
+            f"{'homed' if state.homed else 'NOT HOMED'}  q{state.queued}"
+            + (f"  latched: {latched}" if latched else "") + (f"  error: {error}" if error else ""))
+
+
+def compact_screen(widget: Widget) -> bool:
+    """True when the widget's screen uses the compact layout (below 120 x 36)."""
+    try:
+        screen = widget.screen
+    except Exception:  # noqa: BLE001 - not mounted
+        return False
+    return not (screen.has_class("-wide") and screen.has_class("-tall"))
+
+
 class LinkStatus(Static):
+    """The link panel: several lines in the wide layout, one in the compact one."""
+
     def __init__(self, *, id: str | None = None):
         super().__init__(id=id)
         self.border_title = "link"
         self.words = ""
+        self.shown: tuple = ()
 
-    def show(self, words: str) -> None:
-        if words != self.words:
-            self.words = words
-            self.update(words)
+    def show(self, words: str, short: str | None = None) -> None:
+        self.words = words
+        text = short if (short is not None and compact_screen(self)) else words
+        if text != self.shown:
+            self.shown = text
+            self.update(text)
 
 
 class WarningsPanel(Static):
@@ -139,8 +201,13 @@ class EventLog(Widget):
         self.border_title = "events"
         self.entries: deque[str] = deque(maxlen=keep)
 
+    @staticmethod
+    def stamp() -> str:
+        """The time of day an event is logged at (tests freeze it)."""
+        return time.strftime("%H:%M:%S")
+
     def add(self, kind: str, detail: str) -> None:
-        stamp = time.strftime("%H:%M:%S")
+        stamp = self.stamp()
         self.entries.append(f"{stamp} {kind:<9} {detail}")
         self.refresh()
 

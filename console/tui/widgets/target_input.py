@@ -64,12 +64,19 @@ class TargetInput(Input):
     class Rejected(Message):
         reason: str
 
-    def __init__(self, arm: Arm, *, id: str | None = None):
+    class Cleared(Message):
+        """Enter on an empty field: forget the target."""
+
+    def __init__(self, arm: Arm, *, id: str | None = None, compact: bool = False):
         super().__init__(placeholder=f"target: {target_hint(arm)}   (enter: preview, escape: back)",
-                         id=id)
+                         id=id, compact=compact)
         self.arm = arm
 
     async def action_submit(self) -> None:
+        if not self.value.strip():
+            self.post_message(self.Cleared())
+            self.screen.set_focus(None)
+            return
         try:
             target = target_from_text(self.arm, self.value)
         except TargetError as exc:
