@@ -580,6 +580,12 @@ class BenchjogApp(App):
         """The teach screen; one for the whole session, so that what it holds (a frame
         half taught, the settings for new steps, its file locks) survives going back to
         jog and returning."""
+        if self._install_teach():
+            self.push_screen("teach")
+
+    def _install_teach(self) -> bool:
+        """The one teach screen of the session, installed on first use (kept, not
+        unmounted, when left); False with a one-line message when it cannot be made."""
         if not self.is_screen_installed("teach"):
             try:
                 module = importlib.import_module(TEACH_MODULE)
@@ -587,9 +593,9 @@ class BenchjogApp(App):
                                             self.program_path)
             except Exception as exc:  # noqa: BLE001 - a broken plug-in screen is one line
                 self.set_message(f"teach screen unavailable: {one_line(exc)}", error=True)
-                return
-            self.install_screen(screen, name="teach")  # kept, not unmounted, when left
-        self.push_screen("teach")
+                return False
+            self.install_screen(screen, name="teach")
+        return True
 
     def action_calibrate(self) -> None:
         """The calibration screen; one for the session, so its touches survive jogging."""
@@ -635,15 +641,8 @@ class BenchjogApp(App):
             self.set_message(f"not taught: the arm is moving ({self.busy.words(self.arm)}); "
                              "teach when it has stopped", error=True)
             return
-        if not self.is_screen_installed("teach"):
-            try:
-                module = importlib.import_module(TEACH_MODULE)
-                screen = module.TeachScreen(self.interlock, self.arm, self.points_path,
-                                            self.program_path)
-            except Exception as exc:  # noqa: BLE001 - a broken plug-in screen is one line
-                self.set_message(f"teach screen unavailable: {one_line(exc)}", error=True)
-                return
-            self.install_screen(screen, name="teach")
+        if not self._install_teach():
+            return
         words, ok = self.get_screen("teach").teach_here()
         self.jog_screen.log_event("teach", words)
         self.set_message(words, error=not ok)
