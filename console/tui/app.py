@@ -92,7 +92,8 @@ class ScreenConfirmer(Confirmer):
             answered.set()
 
         session = self.app.interlock.jog_session_lines(proposal)
-        lines = proposal.lines(self.app.arm) + session
+        plan = proposal.lines(self.app.arm)
+        lines = plan[:1] + session + plan[1:]   # the bounds first: in view at 80x24
         title = ("Confirm a jog session before the arm moves" if session and
                  not session[0].startswith("single step") else "Confirm before the arm moves")
         try:

@@ -36,7 +36,8 @@ def branch_rows(arm: Arm, ik: IKResult | None, active: Branch | None) -> list[tu
         cells = [joint.name]
         for b in BRANCH_ORDER:
             sol = sols[b]
-            cells.append(f"{joint.to_display(sol.joints[index]):.2f} {joint.unit}" if sol else "-")
+            cells.append(f"{round(joint.to_display(sol.joints[index]), 2) + 0.0:.2f} {joint.unit}"
+                         if sol else "-")   # + 0.0: never "-0.00"
         rows.append(tuple(cells))
     status = ["status"]
     for b in BRANCH_ORDER:
