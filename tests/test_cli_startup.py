@@ -70,3 +70,12 @@ def test_version_alone_builds_no_parser():
     mods = imported("--version")
     assert "argparse" not in mods and "benchjog.console.cli.common" not in mods
     assert "argparse" in imported("--help")  # the listing would show it
+
+
+def test_the_branch_names_offered_before_numpy_loads_are_the_solvers():
+    # the parser's --branch choices come from kinematics/options.py (no numpy); they must
+    # be the values of the solver's Branch, the contract strings of CONTRACT.md
+    from benchjog.kinematics.model import Branch
+    from benchjog.kinematics.options import BRANCHES
+
+    assert BRANCHES == tuple(b.value for b in Branch) == ("elbow-down", "elbow-up")

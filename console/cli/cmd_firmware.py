@@ -5,11 +5,8 @@ from __future__ import annotations
 
 import argparse
 import sys
-from pathlib import Path
 
 from benchjog.console import exit_codes
-from benchjog.console.cell.armfile import load_arm
-from benchjog.console.cell.safe_files import write_atomic
 from benchjog.console.cli.common import add_output_options, print_json
 from benchjog.console.errors import Refused, UsageError
 
@@ -35,6 +32,10 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def cmd_firmware(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from benchjog.console.cell.armfile import load_arm
+    from benchjog.console.cell.safe_files import write_atomic
     from benchjog.drivers.firmware.configgen import board_files, config_for_arm
 
     arm = load_arm(args.arm)

@@ -17,9 +17,8 @@ from benchjog.console.cli.common import (add_arm_option, add_journal_option, add
                                          MIN_SPEED_PCT)
 from benchjog.console.cli.cmd_kinematics import target_from_args
 from benchjog.console.errors import UsageError
-from benchjog.kinematics.model import Branch
-from benchjog.kinematics.options import (JOINT, LINE, LINE_TOLERANCE_MAX_MM, LINE_TOLERANCE_MIN_MM,
-                                         LINE_TOLERANCE_MM)
+from benchjog.kinematics.options import (BRANCHES, JOINT, LINE, LINE_TOLERANCE_MAX_MM,
+                                         LINE_TOLERANCE_MIN_MM, LINE_TOLERANCE_MM)
 
 if TYPE_CHECKING:  # the planner and the interlock (numpy) load only when a command runs
     from benchjog.drivers.interlock import RunResult
@@ -31,7 +30,7 @@ def register(sub: argparse._SubParsersAction) -> None:
                           "ask for confirmation, execute it (the simulated arm when no port). "
                           "It never homes: on an unhomed controller it refuses.")
     add_target_arguments(move)
-    move.add_argument("--branch", choices=[b.value for b in Branch],
+    move.add_argument("--branch", choices=BRANCHES,
                       help="IK branch (default: the usable one nearest the current joints)")
     move.add_argument("--path", choices=[JOINT, LINE], default=JOINT,
                       help="joint-interpolated (default) or a straight tool line")
@@ -75,6 +74,8 @@ def cmd_move(args: argparse.Namespace) -> int:
 
     arm = load_arm(args.arm)
     target = target_from_args(arm, args.coords)
+    from benchjog.kinematics.model import Branch
+
     branch = Branch(args.branch) if args.branch else None
     options = {}
     if args.tolerance is not None:
