@@ -19,7 +19,8 @@ HERE = Path(__file__).resolve().parent  # not the repository root, whose benchjo
 
 HEAVY = ("numpy", "rich", "textual", "serial", "tomlkit", "shtab", "importlib.metadata", "logging",
          "benchjog.kinematics.planner", "benchjog.drivers.interlock", "benchjog.kinematics.solve",
-         "benchjog.console.cell.points", "benchjog.console.cell.program_runs")
+         "benchjog.console.cell.points", "benchjog.console.cell.program_runs",
+         "benchjog.kinematics.model", "benchjog.console.cell.armfile", "tomllib", "dataclasses")
 
 
 def imported(*args: str) -> set[str]:
