@@ -321,6 +321,7 @@ class Interlock:
         self._arm = arm
         self.__driver = driver
         self._journal = journal if journal is not None else NullJournal()
+        self._observers: tuple[Callable[..., None], ...] = ()   # watch(): read-only taps
         self._clock = clock
         self._stop = threading.Event()
         self._resume = threading.Event()
@@ -407,6 +408,30 @@ class Interlock:
     def journal_lines_lost(self) -> int:
         return int(getattr(self._journal, "lost", 0))
 
+    def watch(self, observer: Callable[..., None]) -> Callable[[], None]:
+        """Call ``observer(kind, **fields)`` with every record the gate journals (a
+        ``segment`` or ``output`` record names its program ``step``), on the thread that
+        records it, after the record is queued; returns the function that ends the
+        watch. Observers only look: what one raises is ignored, and nothing waits on one
+        longer than it takes (keep it quick; a motion thread calls it)."""
+        with self._issued_lock:
+            self._observers = self._observers + (observer,)
+
+        def unwatch() -> None:
+            with self._issued_lock:
+                self._observers = tuple(o for o in self._observers if o is not observer)
+
+        return unwatch
+
+    def _record(self, kind: str, **fields: Any) -> None:
+        """Journal one record (never waits, never raises) and show it to the watchers."""
+        self._journal.record(kind, **fields)
+        for observer in self._observers:
+            try:
+                observer(kind, **fields)
+            except Exception:  # noqa: BLE001 - a watcher never changes what the gate does
+                pass
+
     def wait_journal(self, timeout_s: float) -> bool:
         """Wait until the journal has written what was recorded so far (the end of a
         command, tests). Never on a motion path: motion never waits on the journal."""
@@ -422,7 +447,7 @@ class Interlock:
             pass
         finally:
             try:
-                self._journal.record("close")
+                self._record("close")
                 self._journal.close()
             except Exception:  # noqa: BLE001 - a broken journal object: journal_error says so
                 pass
@@ -441,7 +466,7 @@ class Interlock:
         """Events since the last call (each is also journalled)."""
         fresh = self.__driver.poll_events()
         for event in fresh:
-            self._journal.record("event", event=event.kind, detail=event.detail)
+            self._record("event", event=event.kind, detail=event.detail)
         with self._events_lock:
             pending, self._events = self._events + fresh, []
         return pending
@@ -450,7 +475,7 @@ class Interlock:
         """Events read while a plan runs are kept for the next poll_events()."""
         fresh = self.__driver.poll_events()
         for event in fresh:
-            self._journal.record("event", event=event.kind, detail=event.detail)
+            self._record("event", event=event.kind, detail=event.detail)
         with self._events_lock:
             self._events.extend(fresh)
         return fresh
@@ -689,7 +714,7 @@ class Interlock:
         proposal = Proposal(request, tuple(actions), Verdict.of(reasons), start, now, token,
                             tuple(notes), enables)
         self._issue(proposal, stops)
-        self._journal.record("request", token=token, request=request, ok=proposal.ok,
+        self._record("request", token=token, request=request, ok=proposal.ok,
                              start=list(start), reasons=list(proposal.verdict.reasons),
                              notes=list(notes),
                              segments=sum(len(p.segments) for p in proposal.plans),
@@ -778,7 +803,7 @@ class Interlock:
         return None
 
     def _end(self, token: int, result: RunResult) -> RunResult:
-        self._journal.record("result", token=token, outcome=result.outcome, detail=result.detail,
+        self._record("result", token=token, outcome=result.outcome, detail=result.detail,
                              segments_sent=result.segments_sent, step=result.step)
         return result
 
@@ -826,7 +851,7 @@ class Interlock:
         None when all is well, else why nothing moves."""
         if not proposal.enables or self.state().enabled:
             return None
-        self._journal.record("enable", token=proposal.token, after_yes=True)
+        self._record("enable", token=proposal.token, after_yes=True)
         try:
             self.__driver.enable()
         except Exception as exc:  # noqa: BLE001 - one line; nothing moved
@@ -852,10 +877,10 @@ class Interlock:
         self._stop.clear()  # from here on, a stop (even during the question) wins
         if self._stopped_since(stops):
             return RunResult(False, "stopped", "stopped: stop was pressed; nothing moved")
-        self._journal.record("confirm-asked", token=proposal.token)
+        self._record("confirm-asked", token=proposal.token)
         answer = bool(confirmer.confirm(proposal))
         waited = self._clock() - proposal.created_s
-        self._journal.record("confirmation", token=proposal.token, yes=answer,
+        self._record("confirmation", token=proposal.token, yes=answer,
                              after_s=round(waited, 3))
         if not answer:
             return RunResult(False, "cancelled", "cancelled: nothing moved")
@@ -907,7 +932,7 @@ class Interlock:
                             return self._halted(trouble, sent, step, where, n, len(action.segments))
                         self.__driver.queue(seg)
                         sent += 1
-                        self._journal.record("segment", token=proposal.token, step=index,
+                        self._record("segment", token=proposal.token, step=index,
                                              n=n, joints=list(seg.joints),
                                              duration_s=seg.duration_s)
                     trouble = self._wait_done(action.summary.duration_s + 5.0)
@@ -924,7 +949,7 @@ class Interlock:
                         time.sleep(min(0.02, max(0.0, deadline - time.monotonic())))
                 else:
                     self.__driver.set_output(action.channel, action.on)
-                    self._journal.record("output", token=proposal.token, step=index,
+                    self._record("output", token=proposal.token, step=index,
                                          channel=action.channel, on=action.on)
             except Exception as exc:  # noqa: BLE001 - any driver failure halts, in one line
                 self._safe_stop()
@@ -988,7 +1013,7 @@ class Interlock:
             stops = self._stops
         proposal = Proposal("home: run the controller's homing cycle", (), Verdict.of(reasons),
                             state.joints, self._clock(), token, tuple(notes), enables)
-        self._journal.record("request", token=token, request=proposal.request, ok=proposal.ok,
+        self._record("request", token=token, request=proposal.request, ok=proposal.ok,
                              reasons=list(reasons), notes=notes)
         if not proposal.ok:
             return self._end(token, RunResult(False, "refused", "refused: " + "; ".join(reasons)))
@@ -999,7 +1024,7 @@ class Interlock:
             if self._stopped_since(stops):
                 return self._end(token, RunResult(False, "stopped", "stopped: nothing moved"))
             answer = bool(confirmer.confirm(proposal))
-            self._journal.record("confirmation", token=token, yes=answer)
+            self._record("confirmation", token=token, yes=answer)
             if not answer:
                 return self._end(token, RunResult(False, "cancelled", "cancelled: nothing moved"))
             if self._stop.is_set() or self._stopped_since(stops):
@@ -1044,7 +1069,7 @@ class Interlock:
                 self._stops += 1
                 cancelled = len(self._issued)
                 self._issued.clear()
-            self._journal.record("stop", cancelled=cancelled)
+            self._record("stop", cancelled=cancelled)
         except Exception:  # noqa: BLE001 - the arm is stopped; nothing else may raise here
             pass
         self._jog_session_hook("a stop")  # jog sessions: a stop ends one (never raises)
@@ -1057,38 +1082,38 @@ class Interlock:
 
     def pause(self) -> None:
         self._resume.clear()
-        self._journal.record("pause")
+        self._record("pause")
 
     def resume(self) -> None:
         self._resume.set()
-        self._journal.record("resume")
+        self._record("resume")
 
     def enable(self) -> None:
-        self._journal.record("enable")
+        self._record("enable")
         self.__driver.enable()
 
     def disable(self) -> None:
         self._jog_session_hook("drives switched off")  # jog sessions: ends one
-        self._journal.record("disable")
+        self._record("disable")
         self.__driver.disable()
 
     def reset(self) -> None:
         """Clear a latched e-stop (once released) or fault; reconnect a lost link; and
         connect a driver that could not be opened at start."""
         self._jog_session_hook("a reset")  # jog sessions: a reset ends one
-        self._journal.record("reset")
+        self._record("reset")
         self._journal.recover()   # a journal that failed is tried again (journal_error)
         if not self.__driver.state().is_open:
             self.__driver.open()
             self.link_error = None
-            self._journal.record("connected", link=self.__driver.state().link)
+            self._record("connected", link=self.__driver.state().link)
             return
         self.__driver.reset()
 
     def set_output(self, channel: int, on: bool) -> None:
         if not 0 <= channel <= 7:
             raise ValueError(f"output channel {channel} outside 0..7")
-        self._journal.record("output", channel=channel, on=on)
+        self._record("output", channel=channel, on=on)
         self.__driver.set_output(channel, on)
 
     # -- jog sessions --------------------------------------------------------------------
@@ -1168,7 +1193,7 @@ class Interlock:
                                     state_key(self.state()), proposal.token)
             slot.active = session
             slot.last_end = None
-        self._journal.record("session-start", session=session.number, token=proposal.token,
+        self._record("session-start", session=session.number, token=proposal.token,
                              center=list(bounds.center), half=list(bounds.half),
                              branch=str(bounds.branch), frame=bounds.frame, step=bounds.step,
                              speed_cap_mm_s=bounds.speed_cap_mm_s, idle_s=bounds.idle_s)
@@ -1205,7 +1230,7 @@ class Interlock:
                 session, "another motion was asked for since the last step"), token)
         if not proposal.ok:   # refused by the gate's own checks: nothing moves
             self._issued.pop(token, None)
-            self._journal.record("result", token=token, outcome="refused",
+            self._record("result", token=token, outcome="refused",
                                  detail="; ".join(proposal.verdict.reasons), segments_sent=0,
                                  step=None)
             return SessionStep(RunResult(False, "refused",
@@ -1223,7 +1248,7 @@ class Interlock:
                                          "key"), None, token)
         with slot.lock:
             slot.step_tokens.add(token)
-        self._journal.record("session-step", session=session.number, token=token)
+        self._record("session-step", session=session.number, token=token)
         gate = self
 
         class _SessionYes(Confirmer):
@@ -1270,7 +1295,7 @@ class Interlock:
                 return slot.last_end or why
             slot.active = None
             slot.last_end = why
-        self._journal.record("session-end", session=session.number, reason=why,
+        self._record("session-end", session=session.number, reason=why,
                              steps=session.steps)
         return why
 

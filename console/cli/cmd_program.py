@@ -133,8 +133,9 @@ class StepReporter:
     step on stdout; on a terminal (stdout and stderr both, not ``--quiet``) a rich
     progress bar on stderr; into a pipe, nothing extra.
 
-    It learns of each step from the interlock's journal records (a ``segment`` or an
-    ``output`` record names its step), so it watches and never drives the arm."""
+    It learns of each step from the records the interlock journals (``Interlock.watch``:
+    a ``segment`` or an ``output`` record names its step), so it watches and never drives
+    the arm."""
 
     def __init__(self, args: argparse.Namespace, program_steps) -> None:
         self.steps = list(program_steps)
@@ -146,15 +147,11 @@ class StepReporter:
         self._task = None
 
     def watch(self, gate) -> None:
-        journal = gate._journal  # noqa: SLF001 - read-only tap on what the gate records
-        record = journal.record
-
-        def tapped(kind: str, **fields):
-            record(kind, **fields)
+        def seen(kind: str, **fields) -> None:
             if kind in ("segment", "output") and fields.get("step") is not None:
                 self.reached(int(fields["step"]))
 
-        journal.record = tapped
+        gate.watch(seen)
 
     def reached(self, index: int) -> None:
         """Steps up to ``index`` (0-based) have started (a dwell records nothing, so
