@@ -36,7 +36,7 @@ import numpy as np
 from benchjog.kinematics import planar, profile, scara, solve, sweep
 from benchjog.kinematics.options import (JOINT, LINE, LINE_TOLERANCE_MAX_MM, LINE_TOLERANCE_MIN_MM,
                                          LINE_TOLERANCE_MM, PATHS)
-from benchjog.kinematics.limits import TWO_PI, limit_clearance, limit_problem
+from benchjog.kinematics.limits import TWO_PI, limit_clearance, limit_problem, wrap_pi
 from benchjog.kinematics.model import Arm, Branch, Segment
 from benchjog.kinematics.solve import TargetError
 
@@ -57,16 +57,19 @@ LINE_NO_MOTION = 1e-9  # rad or mm: a line whose joints move less is planned as 
 # --------------------------------------------------------------------------- summary
 
 def _fmt_tool(arm: Arm, pose: Sequence[float]) -> str:
+    """A tool pose in words; the heading (roll) in (-180, 180] deg, as the DH chain's
+    atan2 and the console's pose panel give it."""
     if arm.is_scara:
         x, y, z, roll = pose
-        return f"x {x:.2f} mm, y {y:.2f} mm, z {z:.2f} mm, roll {math.degrees(roll):.2f} deg"
+        return (f"x {x:.2f} mm, y {y:.2f} mm, z {z:.2f} mm, "
+                f"roll {math.degrees(wrap_pi(roll)):.2f} deg")
     x, y, heading = pose
-    return f"x {x:.2f} mm, y {y:.2f} mm, heading {math.degrees(heading):.2f} deg"
+    return f"x {x:.2f} mm, y {y:.2f} mm, heading {math.degrees(wrap_pi(heading)):.2f} deg"
 
 
 def _tool_display(arm: Arm, pose: Sequence[float]) -> list[float]:
     out = [float(v) for v in pose]
-    out[-1] = math.degrees(out[-1])
+    out[-1] = math.degrees(wrap_pi(out[-1]))
     return out
 
 
