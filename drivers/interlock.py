@@ -1057,12 +1057,14 @@ class Interlock:
         """Stop at once, from any thread; never asks for confirmation, never raises.
 
         The driver's stop is the very first thing: nothing that can block or raise (no
-        lock a running plan holds, no journal write) stands before it. Then a plan
-        running or waiting for its yes ends, and every proposal not yet confirmed is
-        void (the next motion is planned and asked for again). The journal line is
-        queued last (drivers/journal.py: never waits)."""
-        self._safe_stop()
+        lock a running plan holds, no journal write) stands before it, only the stop flag
+        (an Event, set first so that a motion thread the driver's stop interrupts already
+        sees it as a stop, not a failure). Then a plan running or waiting for its yes
+        ends, and every proposal not yet confirmed is void (the next motion is planned
+        and asked for again). The journal line is queued last (drivers/journal.py: never
+        waits)."""
         self._stop.set()
+        self._safe_stop()
         self._resume.set()
         try:
             with self._issued_lock:   # held only around dict operations, never over I/O
@@ -1073,6 +1075,16 @@ class Interlock:
         except Exception:  # noqa: BLE001 - the arm is stopped; nothing else may raise here
             pass
         self._jog_session_hook("a stop")  # jog sessions: a stop ends one (never raises)
+
+    def wait_stopped(self, timeout_s: float) -> bool:
+        """Wait until the driver has its answer to every stop sent so far (the serial
+        driver's stop returns once STOP is on the wire and awaits its OK in a thread of
+        its own); True when no stop is under way. Never needed for safety: the stop is
+        out already."""
+        try:
+            return bool(self.__driver.wait_stopped(timeout_s))
+        except Exception:  # noqa: BLE001 - a dead link has nothing more to answer
+            return True
 
     def _safe_stop(self) -> None:
         try:

@@ -118,6 +118,7 @@ class SerialDriver(Driver):
         self._home_done = False
         self._stop_gen = 0
         self._stop_pending = 0   # stop() calls under way: other waits give up at once
+        self._stop_written = 0   # the _stop_gen the last STOP line written covers
         self._mode = Mode.DISABLED
         self._pos: tuple[int, ...] = (0,) * arm.n_joints
         self._outputs = 0
@@ -203,12 +204,11 @@ class SerialDriver(Driver):
         return self._latched is not None and self._latched.startswith("link lost")
 
     def _transact(self, verb: str, *args: int | str,
-                  guard: Callable[[], None] | None = None, hello: bool = False,
-                  sent: threading.Event | None = None) -> P.Reply:
+                  guard: Callable[[], None] | None = None, hello: bool = False) -> P.Reply:
         """Send one line and wait for its reply, re-sending the same line (same seq) on
         a timeout or ``ERR 0 BAD_CRC``. ``guard`` runs under the state lock before every
-        (re)send and may raise to keep the line from going out. ``sent`` is set once the
-        line has been written the first time (or the write failed): stop() waits on it."""
+        (re)send and may raise to keep the line from going out. A STOP line, once
+        written, covers every stop() call made before it (stop() waits for that)."""
         with self._txn_lock:
             if verb in ("STOP", "HELLO"):
                 with self._cond:
@@ -240,11 +240,14 @@ class SerialDriver(Driver):
                             guard()
                     if verb == "STATE":
                         self._t_state_sent = self._now()
-                    try:
-                        self._write(line)
-                    finally:
-                        if sent is not None:
-                            sent.set()   # stop(): the line is out (or the port failed)
+                    if verb == "STOP":
+                        with self._cond:
+                            covers = self._stop_gen   # every stop() up to here is answered by it
+                    self._write(line)
+                    if verb == "STOP":
+                        with self._cond:
+                            self._stop_written = max(self._stop_written, covers)
+                            self._cond.notify_all()
                     deadline = self._now() + self.timeout_s
                     with self._cond:
                         while self._reply is None and not self._link_lost():
@@ -857,23 +860,33 @@ class SerialDriver(Driver):
                 self._mode = Mode.IDLE
             self._cond.notify_all()
             usable = self._is_open and self._ser is not None and not self._link_lost()
+            mine = self._stop_gen
         if not usable:
             with self._cond:
                 self._stop_pending -= 1
             return
-        sent = threading.Event()
-        worker = threading.Thread(target=self._stop_confirm, args=(sent,), daemon=True,
+        ended = threading.Event()
+        worker = threading.Thread(target=self._stop_confirm, args=(ended,), daemon=True,
                                   name=f"stop {self.port}")
         with self._cond:
             self._stop_threads = [t for t in self._stop_threads if t.is_alive()] + [worker]
         worker.start()
-        sent.wait(STOP_SEND_WAIT_S)
+        # back as soon as a STOP written after this call's bookkeeping is on the wire (this
+        # call's own, or a concurrent stop's), the link is lost, or the wait is over
+        deadline = time.monotonic() + STOP_SEND_WAIT_S
+        with self._cond:
+            while (self._stop_written < mine and not ended.is_set()
+                   and not self._link_lost()):
+                remaining = deadline - time.monotonic()
+                if remaining <= 0:
+                    break
+                self._cond.wait(remaining)
 
-    def _stop_confirm(self, sent: threading.Event) -> None:
+    def _stop_confirm(self, ended: threading.Event) -> None:
         """The stop's own thread: STOP (HELLO first after BAD_SEQ), its OK, then STATE."""
         stopped = False
         try:
-            reply = self._transact("STOP", sent=sent)
+            reply = self._transact("STOP")
             if reply.kind == "ERR" and reply.code == "BAD_SEQ":
                 self._transact("HELLO", hello=True)
                 reply = self._transact("STOP")
@@ -886,7 +899,7 @@ class SerialDriver(Driver):
         except Exception:  # noqa: BLE001 - stop never raises for a dead link
             pass
         finally:
-            sent.set()
+            ended.set()
             with self._cond:
                 self._stop_pending -= 1
                 self._cond.notify_all()
