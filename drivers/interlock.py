@@ -55,8 +55,8 @@ from benchjog.kinematics.limits import fmt
 from benchjog.kinematics.model import Arm, Segment
 from benchjog.kinematics.planner import JOINT, LINE_TOLERANCE_MM, Plan, plan_jog, plan_joint_move, plan_move
 from benchjog.kinematics.solve import check_joints, tool_from_joints
-from benchjog.kinematics.sweep import (lever_mm, points_from_joints, sweep_zones, z_step_mm,
-                                       zone_gaps)
+from benchjog.kinematics.sweep import (lever_mm, points_from_joints, sweep_zones,
+                                       sweep_zones_many, z_step_mm, zone_gaps)
 from benchjog.kinematics.scara import flange_z_mm
 
 FRESH_S = 0.5              # the driver's position must be newer than this
@@ -95,6 +95,17 @@ class SetOutput:
 
 
 Action = Plan | Dwell | SetOutput
+
+
+@dataclass
+class _DryRunAhead:
+    """Keep-out work done ahead for many plans of a dry run (Interlock.check_each):
+    starts (pose bytes) clear of every zone, sweeps by their knots' bytes, and each
+    segment's tool speed by the plan's knots and durations."""
+
+    clear_starts: set[bytes] = dataclasses.field(default_factory=set)
+    sweeps: dict[bytes, Any] = dataclasses.field(default_factory=dict)
+    tool_speeds: dict[tuple, np.ndarray] = dataclasses.field(default_factory=dict)  # (knots, durations)
 
 
 @dataclass(frozen=True)
@@ -513,7 +524,7 @@ class Interlock:
         return self._segment_findings(start, segments)[0]
 
     def _segment_findings(self, start: Sequence[float], segments: Sequence[Segment],
-                          ) -> tuple[list[str], list[str]]:
+                          ahead: _DryRunAhead | None = None) -> tuple[list[str], list[str]]:
         """(refusal reasons, notes for the confirmation) of :meth:`_segment_reasons`."""
         arm = self._arm
         reasons: list[str] = []
@@ -525,8 +536,12 @@ class Interlock:
                 return [f"segment {n}: duration {seg.duration_s:.4f} s outside 0.001..60 s"], []
         if len(tuple(start)) != arm.n_joints or not all(math.isfinite(v) for v in start):
             return ["the plan's start is malformed"], []
-        tool_speeds = self._tool_speeds(previous, segments)  # all at once: the hot path of a check
-        inside = self._zones_inside(start)
+        tool_speeds = None if ahead is None else ahead.tool_speeds.get(
+            (np.array([previous] + [tuple(seg.joints) for seg in segments], dtype=float).tobytes(),
+             tuple(seg.duration_s for seg in segments)))
+        if tool_speeds is None:
+            tool_speeds = self._tool_speeds(previous, segments)  # all at once: the hot path of a check
+        inside = self._zones_inside(start, ahead)
         share = ESCAPE_SPEED_PCT / 100.0 if inside else 1.0
         for n, seg in enumerate(segments, 1):
             wire_s = wire_duration_s(seg.duration_s)  # what the controller will be told
@@ -551,20 +566,25 @@ class Interlock:
             if reasons:
                 return reasons, []
             previous = seg.joints
-        return self._zone_findings(start, segments, inside)
+        return self._zone_findings(start, segments, inside, ahead)
 
-    def _zones_inside(self, joints: Sequence[float]) -> dict[int, float]:
+    def _zones_inside(self, joints: Sequence[float], ahead: _DryRunAhead | None = None,
+                      ) -> dict[int, float]:
         """Zone index -> penetration (mm) for every keep-out zone the arm is in."""
         if not self._arm.zones:
             return {}
-        gaps = zone_gaps(self._arm, np.array([tuple(joints)], dtype=float))[0]
+        pose = np.array([tuple(joints)], dtype=float)
+        if ahead is not None and pose.tobytes() in ahead.clear_starts:
+            return {}   # found clear of every zone by the same test, for many starts at once
+        gaps = zone_gaps(self._arm, pose)[0]
         if not (gaps.min(axis=2) < 0).any():
             return {}   # clear of every zone (the cheap, exact test first)
         depth = zone_penetrations_mm(self._arm, np.array([tuple(joints)]))[0]
         return {i: float(d) for i, d in enumerate(depth) if d > 0}
 
     def _zone_findings(self, start: Sequence[float], segments: Sequence[Segment],
-                       inside: dict[int, float]) -> tuple[list[str], list[str]]:
+                       inside: dict[int, float], ahead: _DryRunAhead | None = None,
+                       ) -> tuple[list[str], list[str]]:
         """The gate's own keep-out check of the whole swept path. Zones the arm is not
         in: certified sweep (benchjog.kinematics.sweep.sweep_zones), no contact allowed.
         Zones it starts in: the penetration, sampled every ESCAPE_STEP_MM of the arm's
@@ -576,7 +596,9 @@ class Interlock:
         reasons: list[str] = []
         others = tuple(z for i, z in enumerate(arm.zones) if i not in inside)
         if others:
-            sweep = sweep_zones(dataclasses.replace(arm, zones=others), knots)
+            sweep = ahead.sweeps.get(knots.tobytes()) if ahead is not None and not inside else None
+            if sweep is None:
+                sweep = sweep_zones(dataclasses.replace(arm, zones=others), knots)
             if sweep.contact is not None:
                 c = sweep.contact
                 parts = ", ".join(c.parts) or "the arm"
@@ -644,8 +666,60 @@ class Interlock:
         """The static checks, without the driver's state: for dry runs."""
         return Verdict.of(self._check_actions(actions, start_joints)[0])
 
+    def check_each(self, items: Sequence[tuple[Action, Sequence[float] | None]]) -> list[Verdict]:
+        """``check_actions([action], start)`` for every (action, start) of a dry run, each
+        verdict the same, with the keep-out work of all plans done ahead in one
+        vectorised pass (benchjog.kinematics.sweep.sweep_zones_many): the starts' zone
+        test and the sweeps of the plans that start clear of every zone. For dry runs
+        only: :meth:`execute` checks every motion it runs on its own."""
+        ahead = self._dry_run_ahead(items)
+        return [Verdict.of(self._check_actions([action], start, ahead)[0])
+                for action, start in items]
+
+    def _dry_run_ahead(self, items: Sequence[tuple[Action, Sequence[float] | None]],
+                       ) -> _DryRunAhead:
+        arm = self._arm
+        ahead = _DryRunAhead()
+        paths, wire, durations = [], [], []
+        for action, start in items:
+            if not isinstance(action, Plan) or action.problems or not action.segments:
+                continue
+            if not all(0.0005 <= seg.duration_s <= 60.0 for seg in action.segments):
+                continue   # refused before any of this (_segment_findings)
+            begin = start if start is not None else action.summary.start_joints
+            rows = [tuple(begin)] + [tuple(seg.joints) for seg in action.segments]
+            if any(len(r) != arm.n_joints for r in rows):
+                continue
+            knots = np.array(rows, dtype=float)
+            if np.isfinite(knots).all():
+                paths.append(knots)
+                durations.append(tuple(seg.duration_s for seg in action.segments))
+                wire += [wire_duration_s(seg.duration_s) for seg in action.segments]
+        if not paths:
+            return ahead
+        # the tool speeds of every segment of every plan (Interlock._tool_speeds, row by row)
+        q_from = np.concatenate([k[:-1] for k in paths])
+        steps = np.concatenate([np.diff(k, axis=0) for k in paths])
+        f = np.linspace(0.0, 1.0, TOOL_SPEED_SAMPLES + 1)[None, :, None]
+        _, tool = points_from_joints(arm, q_from[:, None, :] + f * steps[:, None, :])
+        if not arm.is_scara:
+            tool = tool[..., :2]
+        chords = np.linalg.norm(np.diff(tool, axis=1), axis=2).max(axis=1)
+        speeds = chords * TOOL_SPEED_SAMPLES / np.array(wire)
+        ends = np.cumsum([len(k) - 1 for k in paths])
+        for k, d, part in zip(paths, durations, np.split(speeds, ends[:-1])):
+            ahead.tool_speeds[(k.tobytes(), d)] = part
+        if not arm.zones:
+            return ahead
+        starts = np.array([k[0] for k in paths])
+        clear = ~(zone_gaps(arm, starts)[0].min(axis=2) < 0).any(axis=1)
+        ahead.clear_starts = {starts[i:i + 1].tobytes() for i in np.flatnonzero(clear)}
+        swept = [paths[i] for i in np.flatnonzero(clear)]
+        ahead.sweeps = {k.tobytes(): r for k, r in zip(swept, sweep_zones_many(arm, swept))}
+        return ahead
+
     def _check_actions(self, actions: Sequence[Action], start_joints: Sequence[float] | None,
-                       ) -> tuple[list[str], list[str]]:
+                       ahead: _DryRunAhead | None = None) -> tuple[list[str], list[str]]:
         start = tuple(start_joints) if start_joints is not None else None
         reasons: list[str] = []
         notes: list[str] = []
@@ -664,7 +738,7 @@ class Interlock:
                         start = None
                         continue
                 begin = start if start is not None else action.summary.start_joints
-                found, said = self._segment_findings(begin, action.segments)
+                found, said = self._segment_findings(begin, action.segments, ahead)
                 reasons += [prefix + r for r in found]
                 notes += [prefix + r for r in said]
                 start = action.segments[-1].joints if action.segments else begin
