@@ -60,6 +60,7 @@ from benchjog.kinematics.sweep import (lever_mm, points_from_joints, sweep_zones
 from benchjog.kinematics.scara import flange_z_mm
 
 FRESH_S = 0.5              # the driver's position must be newer than this
+STOP_SETTLE_S = 0.5        # a plan right after a stop waits this long for its fresh position
 START_TOL_RAD = math.radians(0.05)  # the arm "has moved" beyond this since the proposal
 START_TOL_MM = 0.05
 SPEED_TOL = 1.01           # 1 % for the rounding of durations to whole milliseconds
@@ -738,6 +739,18 @@ class Interlock:
                 del self._issued[min(self._issued)]
             self._issued[proposal.token] = (proposal, digest, stops)
 
+    def _settled_state(self) -> DriverState:
+        """The state a plan starts from. Right after a stop whose answer is still on its
+        way (the serial driver's stop returns once STOP is written) the position is
+        stale; wait for the stop's fresh position, at most STOP_SETTLE_S, rather than
+        refuse a plan made a moment too early. Still stale after that: the plan is
+        refused as stale (``_state_reasons``)."""
+        state = self.state()
+        if not getattr(state, "fresh", True):
+            self.wait_stopped(STOP_SETTLE_S)
+            state = self.state()
+        return state
+
     def _planning(self, start: Sequence[float], speed_pct: float) -> tuple[Arm, float]:
         """The arm and speed to plan with from ``start``: inside a keep-out zone, the
         planner is shown the other zones only (the gate checks the way out itself) and
@@ -750,7 +763,7 @@ class Interlock:
 
     def propose_move(self, target: Sequence[float], *, branch: Any = None, path: str = JOINT,
                      speed_pct: float = 100.0, tolerance_mm: float = LINE_TOLERANCE_MM) -> Proposal:
-        start = self.state().joints
+        start = self._settled_state().joints
         arm, pct = self._planning(start, speed_pct)
         plan = plan_move(arm, start, tuple(target), branch=branch, path=path, speed_pct=pct,
                          tolerance_mm=tolerance_mm)
@@ -761,14 +774,14 @@ class Interlock:
 
     def propose_joints(self, joints: Sequence[float], *, speed_pct: float = 100.0) -> Proposal:
         joints = check_joints(self._arm, joints)
-        start = self.state().joints
+        start = self._settled_state().joints
         arm, pct = self._planning(start, speed_pct)
         plan = plan_joint_move(arm, start, joints, speed_pct=pct)
         shown = ", ".join(f"{j.name} {fmt(j, v)}" for j, v in zip(self._arm.joints, joints))
         return self._propose(f"move joints to {shown}", [plan], start_joints=start)
 
     def propose_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0) -> Proposal:
-        start = self.state().joints
+        start = self._settled_state().joints
         last = self._last_end
         base = last if last is not None and self._moved_since(last, start) is None else None
         arm, pct = self._planning(start, speed_pct)
@@ -1153,7 +1166,7 @@ class Interlock:
         Raises:
             SessionError: bounds that cannot make a session.
         """
-        joints = self.state().joints
+        joints = self._settled_state().joints
         bounds = make_bounds(self._arm, joints, frame_of(axis), step, **bounds_options)
         proposal = self.propose_jog(axis, delta, speed_pct=self._session_pct(bounds, speed_pct))
         problems: list[str] = []

@@ -218,7 +218,12 @@ def test_stop_returns_before_a_silent_controller_answers(rig):
     assert r.emu.mode != "MOVING"
 
 
-def test_between_the_stops_ok_and_a_fresh_state_nothing_is_planned(rig):
+def test_between_the_stops_ok_and_a_fresh_state_nothing_is_planned(rig, monkeypatch):
+    # a plan waits up to STOP_SETTLE_S for the stop's fresh position; with no wait it
+    # must be refused as stale, never made from the old position
+    import benchjog.drivers.interlock as gate_module
+
+    monkeypatch.setattr(gate_module, "STOP_SETTLE_S", 0.0)
     hold = threading.Event()
 
     def slow_state(direction, line):

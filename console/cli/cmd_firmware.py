@@ -7,13 +7,14 @@ import argparse
 import sys
 
 from benchjog.console import exit_codes
+from benchjog.console.cli.commands import summary
 from benchjog.console.cli.common import add_output_options, print_json
 from benchjog.console.errors import Refused, UsageError
 
 
 def register(sub: argparse._SubParsersAction) -> None:
     fw = sub.add_parser(
-        "firmware", help="write the controller firmware and a config for an arm to a folder",
+        "firmware", help=summary("firmware"),
         description=("Write the reference controller firmware (MicroPython) and a config.py "
                      "filled in from the arm file to a folder, ready to copy onto the board. "
                      "Pins in config.py are placeholders: check every one against the wiring. "

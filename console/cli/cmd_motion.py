@@ -10,6 +10,7 @@ import sys
 
 TYPE_CHECKING = False  # typing.TYPE_CHECKING without importing typing at start-up
 
+from benchjog.console.cli.commands import summary
 from benchjog.console.cli.common import (add_arm_option, add_journal_option, add_output_options,
                                          add_target_arguments,
                                          add_port_options, drives_off, exit_code_of, note, open_gate,
@@ -25,7 +26,7 @@ if TYPE_CHECKING:  # the planner and the interlock (numpy) load only when a comm
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    move = sub.add_parser("move", help="plan one move, print it, ask, move",
+    move = sub.add_parser("move", help=summary("move"),
                           description="Plan one move from the current position, print the plan, "
                           "ask for confirmation, execute it (the simulated arm when no port). "
                           "It never homes: on an unhomed controller it refuses.")
@@ -46,7 +47,7 @@ def register(sub: argparse._SubParsersAction) -> None:
                        "(docs/cli-json.md)")
     move.set_defaults(func=cmd_move)
 
-    home = sub.add_parser("home", help="run the controller's homing cycle after confirmation",
+    home = sub.add_parser("home", help=summary("home"),
                           description="Run the controller's homing cycle after confirmation "
                           "(the simulated arm when no port; it starts homed).")
     add_arm_option(home)
