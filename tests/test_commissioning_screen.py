@@ -133,6 +133,10 @@ async def test_one_axis_through_all_five_stages_writes_the_truth(bench, tmp_path
 
         # 3 zero: jog onto the mark at a true 90 deg (1.35 deg by the file is 54 counts)
         assert screen.walk.step == "mark"
+        await pilot.press("escape")                      # in the field: the keys back, still here
+        assert app.screen is screen and screen.focused is None
+        await pilot.press("enter")                       # enter: the field again
+        assert screen.focused is screen.query_one("#cm-input")
         n_moves = len(moves(gate))
         await type_line(pilot, "40")                     # too big a step: nothing moves
         assert screen.status.startswith("a step is at most 15 deg") and len(moves(gate)) == n_moves

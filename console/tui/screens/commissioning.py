@@ -155,6 +155,11 @@ class CommissioningScreen(DimmedKeyHints, Screen):
                                                                                j.zero))
         return walk
 
+    @property
+    def motion_speed_pct(self) -> float:
+        """The commissioning speed, or the console's speed override when that is lower."""
+        return min(self.speed_pct, float(getattr(self.app, "speed_pct", 100.0)))
+
     def waits(self) -> str:
         return WAITS[self.walk.step]
 
@@ -209,7 +214,7 @@ class CommissioningScreen(DimmedKeyHints, Screen):
                           for i, jj in enumerate(self.arm.joints))
         self.query_one("#cm-title", Static).update(Text.assemble(
             ("commissioning ", "bold"), (f"axis {self.axis + 1}/{self.arm.n_joints}: {names}", "bold"),
-            f"   ({self.speed_pct:g} % speed)"))
+            f"   ({self.motion_speed_pct:g} % speed)"))
         self.query_one("#cm-stages", Static).update(self.stage_lines())
         self.show_state(self.app.state if hasattr(self.app, "state") else None)
         self.query_one("#cm-prompt", Static).update(Text(self.prompt(), style="bold"))
@@ -386,17 +391,17 @@ class CommissioningScreen(DimmedKeyHints, Screen):
         w = self.walk
         self.moving = (self.axis, w.stage, w.step, what)
         self.say(f"{what}: asking first")
-        self._motion_worker(self.moving, self.axis, delta)
+        self._motion_worker(self.moving, self.axis, delta, self.motion_speed_pct)
 
     @work(thread=True, exclusive=True, group="commission-motion", exit_on_error=False)
-    def _motion_worker(self, key: tuple, index: int, delta: float | None) -> None:
+    def _motion_worker(self, key: tuple, index: int, delta: float | None, speed_pct: float) -> None:
         gate, joint = self.interlock, self.arm.joints[index]
         try:
             if delta is None:
                 result = gate.home(self.app.confirmer)
             else:
                 proposal = gate.propose_jog(f"j{index + 1}", joint.from_display(delta),
-                                            speed_pct=self.speed_pct)
+                                            speed_pct=speed_pct)
                 result = gate.execute(proposal, self.app.confirmer)
             state = gate.state()
             counts = counts_from_joint(joint, state.joints[index]) if state.joints else None
