@@ -217,7 +217,7 @@ async def test_the_screen_fits_80_by_24(bench):
             assert region.height > 0 and region.bottom <= SIZE[1] and region.right <= SIZE[0], selector
         help_key = [k for k in screen.query("FooterKey") if k.action == "help"]
         assert help_key and help_key[0].region.right <= SIZE[0]
-        assert "hand on the e-stop" in str(screen.query_one("#cm-caution").render())
+        assert "hand on the hardware e-stop" in str(screen.query_one("#cm-caution").render())
 
 
 @pytest.mark.parametrize("typing", [False, True], ids=["keys", "number-field"])
@@ -245,3 +245,28 @@ async def test_space_stops_a_commissioning_move(tmp_path, typing):
             assert screen.query_one("#cm-input").value == ""
     finally:
         gate.close()
+
+
+async def test_a_failed_write_is_one_line_and_leaves_the_file_whole(bench, tmp_path):
+    """The backup cannot be made (a directory sits where it goes): nothing is written."""
+    arm, gate, path = bench
+    original = path.read_bytes()
+    (tmp_path / "arm.toml.bak").mkdir()
+    (tmp_path / "arm.toml.bak" / "keep").write_text("x", encoding="utf-8")
+    app = make_app(arm, gate)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.press("c")
+        screen = app.screen
+        await pilot.press("w")                            # not done yet: dimmed, says why
+        assert "finish the five stages first" in screen.status and app.screen is screen
+        walk = screen.walk                                # a walk finished (its findings set)
+        walk.found.direction, walk.found.counts_per_unit, walk.found.zero = -1, 45.0, 2.0
+        walk.found.homing, walk.stage, walk.step = "done, shoulder at count 0", 5, "done"
+        screen.refresh_view()
+        await pilot.press("w")
+        assert isinstance(app.screen, WriteFileScreen)
+        await pilot.press("y")
+        await until(pilot, lambda: screen.status.startswith("not written:"))
+        assert "\n" not in screen.status and screen.written is None
+    assert path.read_bytes() == original
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["arm.toml", "arm.toml.bak"]

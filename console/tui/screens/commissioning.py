@@ -37,8 +37,8 @@ from benchjog.drivers.calibration import counts_from_joint
 from benchjog.kinematics.model import Arm
 from benchjog.kinematics.options import TOUCH_SPEED_PCT
 
-CAUTION = ("Commissioning moves the arm at reduced speed: keep clear, a hand on the e-stop. "
-           "Not a safety function (ISO 10218/13849).")
+CAUTION = ("Commissioning moves the arm at reduced speed: keep clear, a hand on the hardware "
+           "e-stop. Software interlock only, not a safety-rated function (ISO 10218/13849).")
 
 # (stage, step) -> what the step waits for: "go" (enter moves), "ask" (y/n), "type"
 DIRECTION, COUNTS, ZERO, TRAVEL, HOMING, DONE = range(6)
