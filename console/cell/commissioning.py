@@ -18,9 +18,69 @@ import tomlkit
 
 from benchjog.kinematics.model import Joint
 
+# the walk-through's defaults (the command line's options have the same)
+DIRECTION_STEP = 2.0   # deg or mm: the direction test jog
+TEST_MOVE = 10.0       # deg or mm by the arm file: the counts-per-unit test move
+MARGIN = 2.0           # deg or mm: soft limits this far inside the travel found
+AXIS_STEP_MAX = 15.0   # deg or mm: the largest typed step while commissioning (the gate's joint-jog cap)
+
+STAGES = ("direction", "counts per unit", "zero", "soft limits", "homing")
+
 
 class CommissionError(ValueError):
     """A measurement that cannot be used (zero, negative, not finite, too narrow)."""
+
+
+def sense_words(joint: Joint) -> str:
+    """The joint's positive sense, as a person at the bench sees it."""
+    if joint.is_revolute:
+        return "counter-clockwise seen from above (the positive sense)"
+    return "down, towards the work (the positive sense: +value lowers the tool)"
+
+
+def number_from_text(text: str) -> float:
+    """A typed finite number.
+
+    >>> number_from_text(" 10.5 ")
+    10.5
+    >>> number_from_text("ten")
+    Traceback (most recent call last):
+    ...
+    benchjog.console.cell.commissioning.CommissionError: not a number ('ten')
+    """
+    try:
+        value = float(text)
+    except ValueError:
+        raise CommissionError(f"not a number ({text.strip()!r})") from None
+    if not math.isfinite(value):
+        raise CommissionError(f"not a number ({text.strip()!r})")
+    return value
+
+
+def step_from_text(text: str, unit: str) -> float:
+    """A typed jog step (deg or mm), at most AXIS_STEP_MAX either way.
+
+    >>> step_from_text("-2.5", "deg")
+    -2.5
+    >>> step_from_text("40", "deg")
+    Traceback (most recent call last):
+    ...
+    benchjog.console.cell.commissioning.CommissionError: a step is at most 15 deg
+    """
+    try:
+        delta = float(text)
+    except ValueError:
+        raise CommissionError(f"not a step: {text.strip()!r}") from None
+    if not math.isfinite(delta) or abs(delta) > AXIS_STEP_MAX:
+        raise CommissionError(f"a step is at most {AXIS_STEP_MAX:g} {unit}")
+    return delta
+
+
+def homing_words(name: str, completed: bool, counts: int, detail: str) -> str:
+    """What the homing check found, in words (the count should be 0 after homing)."""
+    if not completed:
+        return f"not done: {detail}"
+    return f"done, {name} at count {counts}" + ("" if counts == 0 else " (not 0: check the home switch)")
 
 
 def counts_per_unit_from_measure(counts_moved: int, measured: float) -> float:
@@ -96,6 +156,16 @@ class AxisFindings:
             if value is not None and not math.isclose(value, now, abs_tol=1e-9):
                 out[key] = round(value, 4)
         return out
+
+
+def findings_line(joint: Joint, found: AxisFindings, margin: float) -> str:
+    """One line: what was found for ``joint``."""
+    unit = joint.unit
+    limits = ("soft limits as they were" if found.min is None else
+              f"soft limits {found.min:.4f} .. {found.max:.4f} {unit} ({margin:g} {unit} inside "
+              "the travel found)")
+    return (f"{joint.name}: direction {found.direction}, counts per {unit} {found.counts_per_unit:.6g}, "
+            f"zero {found.zero:.5f} {unit}, {limits}; homing {found.homing}")
 
 
 def commissioned_text(original: str, index: int, changes: dict[str, float | int]) -> str:

@@ -21,6 +21,7 @@ import numpy as np
 from benchjog.console import exit_codes
 from benchjog.console.cell import calibration_files as cf
 from benchjog.console.cell import touching
+from benchjog.console.cell.commissioning import AXIS_STEP_MAX, CommissionError, step_from_text
 from benchjog.console.cell.calibration_report import print_report, report_dict
 from benchjog.console.cell.armfile import load_arm
 from benchjog.console.cell.safe_files import read_text
@@ -178,7 +179,6 @@ def cmd_apply(args: argparse.Namespace) -> int:
 
 # -- commissioning ------------------------------------------------------------------------
 
-AXIS_STEP_MAX = 15.0   # deg or mm: the largest typed step while commissioning (the gate's joint-jog cap)
 
 
 def _axis_index(arm: Arm, text: str) -> int:
@@ -243,24 +243,15 @@ class _Session:
             if text.lower() == "ok" or (keep and text.lower() == "keep"):
                 return text.lower()
             try:
-                delta = float(text)
-            except ValueError:
-                self.say(f"benchjog: not a step: {text!r}")
-                continue
-            if not math.isfinite(delta) or abs(delta) > AXIS_STEP_MAX:
-                self.say(f"benchjog: a step is at most {AXIS_STEP_MAX:g} {unit}")
+                delta = step_from_text(text, unit)
+            except CommissionError as exc:
+                self.say(f"benchjog: {exc}")
                 continue
             proposal = self.gate.propose_jog(f"j{self.index + 1}", self.joint.from_display(delta),
                                              speed_pct=self.speed)
             result = self.gate.execute(proposal, touching.AcceptShown(self.arm, self.out))
             if not result.completed:
                 self.say(f"benchjog: {result.detail}")
-
-
-def _sense_words(joint) -> str:
-    if joint.is_revolute:
-        return "counter-clockwise seen from above (the positive sense)"
-    return "down, towards the work (the positive sense: +value lowers the tool)"
 
 
 def cmd_commission(args: argparse.Namespace) -> int:
@@ -289,7 +280,7 @@ def cmd_commission(args: argparse.Namespace) -> int:
         try:
             s.say(f"1/5 direction: {joint.name} jogs {args.step:+g} {unit} by the arm file")
             s.jog(args.step, "Jog?")
-            if not is_yes(s.ask(f"Did {joint.name} move {_sense_words(joint)}? [y/n]")):
+            if not is_yes(s.ask(f"Did {joint.name} move {cm.sense_words(joint)}? [y/n]")):
                 found.direction = -joint.direction
             s.jog(-args.step, "Back?")
 
@@ -318,22 +309,14 @@ def cmd_commission(args: argparse.Namespace) -> int:
 
             s.say("5/5 homing: the controller's homing cycle; afterwards the axis should be at count 0")
             result = gate.home(PromptConfirmer(arm, question="Home?"))
-            if result.completed:
-                c = s.counts()
-                found.homing = (f"done, {joint.name} at count {c}" +
-                                ("" if c == 0 else " (not 0: check the home switch)"))
-            else:
-                found.homing = f"not done: {result.detail}"
+            found.homing = cm.homing_words(joint.name, result.completed,
+                                           s.counts() if result.completed else 0, result.detail)
         except cm.CommissionError as exc:
             raise Refused(f"{exc}: nothing written") from None
         finally:
             drives_off(gate)
     changes = found.changes(joint)
-    limits = ("soft limits as they were" if found.min is None else
-              f"soft limits {found.min:.4f} .. {found.max:.4f} {unit} ({args.margin:g} {unit} inside "
-              "the travel found)")
-    print(f"{joint.name}: direction {found.direction}, counts per {unit} {found.counts_per_unit:.6g}, "
-          f"zero {found.zero:.5f} {unit}, {limits}; homing {found.homing}", file=sys.stderr)
+    print(cm.findings_line(joint, found, args.margin), file=sys.stderr)
     if not changes:
         print("benchjog: the arm file already says all this: nothing to write", file=sys.stderr)
         return exit_codes.OK

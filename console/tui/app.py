@@ -129,6 +129,8 @@ class BenchjogApp(App):
         Binding("t", "teach", "teach", tooltip="Teach points and edit programs", id="app.teach"),
         Binding("k", "calibrate", "calibrate", tooltip="Touch fixture-plate holes and calibrate the "
                 "arm file", id="app.calibrate"),
+        Binding("c", "commission", "commission", tooltip="Commission one axis at reduced speed: "
+                "direction, counts per unit, zero, soft limits, homing", id="app.commission"),
         Binding("ctrl+q", "quit", "quit", tooltip="Stop any motion and quit", priority=True,
                 id="app.quit"),
         Binding("f1", "help", "help", tooltip="List every key of this screen, what it does and "
@@ -607,6 +609,17 @@ class BenchjogApp(App):
         if self.screen is not self.get_screen("calibrate"):
             self.push_screen("calibrate")
 
+    def action_commission(self) -> None:
+        """The commissioning screen; one for the session, so what it found survives
+        going back to jog and returning."""
+        if not self.is_screen_installed("commission"):
+            from benchjog.console.tui.screens.commissioning import CommissioningScreen
+
+            self.install_screen(CommissioningScreen(self.interlock, self.arm), name="commission")
+        if self.screen is not self.get_screen("commission"):
+            self.end_session("commissioning")   # its motions are single steps that ask
+            self.push_screen("commission")
+
     async def action_quit(self) -> None:
         try:
             self.interlock.stop()        # the driver's stop first; never raises
@@ -631,6 +644,8 @@ class BenchjogApp(App):
             return True if (self.latched() or not_connected) else None
         if action == "teach":
             return True if (self.has_teach() and self.busy is None) else None
+        if action == "commission":
+            return True if self.busy is None else None
         return True
 
 
@@ -673,6 +688,8 @@ class BenchjogApp(App):
             if not self.has_teach():
                 return "the teach screen is not installed"
             return f"busy with {self.busy.words(self.arm)}" if self.busy else "not available now"
+        if action == "commission" and self.busy is not None:
+            return f"busy with {self.busy.words(self.arm)}"
         return "not available now"
 
 
