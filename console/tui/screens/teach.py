@@ -559,7 +559,7 @@ class TeachScreen(DimmedKeyHints, Screen):
                 return f"points: reading {self.points_path.name} ..."
             if phase == "program":
                 return "points: read; reading the program ..."
-            return f"points: loading, {done:,} of {total:,} checked"
+            return f"points: {done:,} of {total:,} checked"
         if self._filling is not None:
             return f"points: showing {self._filling[0]:,} of {self._filling[1]:,}"
         return "points"
