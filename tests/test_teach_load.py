@@ -120,7 +120,7 @@ def cell(tmp_path, some_text):
     return points, tmp_path / "program.toml"
 
 
-async def until(pilot, condition, tries: int = 600) -> bool:
+async def until(pilot, condition, tries: int = 3000) -> bool:
     """Let the app run until condition() holds (a bounded number of short pauses)."""
     for _ in range(tries):
         if condition():
@@ -289,13 +289,22 @@ async def test_a_point_taught_from_the_jog_screen_while_loading_is_kept(cell, ga
     assert held.opens == 1
 
 
-async def test_closing_mid_load_releases_the_locks(cell, gate, monkeypatch):
+@pytest.mark.parametrize("opened_by", ["teach screen", "jog screen's a"])
+async def test_closing_mid_load_releases_the_locks(cell, gate, monkeypatch, opened_by):
+    # the teach screen shown, or never shown (the load started by a point taught from
+    # the jog screen): either way quitting mid-load leaves no lock behind
     points, program = cell
     held = HeldLoad(monkeypatch)
     app = make_app(ARM, gate, points_path=points, program_path=program)
     try:
         async with app.run_test(size=(80, 24)) as pilot:
-            await open_held(pilot, app, held)
+            if opened_by == "teach screen":
+                await open_held(pilot, app, held)
+            else:
+                await until(pilot, lambda: app.state is not None)
+                await pilot.press("a")
+                assert await until(pilot, held.held.is_set)
+                assert isinstance(app.screen, JogScreen)
             with pytest.raises(FileError, match="locked by another console"):
                 FileLock(points).acquire()    # the loader holds the points file's lock
             await pilot.press("ctrl+q")

@@ -61,13 +61,17 @@ FOLLOW_MAX_MM = 2.0
 # so a small cell shows at once with no "loading" flash; bigger ones are read by a
 # thread worker, with progress shown (tests/perf/bench_teach_load.py)
 INLINE_LOAD_BYTES = 64 * 1024
-FILL_CHUNK = 200          # points table rows added in the first turn of the UI thread's loop,
-FILL_CHUNK_MAX = 400     # twice as many each next turn, up to this
+# a big points table is filled FILL_CHUNK rows in the first turn of the UI thread's loop,
+# twice as many in each next turn, up to FILL_CHUNK_MAX (every turn costs the table a
+# pass over all its rows: longer slices, fewer passes; shorter, shorter waits for a key)
+FILL_CHUNK = 200
+FILL_CHUNK_MAX = 400
 PROGRESS_EVERY_S = 0.1    # the loading progress is shown at most this often
 
 
 class LoadGivenUp(Exception):
-    """Raised inside a load when the screen has closed: nothing more is read."""
+    """Raised inside a load when the screen has closed or the app is shutting down:
+    nothing more is read, and the lock taken for it is released."""
 
 
 @dataclass
@@ -481,11 +485,21 @@ class TeachScreen(DimmedKeyHints, Screen):
             out.make_read_only(f"cannot open the files: {one_line(exc)}")
             out.say(f"read only: cannot open the files: {one_line(exc)}")
         with self._files_mutex:
-            if self._files_closed:
+            if self._gone(app):
                 out.release()
                 return
             self._opened = out
-        self._to_ui(app, self._load_finished)
+        if not self._to_ui(app, self._load_finished):
+            with self._files_mutex:   # the app is closing: nobody will take them over
+                out, self._opened = self._opened, None
+            if out is not None:
+                out.release()
+
+    def _gone(self, app) -> bool:
+        """Whether the files are no longer wanted: the screen closed, or the app is
+        shutting down (which does not unmount a teach screen that was never shown,
+        one opened by teaching from the jog screen)."""
+        return self._files_closed or not app.is_running
 
     def _progress_reporter(self, app):
         """The load's progress callback (worker thread): gives up once the screen has
@@ -493,7 +507,7 @@ class TeachScreen(DimmedKeyHints, Screen):
         last = [0.0]
 
         def report(done: int, total: int) -> None:
-            if self._files_closed:
+            if self._gone(app):
                 raise LoadGivenUp()
             now = time.monotonic()
             if done <= 0 or done == total or now - last[0] >= PROGRESS_EVERY_S:
@@ -504,13 +518,13 @@ class TeachScreen(DimmedKeyHints, Screen):
         return report
 
     @staticmethod
-    def _to_ui(app, callback, *args) -> None:
+    def _to_ui(app, callback, *args) -> bool:
         """Run ``callback`` on the UI thread, later (from a worker thread; the screen
-        may not be mounted, so through the app). Nothing when the app has gone."""
+        may not be mounted, so through the app). False when the app has gone."""
         try:
-            app.call_later(callback, *args)
+            return bool(app.call_later(callback, *args))
         except RuntimeError:
-            pass   # the app's loop is closed: the app has exited
+            return False   # the app's loop is closed: the app has exited
 
     def _show_load_progress(self, phase: str, done: int, total: int) -> None:
         if self.load_state == "loading":
