@@ -202,7 +202,14 @@ class Driver(ABC):
 
     @abstractmethod
     def stop(self) -> None:
-        """Halt at once and flush the queue; thread-safe; never raises for a dead link."""
+        """Halt at once and flush the queue; thread-safe; never raises for a dead link;
+        never waits for a reply (a driver whose controller answers a stop awaits that
+        answer in a thread of its own: :meth:`wait_stopped`)."""
+
+    def wait_stopped(self, timeout_s: float | None = None) -> bool:
+        """Wait until every stop so far has its controller's answer; True when none is
+        under way. A driver whose stop is complete when it returns keeps this default."""
+        return True
 
     @abstractmethod
     def state(self) -> DriverState:

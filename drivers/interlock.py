@@ -55,11 +55,12 @@ from benchjog.kinematics.limits import fmt
 from benchjog.kinematics.model import Arm, Segment
 from benchjog.kinematics.planner import JOINT, LINE_TOLERANCE_MM, Plan, plan_jog, plan_joint_move, plan_move
 from benchjog.kinematics.solve import check_joints, tool_from_joints
-from benchjog.kinematics.sweep import (lever_mm, points_from_joints, sweep_zones, z_step_mm,
-                                       zone_gaps)
+from benchjog.kinematics.sweep import (lever_mm, points_from_joints, sweep_zones,
+                                       sweep_zones_many, z_step_mm, zone_gaps)
 from benchjog.kinematics.scara import flange_z_mm
 
 FRESH_S = 0.5              # the driver's position must be newer than this
+STOP_SETTLE_S = 0.5        # a plan right after a stop waits this long for its fresh position
 START_TOL_RAD = math.radians(0.05)  # the arm "has moved" beyond this since the proposal
 START_TOL_MM = 0.05
 SPEED_TOL = 1.01           # 1 % for the rounding of durations to whole milliseconds
@@ -94,6 +95,17 @@ class SetOutput:
 
 
 Action = Plan | Dwell | SetOutput
+
+
+@dataclass
+class _DryRunAhead:
+    """Keep-out work done ahead for many plans of a dry run (Interlock.check_each):
+    starts (pose bytes) clear of every zone, sweeps by their knots' bytes, and each
+    segment's tool speed by the plan's knots and durations."""
+
+    clear_starts: set[bytes] = dataclasses.field(default_factory=set)
+    sweeps: dict[bytes, Any] = dataclasses.field(default_factory=dict)
+    tool_speeds: dict[tuple, np.ndarray] = dataclasses.field(default_factory=dict)  # (knots, durations)
 
 
 @dataclass(frozen=True)
@@ -321,6 +333,7 @@ class Interlock:
         self._arm = arm
         self.__driver = driver
         self._journal = journal if journal is not None else NullJournal()
+        self._observers: tuple[Callable[..., None], ...] = ()   # watch(): read-only taps
         self._clock = clock
         self._stop = threading.Event()
         self._resume = threading.Event()
@@ -407,6 +420,30 @@ class Interlock:
     def journal_lines_lost(self) -> int:
         return int(getattr(self._journal, "lost", 0))
 
+    def watch(self, observer: Callable[..., None]) -> Callable[[], None]:
+        """Call ``observer(kind, **fields)`` with every record the gate journals (a
+        ``segment`` or ``output`` record names its program ``step``), on the thread that
+        records it, after the record is queued; returns the function that ends the
+        watch. Observers only look: what one raises is ignored, and nothing waits on one
+        longer than it takes (keep it quick; a motion thread calls it)."""
+        with self._issued_lock:
+            self._observers = self._observers + (observer,)
+
+        def unwatch() -> None:
+            with self._issued_lock:
+                self._observers = tuple(o for o in self._observers if o is not observer)
+
+        return unwatch
+
+    def _record(self, kind: str, **fields: Any) -> None:
+        """Journal one record (never waits, never raises) and show it to the watchers."""
+        self._journal.record(kind, **fields)
+        for observer in self._observers:
+            try:
+                observer(kind, **fields)
+            except Exception:  # noqa: BLE001 - a watcher never changes what the gate does
+                pass
+
     def wait_journal(self, timeout_s: float) -> bool:
         """Wait until the journal has written what was recorded so far (the end of a
         command, tests). Never on a motion path: motion never waits on the journal."""
@@ -422,7 +459,7 @@ class Interlock:
             pass
         finally:
             try:
-                self._journal.record("close")
+                self._record("close")
                 self._journal.close()
             except Exception:  # noqa: BLE001 - a broken journal object: journal_error says so
                 pass
@@ -441,7 +478,7 @@ class Interlock:
         """Events since the last call (each is also journalled)."""
         fresh = self.__driver.poll_events()
         for event in fresh:
-            self._journal.record("event", event=event.kind, detail=event.detail)
+            self._record("event", event=event.kind, detail=event.detail)
         with self._events_lock:
             pending, self._events = self._events + fresh, []
         return pending
@@ -450,7 +487,7 @@ class Interlock:
         """Events read while a plan runs are kept for the next poll_events()."""
         fresh = self.__driver.poll_events()
         for event in fresh:
-            self._journal.record("event", event=event.kind, detail=event.detail)
+            self._record("event", event=event.kind, detail=event.detail)
         with self._events_lock:
             self._events.extend(fresh)
         return fresh
@@ -487,7 +524,7 @@ class Interlock:
         return self._segment_findings(start, segments)[0]
 
     def _segment_findings(self, start: Sequence[float], segments: Sequence[Segment],
-                          ) -> tuple[list[str], list[str]]:
+                          ahead: _DryRunAhead | None = None) -> tuple[list[str], list[str]]:
         """(refusal reasons, notes for the confirmation) of :meth:`_segment_reasons`."""
         arm = self._arm
         reasons: list[str] = []
@@ -499,8 +536,12 @@ class Interlock:
                 return [f"segment {n}: duration {seg.duration_s:.4f} s outside 0.001..60 s"], []
         if len(tuple(start)) != arm.n_joints or not all(math.isfinite(v) for v in start):
             return ["the plan's start is malformed"], []
-        tool_speeds = self._tool_speeds(previous, segments)  # all at once: the hot path of a check
-        inside = self._zones_inside(start)
+        tool_speeds = None if ahead is None else ahead.tool_speeds.get(
+            (np.array([previous] + [tuple(seg.joints) for seg in segments], dtype=float).tobytes(),
+             tuple(seg.duration_s for seg in segments)))
+        if tool_speeds is None:
+            tool_speeds = self._tool_speeds(previous, segments)  # all at once: the hot path of a check
+        inside = self._zones_inside(start, ahead)
         share = ESCAPE_SPEED_PCT / 100.0 if inside else 1.0
         for n, seg in enumerate(segments, 1):
             wire_s = wire_duration_s(seg.duration_s)  # what the controller will be told
@@ -525,20 +566,25 @@ class Interlock:
             if reasons:
                 return reasons, []
             previous = seg.joints
-        return self._zone_findings(start, segments, inside)
+        return self._zone_findings(start, segments, inside, ahead)
 
-    def _zones_inside(self, joints: Sequence[float]) -> dict[int, float]:
+    def _zones_inside(self, joints: Sequence[float], ahead: _DryRunAhead | None = None,
+                      ) -> dict[int, float]:
         """Zone index -> penetration (mm) for every keep-out zone the arm is in."""
         if not self._arm.zones:
             return {}
-        gaps = zone_gaps(self._arm, np.array([tuple(joints)], dtype=float))[0]
+        pose = np.array([tuple(joints)], dtype=float)
+        if ahead is not None and pose.tobytes() in ahead.clear_starts:
+            return {}   # found clear of every zone by the same test, for many starts at once
+        gaps = zone_gaps(self._arm, pose)[0]
         if not (gaps.min(axis=2) < 0).any():
             return {}   # clear of every zone (the cheap, exact test first)
         depth = zone_penetrations_mm(self._arm, np.array([tuple(joints)]))[0]
         return {i: float(d) for i, d in enumerate(depth) if d > 0}
 
     def _zone_findings(self, start: Sequence[float], segments: Sequence[Segment],
-                       inside: dict[int, float]) -> tuple[list[str], list[str]]:
+                       inside: dict[int, float], ahead: _DryRunAhead | None = None,
+                       ) -> tuple[list[str], list[str]]:
         """The gate's own keep-out check of the whole swept path. Zones the arm is not
         in: certified sweep (benchjog.kinematics.sweep.sweep_zones), no contact allowed.
         Zones it starts in: the penetration, sampled every ESCAPE_STEP_MM of the arm's
@@ -550,7 +596,9 @@ class Interlock:
         reasons: list[str] = []
         others = tuple(z for i, z in enumerate(arm.zones) if i not in inside)
         if others:
-            sweep = sweep_zones(dataclasses.replace(arm, zones=others), knots)
+            sweep = ahead.sweeps.get(knots.tobytes()) if ahead is not None and not inside else None
+            if sweep is None:
+                sweep = sweep_zones(dataclasses.replace(arm, zones=others), knots)
             if sweep.contact is not None:
                 c = sweep.contact
                 parts = ", ".join(c.parts) or "the arm"
@@ -618,8 +666,60 @@ class Interlock:
         """The static checks, without the driver's state: for dry runs."""
         return Verdict.of(self._check_actions(actions, start_joints)[0])
 
+    def check_each(self, items: Sequence[tuple[Action, Sequence[float] | None]]) -> list[Verdict]:
+        """``check_actions([action], start)`` for every (action, start) of a dry run, each
+        verdict the same, with the keep-out work of all plans done ahead in one
+        vectorised pass (benchjog.kinematics.sweep.sweep_zones_many): the starts' zone
+        test and the sweeps of the plans that start clear of every zone. For dry runs
+        only: :meth:`execute` checks every motion it runs on its own."""
+        ahead = self._dry_run_ahead(items)
+        return [Verdict.of(self._check_actions([action], start, ahead)[0])
+                for action, start in items]
+
+    def _dry_run_ahead(self, items: Sequence[tuple[Action, Sequence[float] | None]],
+                       ) -> _DryRunAhead:
+        arm = self._arm
+        ahead = _DryRunAhead()
+        paths, wire, durations = [], [], []
+        for action, start in items:
+            if not isinstance(action, Plan) or action.problems or not action.segments:
+                continue
+            if not all(0.0005 <= seg.duration_s <= 60.0 for seg in action.segments):
+                continue   # refused before any of this (_segment_findings)
+            begin = start if start is not None else action.summary.start_joints
+            rows = [tuple(begin)] + [tuple(seg.joints) for seg in action.segments]
+            if any(len(r) != arm.n_joints for r in rows):
+                continue
+            knots = np.array(rows, dtype=float)
+            if np.isfinite(knots).all():
+                paths.append(knots)
+                durations.append(tuple(seg.duration_s for seg in action.segments))
+                wire += [wire_duration_s(seg.duration_s) for seg in action.segments]
+        if not paths:
+            return ahead
+        # the tool speeds of every segment of every plan (Interlock._tool_speeds, row by row)
+        q_from = np.concatenate([k[:-1] for k in paths])
+        steps = np.concatenate([np.diff(k, axis=0) for k in paths])
+        f = np.linspace(0.0, 1.0, TOOL_SPEED_SAMPLES + 1)[None, :, None]
+        _, tool = points_from_joints(arm, q_from[:, None, :] + f * steps[:, None, :])
+        if not arm.is_scara:
+            tool = tool[..., :2]
+        chords = np.linalg.norm(np.diff(tool, axis=1), axis=2).max(axis=1)
+        speeds = chords * TOOL_SPEED_SAMPLES / np.array(wire)
+        ends = np.cumsum([len(k) - 1 for k in paths])
+        for k, d, part in zip(paths, durations, np.split(speeds, ends[:-1])):
+            ahead.tool_speeds[(k.tobytes(), d)] = part
+        if not arm.zones:
+            return ahead
+        starts = np.array([k[0] for k in paths])
+        clear = ~(zone_gaps(arm, starts)[0].min(axis=2) < 0).any(axis=1)
+        ahead.clear_starts = {starts[i:i + 1].tobytes() for i in np.flatnonzero(clear)}
+        swept = [paths[i] for i in np.flatnonzero(clear)]
+        ahead.sweeps = {k.tobytes(): r for k, r in zip(swept, sweep_zones_many(arm, swept))}
+        return ahead
+
     def _check_actions(self, actions: Sequence[Action], start_joints: Sequence[float] | None,
-                       ) -> tuple[list[str], list[str]]:
+                       ahead: _DryRunAhead | None = None) -> tuple[list[str], list[str]]:
         start = tuple(start_joints) if start_joints is not None else None
         reasons: list[str] = []
         notes: list[str] = []
@@ -638,7 +738,7 @@ class Interlock:
                         start = None
                         continue
                 begin = start if start is not None else action.summary.start_joints
-                found, said = self._segment_findings(begin, action.segments)
+                found, said = self._segment_findings(begin, action.segments, ahead)
                 reasons += [prefix + r for r in found]
                 notes += [prefix + r for r in said]
                 start = action.segments[-1].joints if action.segments else begin
@@ -689,7 +789,7 @@ class Interlock:
         proposal = Proposal(request, tuple(actions), Verdict.of(reasons), start, now, token,
                             tuple(notes), enables)
         self._issue(proposal, stops)
-        self._journal.record("request", token=token, request=request, ok=proposal.ok,
+        self._record("request", token=token, request=request, ok=proposal.ok,
                              start=list(start), reasons=list(proposal.verdict.reasons),
                              notes=list(notes),
                              segments=sum(len(p.segments) for p in proposal.plans),
@@ -713,6 +813,18 @@ class Interlock:
                 del self._issued[min(self._issued)]
             self._issued[proposal.token] = (proposal, digest, stops)
 
+    def _settled_state(self) -> DriverState:
+        """The state a plan starts from. Right after a stop whose answer is still on its
+        way (the serial driver's stop returns once STOP is written) the position is
+        stale; wait for the stop's fresh position, at most STOP_SETTLE_S, rather than
+        refuse a plan made a moment too early. Still stale after that: the plan is
+        refused as stale (``_state_reasons``)."""
+        state = self.state()
+        if not getattr(state, "fresh", True):
+            self.wait_stopped(STOP_SETTLE_S)
+            state = self.state()
+        return state
+
     def _planning(self, start: Sequence[float], speed_pct: float) -> tuple[Arm, float]:
         """The arm and speed to plan with from ``start``: inside a keep-out zone, the
         planner is shown the other zones only (the gate checks the way out itself) and
@@ -725,7 +837,7 @@ class Interlock:
 
     def propose_move(self, target: Sequence[float], *, branch: Any = None, path: str = JOINT,
                      speed_pct: float = 100.0, tolerance_mm: float = LINE_TOLERANCE_MM) -> Proposal:
-        start = self.state().joints
+        start = self._settled_state().joints
         arm, pct = self._planning(start, speed_pct)
         plan = plan_move(arm, start, tuple(target), branch=branch, path=path, speed_pct=pct,
                          tolerance_mm=tolerance_mm)
@@ -736,14 +848,14 @@ class Interlock:
 
     def propose_joints(self, joints: Sequence[float], *, speed_pct: float = 100.0) -> Proposal:
         joints = check_joints(self._arm, joints)
-        start = self.state().joints
+        start = self._settled_state().joints
         arm, pct = self._planning(start, speed_pct)
         plan = plan_joint_move(arm, start, joints, speed_pct=pct)
         shown = ", ".join(f"{j.name} {fmt(j, v)}" for j, v in zip(self._arm.joints, joints))
         return self._propose(f"move joints to {shown}", [plan], start_joints=start)
 
     def propose_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0) -> Proposal:
-        start = self.state().joints
+        start = self._settled_state().joints
         last = self._last_end
         base = last if last is not None and self._moved_since(last, start) is None else None
         arm, pct = self._planning(start, speed_pct)
@@ -778,7 +890,7 @@ class Interlock:
         return None
 
     def _end(self, token: int, result: RunResult) -> RunResult:
-        self._journal.record("result", token=token, outcome=result.outcome, detail=result.detail,
+        self._record("result", token=token, outcome=result.outcome, detail=result.detail,
                              segments_sent=result.segments_sent, step=result.step)
         return result
 
@@ -826,7 +938,7 @@ class Interlock:
         None when all is well, else why nothing moves."""
         if not proposal.enables or self.state().enabled:
             return None
-        self._journal.record("enable", token=proposal.token, after_yes=True)
+        self._record("enable", token=proposal.token, after_yes=True)
         try:
             self.__driver.enable()
         except Exception as exc:  # noqa: BLE001 - one line; nothing moved
@@ -852,10 +964,10 @@ class Interlock:
         self._stop.clear()  # from here on, a stop (even during the question) wins
         if self._stopped_since(stops):
             return RunResult(False, "stopped", "stopped: stop was pressed; nothing moved")
-        self._journal.record("confirm-asked", token=proposal.token)
+        self._record("confirm-asked", token=proposal.token)
         answer = bool(confirmer.confirm(proposal))
         waited = self._clock() - proposal.created_s
-        self._journal.record("confirmation", token=proposal.token, yes=answer,
+        self._record("confirmation", token=proposal.token, yes=answer,
                              after_s=round(waited, 3))
         if not answer:
             return RunResult(False, "cancelled", "cancelled: nothing moved")
@@ -907,7 +1019,7 @@ class Interlock:
                             return self._halted(trouble, sent, step, where, n, len(action.segments))
                         self.__driver.queue(seg)
                         sent += 1
-                        self._journal.record("segment", token=proposal.token, step=index,
+                        self._record("segment", token=proposal.token, step=index,
                                              n=n, joints=list(seg.joints),
                                              duration_s=seg.duration_s)
                     trouble = self._wait_done(action.summary.duration_s + 5.0)
@@ -924,7 +1036,7 @@ class Interlock:
                         time.sleep(min(0.02, max(0.0, deadline - time.monotonic())))
                 else:
                     self.__driver.set_output(action.channel, action.on)
-                    self._journal.record("output", token=proposal.token, step=index,
+                    self._record("output", token=proposal.token, step=index,
                                          channel=action.channel, on=action.on)
             except Exception as exc:  # noqa: BLE001 - any driver failure halts, in one line
                 self._safe_stop()
@@ -988,7 +1100,7 @@ class Interlock:
             stops = self._stops
         proposal = Proposal("home: run the controller's homing cycle", (), Verdict.of(reasons),
                             state.joints, self._clock(), token, tuple(notes), enables)
-        self._journal.record("request", token=token, request=proposal.request, ok=proposal.ok,
+        self._record("request", token=token, request=proposal.request, ok=proposal.ok,
                              reasons=list(reasons), notes=notes)
         if not proposal.ok:
             return self._end(token, RunResult(False, "refused", "refused: " + "; ".join(reasons)))
@@ -999,7 +1111,7 @@ class Interlock:
             if self._stopped_since(stops):
                 return self._end(token, RunResult(False, "stopped", "stopped: nothing moved"))
             answer = bool(confirmer.confirm(proposal))
-            self._journal.record("confirmation", token=token, yes=answer)
+            self._record("confirmation", token=token, yes=answer)
             if not answer:
                 return self._end(token, RunResult(False, "cancelled", "cancelled: nothing moved"))
             if self._stop.is_set() or self._stopped_since(stops):
@@ -1032,22 +1144,34 @@ class Interlock:
         """Stop at once, from any thread; never asks for confirmation, never raises.
 
         The driver's stop is the very first thing: nothing that can block or raise (no
-        lock a running plan holds, no journal write) stands before it. Then a plan
-        running or waiting for its yes ends, and every proposal not yet confirmed is
-        void (the next motion is planned and asked for again). The journal line is
-        queued last (drivers/journal.py: never waits)."""
-        self._safe_stop()
+        lock a running plan holds, no journal write) stands before it, only the stop flag
+        (an Event, set first so that a motion thread the driver's stop interrupts already
+        sees it as a stop, not a failure). Then a plan running or waiting for its yes
+        ends, and every proposal not yet confirmed is void (the next motion is planned
+        and asked for again). The journal line is queued last (drivers/journal.py: never
+        waits)."""
         self._stop.set()
+        self._safe_stop()
         self._resume.set()
         try:
             with self._issued_lock:   # held only around dict operations, never over I/O
                 self._stops += 1
                 cancelled = len(self._issued)
                 self._issued.clear()
-            self._journal.record("stop", cancelled=cancelled)
+            self._record("stop", cancelled=cancelled)
         except Exception:  # noqa: BLE001 - the arm is stopped; nothing else may raise here
             pass
         self._jog_session_hook("a stop")  # jog sessions: a stop ends one (never raises)
+
+    def wait_stopped(self, timeout_s: float) -> bool:
+        """Wait until the driver has its answer to every stop sent so far (the serial
+        driver's stop returns once STOP is on the wire and awaits its OK in a thread of
+        its own); True when no stop is under way. Never needed for safety: the stop is
+        out already."""
+        try:
+            return bool(self.__driver.wait_stopped(timeout_s))
+        except Exception:  # noqa: BLE001 - a dead link has nothing more to answer
+            return True
 
     def _safe_stop(self) -> None:
         try:
@@ -1057,38 +1181,38 @@ class Interlock:
 
     def pause(self) -> None:
         self._resume.clear()
-        self._journal.record("pause")
+        self._record("pause")
 
     def resume(self) -> None:
         self._resume.set()
-        self._journal.record("resume")
+        self._record("resume")
 
     def enable(self) -> None:
-        self._journal.record("enable")
+        self._record("enable")
         self.__driver.enable()
 
     def disable(self) -> None:
         self._jog_session_hook("drives switched off")  # jog sessions: ends one
-        self._journal.record("disable")
+        self._record("disable")
         self.__driver.disable()
 
     def reset(self) -> None:
         """Clear a latched e-stop (once released) or fault; reconnect a lost link; and
         connect a driver that could not be opened at start."""
         self._jog_session_hook("a reset")  # jog sessions: a reset ends one
-        self._journal.record("reset")
+        self._record("reset")
         self._journal.recover()   # a journal that failed is tried again (journal_error)
         if not self.__driver.state().is_open:
             self.__driver.open()
             self.link_error = None
-            self._journal.record("connected", link=self.__driver.state().link)
+            self._record("connected", link=self.__driver.state().link)
             return
         self.__driver.reset()
 
     def set_output(self, channel: int, on: bool) -> None:
         if not 0 <= channel <= 7:
             raise ValueError(f"output channel {channel} outside 0..7")
-        self._journal.record("output", channel=channel, on=on)
+        self._record("output", channel=channel, on=on)
         self.__driver.set_output(channel, on)
 
     # -- jog sessions --------------------------------------------------------------------
@@ -1116,7 +1240,7 @@ class Interlock:
         Raises:
             SessionError: bounds that cannot make a session.
         """
-        joints = self.state().joints
+        joints = self._settled_state().joints
         bounds = make_bounds(self._arm, joints, frame_of(axis), step, **bounds_options)
         proposal = self.propose_jog(axis, delta, speed_pct=self._session_pct(bounds, speed_pct))
         problems: list[str] = []
@@ -1168,7 +1292,7 @@ class Interlock:
                                     state_key(self.state()), proposal.token)
             slot.active = session
             slot.last_end = None
-        self._journal.record("session-start", session=session.number, token=proposal.token,
+        self._record("session-start", session=session.number, token=proposal.token,
                              center=list(bounds.center), half=list(bounds.half),
                              branch=str(bounds.branch), frame=bounds.frame, step=bounds.step,
                              speed_cap_mm_s=bounds.speed_cap_mm_s, idle_s=bounds.idle_s)
@@ -1205,7 +1329,7 @@ class Interlock:
                 session, "another motion was asked for since the last step"), token)
         if not proposal.ok:   # refused by the gate's own checks: nothing moves
             self._issued.pop(token, None)
-            self._journal.record("result", token=token, outcome="refused",
+            self._record("result", token=token, outcome="refused",
                                  detail="; ".join(proposal.verdict.reasons), segments_sent=0,
                                  step=None)
             return SessionStep(RunResult(False, "refused",
@@ -1223,7 +1347,7 @@ class Interlock:
                                          "key"), None, token)
         with slot.lock:
             slot.step_tokens.add(token)
-        self._journal.record("session-step", session=session.number, token=token)
+        self._record("session-step", session=session.number, token=token)
         gate = self
 
         class _SessionYes(Confirmer):
@@ -1270,7 +1394,7 @@ class Interlock:
                 return slot.last_end or why
             slot.active = None
             slot.last_end = why
-        self._journal.record("session-end", session=session.number, reason=why,
+        self._record("session-end", session=session.number, reason=why,
                              steps=session.steps)
         return why
 

@@ -59,6 +59,7 @@ from benchjog.kinematics.model import Arm, Segment
 
 READ_POLL_S = 0.05
 MAX_EVENTS = 256
+STOP_SEND_WAIT_S = 0.015   # stop() waits at most this for its line to be written (one frame)
 
 
 @dataclass
@@ -99,6 +100,7 @@ class SerialDriver(Driver):
         self._ser = None
         self._trace = None
         self._threads: list[threading.Thread] = []
+        self._stop_threads: list[threading.Thread] = []   # stops awaiting their OK
         self._running = False
         self._is_open = False
         self._t0 = time.monotonic()
@@ -116,6 +118,7 @@ class SerialDriver(Driver):
         self._home_done = False
         self._stop_gen = 0
         self._stop_pending = 0   # stop() calls under way: other waits give up at once
+        self._stop_written = 0   # the _stop_gen the last STOP line written covers
         self._mode = Mode.DISABLED
         self._pos: tuple[int, ...] = (0,) * arm.n_joints
         self._outputs = 0
@@ -204,7 +207,8 @@ class SerialDriver(Driver):
                   guard: Callable[[], None] | None = None, hello: bool = False) -> P.Reply:
         """Send one line and wait for its reply, re-sending the same line (same seq) on
         a timeout or ``ERR 0 BAD_CRC``. ``guard`` runs under the state lock before every
-        (re)send and may raise to keep the line from going out."""
+        (re)send and may raise to keep the line from going out. A STOP line, once
+        written, covers every stop() call made before it (stop() waits for that)."""
         with self._txn_lock:
             if verb in ("STOP", "HELLO"):
                 with self._cond:
@@ -236,7 +240,14 @@ class SerialDriver(Driver):
                             guard()
                     if verb == "STATE":
                         self._t_state_sent = self._now()
+                    if verb == "STOP":
+                        with self._cond:
+                            covers = self._stop_gen   # every stop() up to here is answered by it
                     self._write(line)
+                    if verb == "STOP":
+                        with self._cond:
+                            self._stop_written = max(self._stop_written, covers)
+                            self._cond.notify_all()
                     deadline = self._now() + self.timeout_s
                     with self._cond:
                         while self._reply is None and not self._link_lost():
@@ -677,6 +688,8 @@ class SerialDriver(Driver):
         self._threads = []
 
     def _close(self) -> None:
+        # a stop still waiting for its answer gets it before the drives go off
+        self.wait_stopped(self.timeout_s * (self.retries + 2) * 2)
         if self._is_open and not self._link_lost():
             try:
                 self._transact("DISABLE")
@@ -827,9 +840,13 @@ class SerialDriver(Driver):
             raise ControllerError(f"controller refused MOVE: {reply.describe()}")
 
     def stop(self) -> None:
-        """Halt at once: whatever line another thread waits on is given up (its
-        caller gets a ControllerError), then STOP goes out. Should that line have been
-        lost, so that STOP is out of sequence, a HELLO restarts the count first."""
+        """Halt at once, and return as soon as STOP is on the wire: whatever line
+        another thread waits on is given up (its caller gets a ControllerError), then a
+        background thread sends STOP, waits for its OK (re-sending it on a timeout), and
+        asks for a fresh STATE. Should that line have been lost, so that STOP is out of
+        sequence, a HELLO restarts the count first. The caller waits for nothing but the
+        write itself (at most ``STOP_SEND_WAIT_S``): a controller that has gone quiet
+        costs the console no frame (see ``wait_stopped`` to wait for the OK)."""
         with self._cond:
             self._stop_gen += 1
             self._stop_pending += 1
@@ -843,10 +860,32 @@ class SerialDriver(Driver):
                 self._mode = Mode.IDLE
             self._cond.notify_all()
             usable = self._is_open and self._ser is not None and not self._link_lost()
+            mine = self._stop_gen
+        if not usable:
+            with self._cond:
+                self._stop_pending -= 1
+            return
+        ended = threading.Event()
+        worker = threading.Thread(target=self._stop_confirm, args=(ended,), daemon=True,
+                                  name=f"stop {self.port}")
+        with self._cond:
+            self._stop_threads = [t for t in self._stop_threads if t.is_alive()] + [worker]
+        worker.start()
+        # back as soon as a STOP written after this call's bookkeeping is on the wire (this
+        # call's own, or a concurrent stop's), the link is lost, or the wait is over
+        deadline = time.monotonic() + STOP_SEND_WAIT_S
+        with self._cond:
+            while (self._stop_written < mine and not ended.is_set()
+                   and not self._link_lost()):
+                remaining = deadline - time.monotonic()
+                if remaining <= 0:
+                    break
+                self._cond.wait(remaining)
+
+    def _stop_confirm(self, ended: threading.Event) -> None:
+        """The stop's own thread: STOP (HELLO first after BAD_SEQ), its OK, then STATE."""
         stopped = False
         try:
-            if not usable:
-                return
             reply = self._transact("STOP")
             if reply.kind == "ERR" and reply.code == "BAD_SEQ":
                 self._transact("HELLO", hello=True)
@@ -860,10 +899,24 @@ class SerialDriver(Driver):
         except Exception:  # noqa: BLE001 - stop never raises for a dead link
             pass
         finally:
+            ended.set()
             with self._cond:
                 self._stop_pending -= 1
+                self._cond.notify_all()
         if stopped:
             self._transact_quiet("STATE")   # where the arm came to rest: fresh again
+
+    def wait_stopped(self, timeout_s: float | None = None) -> bool:
+        """Wait until every stop sent so far has its answer (or was given up on) and
+        the STATE after it is back; True when none is under way any more."""
+        deadline = None if timeout_s is None else time.monotonic() + timeout_s
+        with self._cond:
+            threads = list(self._stop_threads)
+        for t in threads:
+            if t is threading.current_thread():
+                continue
+            t.join(None if deadline is None else max(0.0, deadline - time.monotonic()))
+        return not any(t.is_alive() for t in threads)
 
     def _state_locked(self) -> DriverState:
         enabled = self._mode in (Mode.UNHOMED, Mode.IDLE, Mode.MOVING)

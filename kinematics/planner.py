@@ -36,7 +36,7 @@ import numpy as np
 from benchjog.kinematics import planar, profile, scara, solve, sweep
 from benchjog.kinematics.options import (JOINT, LINE, LINE_TOLERANCE_MAX_MM, LINE_TOLERANCE_MIN_MM,
                                          LINE_TOLERANCE_MM, PATHS)
-from benchjog.kinematics.limits import TWO_PI, limit_clearance, limit_problem
+from benchjog.kinematics.limits import TWO_PI, limit_clearance, limit_problem, wrap_pi
 from benchjog.kinematics.model import Arm, Branch, Segment
 from benchjog.kinematics.solve import TargetError
 
@@ -51,22 +51,26 @@ BALANCE_FIRST_CHORDS = 16             # line knots: the first, uniform split tha
 BALANCE_MARGIN = 0.01                # chords aimed 1 % below the estimated longest
 BALANCE_PASSES = 6                   # splits tried before falling back to the greedy cut
 NO_MOTION = 1e-12
+JOINT_GAIN_SAMPLES = 65              # Jacobian samples of the tool-speed bound of a joint move
 LINE_NO_MOTION = 1e-9  # rad or mm: a line whose joints move less is planned as a joint move
 
 
 # --------------------------------------------------------------------------- summary
 
 def _fmt_tool(arm: Arm, pose: Sequence[float]) -> str:
+    """A tool pose in words; the heading (roll) in (-180, 180] deg, as the DH chain's
+    atan2 and the console's pose panel give it."""
     if arm.is_scara:
         x, y, z, roll = pose
-        return f"x {x:.2f} mm, y {y:.2f} mm, z {z:.2f} mm, roll {math.degrees(roll):.2f} deg"
+        return (f"x {x:.2f} mm, y {y:.2f} mm, z {z:.2f} mm, "
+                f"roll {math.degrees(wrap_pi(roll)):.2f} deg")
     x, y, heading = pose
-    return f"x {x:.2f} mm, y {y:.2f} mm, heading {math.degrees(heading):.2f} deg"
+    return f"x {x:.2f} mm, y {y:.2f} mm, heading {math.degrees(wrap_pi(heading)):.2f} deg"
 
 
 def _tool_display(arm: Arm, pose: Sequence[float]) -> list[float]:
     out = [float(v) for v in pose]
-    out[-1] = math.degrees(out[-1])
+    out[-1] = math.degrees(wrap_pi(out[-1]))
     return out
 
 
@@ -270,12 +274,16 @@ def _segments(q: np.ndarray, t: np.ndarray) -> tuple[Segment, ...]:
     return tuple(Segment(tuple(row), d) for row, d in zip(q.tolist(), np.round(t, 3).tolist()))
 
 
-def _peaks(arm: Arm, start: np.ndarray, q: np.ndarray, t: np.ndarray) -> tuple[tuple, float]:
+def _peaks(arm: Arm, start: np.ndarray, q: np.ndarray, t: np.ndarray,
+           gain: np.ndarray | None = None) -> tuple[tuple, float]:
+    """Peak joint speeds and tool speed; ``gain``: the tool-speed bounds of exactly
+    these segments when already known."""
     if not len(t):
         return tuple(0.0 for _ in arm.joints), 0.0
     prev = np.vstack([start, q[:-1]])
     w = np.abs(q - prev) / t[:, None]
-    gain = sweep.tool_speed_gain(arm, prev, q - prev)
+    if gain is None:
+        gain = sweep.tool_speed_gain(arm, prev, q - prev)
     return tuple(float(v) for v in w.max(axis=0)), float((gain / t).max())
 
 
@@ -293,6 +301,56 @@ def _refused(arm: Arm, kind: str, start, end, branch, problems, warnings=(),
         sweep.singular_distance_on_segment(t2a, t2b),
         dict(zone_clearance or {}), tuple(warnings))
     return Plan((), summary, tuple(problems))
+
+
+# --------------------------------------------------------------------------- ahead
+
+@dataclass
+class Prefetched:
+    """The costly parts of many joint moves computed ahead, in one vectorised pass
+    each (the dry run of a program, :func:`prefetch_joint_moves`): keep-out sweeps by
+    their knots and tool-speed bounds by (start, step). A move finds its own results
+    only when its knots are bit for bit the ones prefetched; anything else is computed
+    as usual, so the plan is the same either way."""
+
+    sweeps: dict[bytes, sweep.SweepResult] = field(default_factory=dict)
+    gains: dict[bytes, float] = field(default_factory=dict)
+    goals: dict[tuple, tuple] = field(default_factory=dict)   # (start, target, branch) -> _joint_goal
+
+    def joint_goal(self, arm: Arm, q0: np.ndarray, tgt: tuple[float, ...], want: Branch | None):
+        found = self.goals.get((q0.tobytes(), tgt, want))
+        if found is None:
+            return _joint_goal(arm, q0, tgt, want)
+        refused, goal, branch, warnings = found
+        return refused, goal, branch, None if warnings is None else list(warnings)
+
+    def sweep(self, arm: Arm, knots: np.ndarray) -> sweep.SweepResult:
+        found = self.sweeps.get(knots.tobytes())
+        return found if found is not None else sweep.sweep_zones(arm, knots)
+
+    def gain(self, arm: Arm, q0: np.ndarray, dq: np.ndarray) -> float:
+        found = self.gains.get(q0.tobytes() + dq.tobytes())
+        if found is not None:
+            return found
+        return float(sweep.tool_speed_gain(arm, q0[None], dq[None], samples=JOINT_GAIN_SAMPLES)[0])
+
+
+def prefetch_joint_moves(arm: Arm, moves: Sequence[np.ndarray],
+                         ahead: Prefetched | None = None) -> Prefetched:
+    """Sweeps and tool-speed bounds of joint moves ``moves`` (each knots [start, goal],
+    as :func:`joint_move_knots` gives), all at once, added to ``ahead`` (or a new one)."""
+    ahead = Prefetched() if ahead is None else ahead
+    if not moves:
+        return ahead
+    knots = [np.asarray(k, dtype=float) for k in moves]
+    for k, result in zip(knots, sweep.sweep_zones_many(arm, knots)):
+        ahead.sweeps[k.tobytes()] = result
+    q0 = np.array([k[0] for k in knots])
+    dq = np.array([k[1] - k[0] for k in knots])
+    gains = sweep.tool_speed_gain(arm, q0, dq, samples=JOINT_GAIN_SAMPLES)
+    for a, d, g in zip(q0, dq, gains.tolist()):
+        ahead.gains[a.tobytes() + d.tobytes()] = g
+    return ahead
 
 
 # --------------------------------------------------------------------------- joint moves
@@ -317,7 +375,7 @@ def plan_joint_move(arm: Arm, start: Sequence[float], end: Sequence[float], *,
 
 
 def _joint_plan(arm: Arm, q0: np.ndarray, q1: np.ndarray, p: float, branch: Branch | None,
-                warnings: list[str]) -> Plan:
+                warnings: list[str], ahead: Prefetched | None = None) -> Plan:
     dq = q1 - q0
     vmax, amax = _limits(arm, p)
     b0 = branch_of(arm, q0)
@@ -332,7 +390,7 @@ def _joint_plan(arm: Arm, q0: np.ndarray, q1: np.ndarray, p: float, branch: Bran
     end_sing = solve.singularity_words(arm, float(q1[1] + arm.joints[1].offset_rad))
     if end_sing:
         warnings.append(f"at the end: {end_sing}")
-    sw = sweep.sweep_zones(arm, knots)
+    sw = sweep.sweep_zones(arm, knots) if ahead is None else ahead.sweep(arm, knots)
     if sw.contact is not None:
         problems.append(_zone_words(arm, sw.contact, f"at {100 * sw.contact.tau:.0f}% of the move"))
     if problems:
@@ -345,7 +403,8 @@ def _joint_plan(arm: Arm, q0: np.ndarray, q1: np.ndarray, p: float, branch: Bran
         moving = np.abs(dq) > NO_MOTION
         v_rate = float((vmax[moving] / np.abs(dq[moving])).min())
         a_rate = float((amax[moving] / np.abs(dq[moving])).min())
-        gain = float(sweep.tool_speed_gain(arm, q0[None], dq[None], samples=65)[0])
+        gain = (float(sweep.tool_speed_gain(arm, q0[None], dq[None], samples=JOINT_GAIN_SAMPLES)[0])
+                if ahead is None else ahead.gain(arm, q0, dq))
         cap = p * arm.tool_speed_max_mm_s
         if gain > 0 and cap / gain < v_rate:
             v_rate = cap / gain
@@ -357,8 +416,10 @@ def _joint_plan(arm: Arm, q0: np.ndarray, q1: np.ndarray, p: float, branch: Bran
         gains = sweep.tool_speed_gain(arm, prev, q_seg - prev)
         t, stretch = profile.fit_durations(q0, q_seg, np.array([t for _, t in pieces]),
                                            vmax, amax, gains, cap)
-        q_seg, t_seg = profile.split_long(q0, q_seg, t)
-        peak_w, peak_tool = _peaks(arm, q0, q_seg, t_seg)
+        q_cut, t_seg = profile.split_long(q0, q_seg, t)
+        same = q_cut.shape == q_seg.shape and bool((q_cut == q_seg).all())  # nothing was cut
+        q_seg = q_cut
+        peak_w, peak_tool = _peaks(arm, q0, q_seg, t_seg, gains if same else None)
     if p < 1.0:
         warnings.append(f"speed override {100 * p:g}%")
     summary = PlanSummary(
@@ -879,12 +940,15 @@ def _joint_distance_s(arm: Arm, a: Sequence[float], b: Sequence[float]) -> float
 
 def plan_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
               branch: Branch | str | None = None, path: str = JOINT, speed_pct: float = 100.0,
-              tolerance_mm: float = LINE_TOLERANCE_MM) -> Plan:
+              tolerance_mm: float = LINE_TOLERANCE_MM, ahead: Prefetched | None = None) -> Plan:
     """One move to a tool target (CONTRACT.md ``move``).
 
     ``branch`` None: for a joint move, the usable IK solution nearest the start joints
     (by :func:`_joint_distance_s`); a line keeps the start's branch. Refuses when the
     wanted (or every) solution is unusable.
+
+    ``ahead``: results computed ahead for this move (:func:`prefetch_joint_moves`);
+    the plan is the same with or without.
 
     Raises:
         TargetError: bad target, joints, override, path or branch name.
@@ -898,27 +962,63 @@ def plan_move(arm: Arm, start: Sequence[float], target: Sequence[float], *,
     if path == LINE:
         return plan_line_move(arm, q0, tgt, branch=want, speed_pct=speed_pct,
                               tolerance_mm=tolerance_mm)
+    refused, goal, goal_branch, warnings = (_joint_goal(arm, q0, tgt, want) if ahead is None
+                                            else ahead.joint_goal(arm, q0, tgt, want))
+    if refused is not None:
+        return refused
+    return _joint_plan(arm, q0, goal, p, goal_branch, warnings, ahead)
+
+
+def _joint_goal(arm: Arm, q0: np.ndarray, tgt: tuple[float, ...], want: Branch | None):
+    """The goal joints of a joint move to a checked target: (refused plan, None, None,
+    None) when no solution can be used, else (None, goal, its branch, warnings)."""
     ik = solve.joints_from_tool(arm, tgt)
     if not ik.reachable:
-        return _refused(arm, JOINT, q0, None, want, list(ik.warnings))
+        return _refused(arm, JOINT, q0, None, want, list(ik.warnings)), None, None, None
     if want is not None:
         sol = ik.solution(want)
         if sol is None or not sol.usable:
             why = "; ".join(sol.problems) if sol else "no such solution"
             return _refused(arm, JOINT, q0, None, want,
-                            [f"no usable {want} solution for the target: {why}"])
+                            [f"no usable {want} solution for the target: {why}"]), None, None, None
     else:
         usable = ik.usable
         if not usable:
             why = "; ".join(f"{s.branch}: {'; '.join(s.problems)}" for s in ik.solutions)
             return _refused(arm, JOINT, q0, None, None,
-                            [f"no usable IK solution for the target: {why}"])
+                            [f"no usable IK solution for the target: {why}"]), None, None, None
         sol = min(usable, key=lambda s: _joint_distance_s(
             arm, q0, nearest_equivalent(arm, q0, s.joints)))
-    warnings = list(ik.warnings)
     goal = np.array(nearest_equivalent(arm, q0, sol.joints))
-    return _joint_plan(arm, q0, goal, p, sol.branch if len(ik.solutions) > 1
-                       else branch_of(arm, sol.joints), warnings)
+    branch = sol.branch if len(ik.solutions) > 1 else branch_of(arm, sol.joints)
+    return None, goal, branch, list(ik.warnings)
+
+
+def joint_move_knots(arm: Arm, start: Sequence[float], target: Sequence[float], *,
+                     branch: Branch | str | None = None, ahead: Prefetched | None = None,
+                     ) -> np.ndarray | None:
+    """The knots [start, goal] that ``plan_move(path=JOINT)`` sweeps for this move, or
+    None when it refuses before sweeping (no usable solution). For planning ahead
+    (:func:`prefetch_joint_moves`); ``ahead`` keeps the goal found, for the move's own
+    plan. Raises TargetError as :func:`plan_move`."""
+    q0 = np.array(solve.check_joints(arm, start))
+    tgt, want = solve.check_target(arm, target), _check_branch(branch)
+    found = _joint_goal(arm, q0, tgt, want)
+    if ahead is not None:
+        ahead.goals[(q0.tobytes(), tgt, want)] = (found[0], found[1], found[2],
+                                                 None if found[3] is None else tuple(found[3]))
+    return None if found[0] is not None else np.vstack([q0, found[1]])
+
+
+def joint_move_end(knots: np.ndarray) -> tuple[float, ...] | None:
+    """Where the segments of a joint move through ``knots`` [start, goal] end when it
+    is planned (the path parameter ends at exactly 1: start + 1.0 * (goal - start)),
+    or None when nothing moves (no segments). For planning ahead only: a plan's own
+    segments are what counts."""
+    dq = knots[1] - knots[0]
+    if np.abs(dq).max() <= NO_MOTION:
+        return None
+    return tuple((knots[0] + 1.0 * dq).tolist())
 
 
 CARTESIAN_AXES = {"x": 0, "y": 1, "z": 2, "roll": 3}
@@ -969,5 +1069,6 @@ def plan_jog(arm: Arm, start: Sequence[float], axis: str, delta: float, *,
     return plan_move(arm, q0, target, branch=b0, path=JOINT, speed_pct=speed_pct)
 
 
-__all__ = ["JOINT", "LINE", "Plan", "PlanSummary", "plan_joint_move", "plan_line_move",
-           "plan_move", "plan_jog", "branch_of"]
+__all__ = ["JOINT", "LINE", "Plan", "PlanSummary", "Prefetched", "plan_joint_move",
+           "plan_line_move", "plan_move", "plan_jog", "branch_of", "joint_move_knots",
+           "joint_move_end", "prefetch_joint_moves"]

@@ -360,3 +360,94 @@ def sweep_zones(arm: Arm, knots: np.ndarray) -> SweepResult:
     if first is not None:
         clearance[first.zone] = min(clearance[first.zone], first.gap_mm)
     return SweepResult(clearance, first, samples)
+
+
+def sweep_zones_many(arm: Arm, paths) -> list[SweepResult]:
+    """:func:`sweep_zones` of many paths in one vectorised pass: the same result for
+    each path as its own call (the same samples, the same refinement, the same
+    contact), for the dry run of a whole program.
+
+    Every decision of the certification is taken per interval, except the closest
+    sampled gap ``best`` (the report refinement), which is kept per path and per zone;
+    the bisection runs level by level as in :func:`sweep_zones`, so each path sees
+    exactly the intervals of its own call, in the same order. The gates of real motion
+    (benchjog.drivers.interlock) call :func:`sweep_zones` on every motion they run.
+
+    Args:
+        paths: a sequence of knot arrays (n_i + 1, n_joints), each one path.
+    """
+    paths = [np.atleast_2d(np.asarray(k, dtype=float)) for k in paths]
+    if not arm.zones or not paths:
+        return [SweepResult({}, None, 0) for _ in paths]
+    names = [z.name for z in arm.zones]
+    sizes = np.array([len(k) for k in paths])
+    first_knot = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+    knots = np.concatenate(paths)
+    knot_group = np.repeat(np.arange(len(paths)), sizes)
+    knot_local = np.arange(len(knots)) - first_knot[knot_group]
+    piece_knot = np.flatnonzero(knot_local < (sizes - 1)[knot_group])  # first knot of each piece
+    piece_group = knot_group[piece_knot]
+    piece_local = knot_local[piece_knot]
+    dq = knots[piece_knot + 1] - knots[piece_knot]
+    rate = np.maximum(lever_mm(arm, dq), z_step_mm(arm, dq))
+    comb, _rep, part_names = zone_gaps(arm, knots)
+    c = comb.min(axis=2)
+    best = np.minimum.reduceat(c, first_knot, axis=0)  # (G, Z)
+    samples = sizes.copy()
+    contacts: list[list[Contact]] = [[] for _ in paths]
+
+    def note_contacts(group, seg, tau, cz, comb_full):
+        for k in np.flatnonzero((cz < 0).any(axis=1)):
+            zi = int(np.argmin(cz[k]))
+            parts = tuple(part_names[zi][p] for p in np.flatnonzero(comb_full[k, zi] < 0))
+            contacts[group[k]].append(Contact(int(seg[k]), float(tau[k]), names[zi], parts,
+                                              float(cz[k, zi])))
+
+    note_contacts(knot_group, np.maximum(knot_local - 1, 0),
+                  np.where(knot_local > 0, 1.0, 0.0), c, comb)
+    seg = np.arange(len(dq))  # global piece index
+    ta = np.zeros(len(dq))
+    tb = np.ones(len(dq))
+    ca, cb = c[piece_knot], c[piece_knot + 1]
+    while seg.size:
+        group = piece_group[seg]
+        h = tb - ta
+        step = rate[seg] * h
+        lower = (ca + cb - step[:, None]) / 2.0
+        free = (ca >= 0) & (cb >= 0)
+        slack = np.maximum(ZONE_REPORT_MM, ZONE_REPORT_REL * np.abs(best))[group]
+        need = ((lower < 0) | (lower < best[group] - slack)) & free[:, :]
+        unresolved = need.any(axis=1) & (step >= ZONE_STEP_MIN_MM)
+        tiny = (lower < 0).any(axis=1) & free.all(axis=1) & (step < ZONE_STEP_MIN_MM)
+        for k in np.flatnonzero(tiny):
+            zi = int(np.argmin(lower[k]))
+            contacts[group[k]].append(Contact(int(piece_local[seg[k]]), float(ta[k]), names[zi],
+                                              (), float(lower[k, zi])))
+        keep = unresolved & free.all(axis=1)
+        if not keep.any():
+            break
+        seg, ta, tb, ca, cb = seg[keep], ta[keep], tb[keep], ca[keep], cb[keep]
+        group = piece_group[seg]
+        tm = (ta + tb) / 2.0
+        qm = knots[piece_knot[seg]] + tm[:, None] * dq[seg]
+        comb_m, _rep_m, _ = zone_gaps(arm, qm)
+        cm = comb_m.min(axis=2)
+        samples += np.bincount(group, minlength=len(paths))
+        np.minimum.at(best, group, cm)
+        note_contacts(group, piece_local[seg], tm, cm, comb_m)
+        seg = np.concatenate([seg, seg])
+        ta, tb = np.concatenate([ta, tm]), np.concatenate([tm, tb])
+        ca, cb = np.concatenate([ca, cm]), np.concatenate([cm, cb])
+    results = []
+    for g, path in enumerate(paths):
+        found = contacts[g]
+        first = min(found, key=lambda k: (k.segment, k.tau)) if found else None
+        count = int(samples[g])
+        if first is not None:
+            first = _first_entry(arm, path, first)
+            count += CONTACT_SCAN_MAX
+        clearance = {name: float(best[g, i]) for i, name in enumerate(names)}
+        if first is not None:
+            clearance[first.zone] = min(clearance[first.zone], first.gap_mm)
+        results.append(SweepResult(clearance, first, count))
+    return results

@@ -89,6 +89,7 @@ class DriverContract:
             d.queue(Segment((DEG(j1), DEG(90.0)), 0.4))
         time.sleep(0.1)
         d.stop()
+        assert d.wait_stopped(3.0)              # the controller has answered the stop
         assert d.wait_idle(1.0)
         stopped = rig.counts()
         # stopped early in the first segment: short of 40 deg = 1600 counts

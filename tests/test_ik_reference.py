@@ -253,3 +253,22 @@ def test_analytic_jacobian_agrees_with_modern_robotics_jacobianspace(name):
         values = random_values(arm, rng)
         np.testing.assert_allclose(solve.jacobian(arm, values), tip_jacobian(arm, values),
                                    atol=1e-9, rtol=0)
+
+
+@pytest.mark.parametrize("name", ["planar-bench", "scara-bench"])
+def test_plan_summaries_state_the_heading_as_the_rotation_gives_it(name):
+    # A move whose joint sum passes 180 deg: the plan's words and JSON give the end
+    # heading (SCARA: roll) in (-180, 180], the angle modern_robotics' FKinSpace rotation
+    # gives through atan2, the same figure the console's pose panel shows.
+    from benchjog.kinematics.planner import plan_joint_move
+
+    arm = ARMS[name]
+    end = [math.radians(87.7), math.radians(99.4)] + [0.0] * (arm.n_joints - 2)
+    m, slist = screws(arm)
+    expected = math.degrees(pose_of(arm, mr.FKinSpace(m, slist, mr_thetas(arm, end)))[-1])
+    plan = plan_joint_move(arm, [0.0] * arm.n_joints, end, speed_pct=50.0)  # reference: modern_robotics FKinSpace
+    assert -180.0 < expected <= 180.0
+    shown = plan.summary.to_dict(arm)["end_tool"][-1]
+    assert shown == pytest.approx(expected, abs=1e-9)
+    word = "roll" if arm.is_scara else "heading"
+    assert f"{word} {expected:.2f} deg" in "\n".join(plan.summary.lines(arm))

@@ -553,3 +553,30 @@ def test_random_motions_from_inside_a_zone_never_go_deeper(tmp_path_factory, seq
                         last[name] = min(last[name], d)   # never above the least so far
                     else:
                         assert d <= ESCAPE_REF_TOL_MM, (name, d)
+
+
+def test_a_watcher_sees_every_journaled_record_and_cannot_change_the_motion(tmp_path):
+    # Interlock.watch is how the command line shows a running program's steps: it must
+    # see what the journal gets, in order, and a watcher that raises changes nothing
+    g = Interlock.open(ARM, "sim", journal=Journal(tmp_path / "j.jsonl"), time_scale=50.0)
+    try:
+        g.enable()
+        seen: list[str] = []
+
+        def broken(kind, **fields):
+            raise RuntimeError("a watcher's bug")
+
+        g.watch(broken)
+        unwatch = g.watch(lambda kind, **fields: seen.append(kind))
+        result = g.execute(g.propose_jog("x", 2.0), YES())
+        assert result.completed, result
+        unwatch()
+        assert g.execute(g.propose_jog("x", -2.0), YES()).completed
+        assert g.wait_journal(5.0)
+        written = [e["kind"] for e in read_journal(g.journal_path)]
+        assert seen and "segment" in seen
+        # the first motion's records, exactly as journaled; none after the unwatch
+        assert written[written.index(seen[0]):][:len(seen)] == seen
+        assert len(written) > len(seen) + 2
+    finally:
+        g.close()

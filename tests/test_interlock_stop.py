@@ -382,6 +382,7 @@ def test_stop_during_homing_with_the_journal_failing_reaches_the_controller(tmp_
             assert not worker.is_alive()
             result = box["r"]
             assert result.outcome == "stopped" and not result.completed, result
+            assert gate.wait_stopped(5.0)    # the STOP's answer is awaited in its own thread
             assert any(line.split()[1:2] == ["STOP"] for line in emu.received)
             assert not gate.state().homed    # it did not home to the end
         finally:

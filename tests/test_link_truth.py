@@ -185,7 +185,45 @@ def test_ten_plans_right_after_a_stop_start_from_where_the_arm_stopped(rig):
     assert max(starts) <= DEG(1 / 40) + 1e-12, [math.degrees(s) for s in starts]
 
 
-def test_between_the_stops_ok_and_a_fresh_state_nothing_is_planned(rig):
+def test_stop_returns_before_a_silent_controller_answers(rig):
+    # issue 11 §1: nothing stands before the stop, not even the controller's reply. The
+    # proxy holds every line to the host from the STOP on until the test lets it go; a
+    # stop() that waited for its OK would sit out its retries (4 x 0.3 s) and then declare
+    # the link lost, while the test could not let go before stop() returned.
+    release = threading.Event()
+    seen_stop = threading.Event()
+
+    def hold_after_stop(direction, line):
+        body = body_of(line)
+        if direction == TO_CTRL and " STOP" in body:
+            seen_stop.set()
+        elif direction == TO_HOST and seen_stop.is_set():
+            release.wait(10.0)
+        return PASS
+
+    r = rig(hold_after_stop)
+    t, box = _start_long_move(r.gate)
+    time.sleep(0.3)
+    r.gate.stop()
+    stops_at_return = sum(" STOP" in body_of(ln) for ln, _ in r.link.lines(TO_CTRL))
+    stop_on_wire = seen_stop.wait(2.0)
+    release.set()
+    # returned after the first STOP line, before any re-send for want of an answer
+    assert stop_on_wire and stops_at_return <= 1
+    t.join(3.0)
+    assert box["r"].outcome == "stopped"
+    # the answer arrives after the return: the link holds and the pose is fresh again
+    assert wait_for(lambda: r.gate.state().fresh, 3.0)
+    assert r.gate.state().latched is None
+    assert r.emu.mode != "MOVING"
+
+
+def test_between_the_stops_ok_and_a_fresh_state_nothing_is_planned(rig, monkeypatch):
+    # a plan waits up to STOP_SETTLE_S for the stop's fresh position; with no wait it
+    # must be refused as stale, never made from the old position
+    import benchjog.drivers.interlock as gate_module
+
+    monkeypatch.setattr(gate_module, "STOP_SETTLE_S", 0.0)
     hold = threading.Event()
 
     def slow_state(direction, line):

@@ -428,9 +428,10 @@ def test_stop_returns_with_the_position_where_the_arm_came_to_rest(make_rig):
     ready(d)
     d.queue(Segment((DEG(90.0), DEG(90.0)), 2.0))
     time.sleep(0.3)
-    d.stop()
+    d.stop()                      # returns once STOP is written; its OK comes after
+    assert d.wait_stopped(3.0)
     st = d.state()
-    # stop() asked for a STATE after the STOP's OK: fresh, and where the emulator stands
+    # the stop asked for a STATE after the STOP's OK: fresh, and where the emulator stands
     assert st.fresh
     from benchjog.drivers.calibration import counts_from_joints
     assert counts_from_joints(ARM, st.joints) == r.counts()

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import sys
 import tomllib
-from importlib import resources
 from pathlib import Path
 
 from benchjog.kinematics.armspec import ArmSpecError, arm_from_mapping
@@ -40,8 +39,21 @@ def builtin_arm(name: str = DEFAULT_ARM) -> Arm:
     """One of the demo arms shipped with the package."""
     if name not in BUILTIN_ARMS:
         raise ArmSpecError(name, "arm", f"no built-in arm of that name ({', '.join(BUILTIN_ARMS)})")
-    text = resources.files("benchjog.console.cell.arms").joinpath(f"{name}.toml").read_text(encoding="utf-8")
-    return _arm_from_text(text, name)
+    return _arm_from_text(builtin_arm_text(name), name)
+
+
+def builtin_arm_text(name: str) -> str:
+    """The TOML text of a built-in arm: read beside this module when the package is
+    installed as files (the usual case, and no importlib.resources to load: it pulls in
+    zipfile, tempfile and shutil), through importlib.resources otherwise (a zip)."""
+    here = Path(__file__).with_name("arms") / f"{name}.toml"
+    try:
+        return here.read_text(encoding="utf-8")
+    except OSError:
+        from importlib import resources
+
+        return (resources.files("benchjog.console.cell.arms").joinpath(f"{name}.toml")
+                .read_text(encoding="utf-8"))
 
 
 def load_arm(spec: str | Path | None) -> Arm:

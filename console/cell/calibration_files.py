@@ -32,7 +32,6 @@ from __future__ import annotations
 import difflib
 import math
 import tomllib
-from importlib import resources
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -283,5 +282,6 @@ def arm_text(arm: Arm) -> str:
     """The arm file's text: the file it came from, or the built-in arm's."""
     if Path(arm.source).is_file():
         return read_text(arm.source)
-    return resources.files("benchjog.console.cell.arms").joinpath(f"{arm.source}.toml").read_text(
-        encoding="utf-8")
+    from benchjog.console.cell.armfile import builtin_arm_text
+
+    return builtin_arm_text(arm.source)

@@ -211,11 +211,55 @@ class PointBook:
 
     def to_text(self, keep: str | None = None) -> str:
         """The file's text; ``keep``: the text as read, whose comments and formatting
-        stay (safe_files.toml_text_keeping)."""
-        return toml_text_keeping(keep, self.to_mapping(), header=(
-            "benchjog points file: taught points and user frames (mm and degrees).\n"
-            "Written by benchjog; edit with care: motion goes to cartesian, in frame,\n"
-            "on branch."))
+        stay (safe_files.toml_text_keeping).
+
+        Fast roads to the same file: the plain writer's text is made by
+        :meth:`_plain_text` (byte for byte ``toml_text(self.to_mapping(), header)``),
+        and when the text as read holds nothing a person wrote (every table of it that
+        is not written again unchanged is itself exactly as the plain writer writes it:
+        no comment, no spacing or number spelling of their own) there is nothing to keep,
+        so the plain text is the file (:func:`_nothing_to_keep`)."""
+        fresh = self._plain_text()
+        if not keep or not keep.strip() or _nothing_to_keep(keep, fresh):
+            return fresh
+        return toml_text_keeping(keep, self.to_mapping(), header=_HEADER)
+
+    def _plain_text(self) -> str:
+        """``safe_files.toml_text(self.to_mapping(), header)``, the points written by one
+        f-string each (the frames, few, by the general writer)."""
+        import re
+
+        from benchjog.console.cell.safe_files import toml_string, toml_text
+
+        plain = re.compile(_PLAIN_STRING).match
+        quoted: dict[str, str] = {}   # frames, branches and times repeat from point to point
+
+        def text(value: str) -> str:
+            found = quoted.get(value)
+            if found is None:
+                found = quoted[value] = f'"{value}"' if plain(value) else toml_string(value)
+            return found
+
+        head = PointBook(self.arm, frames=self.frames, frame_taught=self.frame_taught)
+        out = [toml_text(head.to_mapping(), _HEADER)]
+        shown = [j.to_display for j in self.arm.joints]
+        scara = self.arm.is_scara
+        branches = {b: text(b.value) for b in Branch}
+        for p in self.points:   # each number as _r and toml_value write it
+            cart = _display_cartesian(self.arm, p.cartesian) if scara else p.cartesian
+            c = ", ".join([repr(0.0 if (r := round(v, 6)) == 0 else r) for v in cart])
+            j = ", ".join([repr(0.0 if (r := round(f(v), 6)) == 0 else r)
+                           for f, v in zip(shown, p.joints)])
+            if "n" in c or "n" in j:   # inf or nan: no finite float's repr has an n
+                raise ValueError(f"cannot write a non-finite number ([{c}], [{j}])")  # as toml_value
+            block = (f"\n[[points]]\nname = {text(p.name)}\nframe = {text(p.frame)}\n"
+                     f"cartesian = [{c}]\njoints = [{j}]\nbranch = {branches[p.branch]}\n")
+            if p.taught:
+                block += f"taught = {text(p.taught)}\n"
+            if p.note:
+                block += f"note = {text(p.note)}\n"
+            out.append(block)
+        return "".join(out)
 
     def to_mapping(self) -> dict[str, Any]:
         doc: dict[str, Any] = {"file": {"kind": FILE_KIND, "version": FILE_VERSION,
@@ -414,6 +458,45 @@ class PointBook:
 def _r(value: float, digits: int = 6) -> float:
     value = round(value, digits)
     return 0.0 if value == 0 else value
+
+
+# --- saving fast (PointBook.to_text) ----------------------------------------------------
+
+_HEADER = ("benchjog points file: taught points and user frames (mm and degrees).\n"
+           "Written by benchjog; edit with care: motion goes to cartesian, in frame,\n"
+           "on branch.")
+_PLAIN_STRING = r'[^"\\\x00-\x1f\x7f]*\Z'   # nothing safe_files.toml_string escapes
+_CHANGED_TABLES_MAX = 64   # past this many changed tables, the careful road (tomlkit)
+
+
+def _nothing_to_keep(original: str, fresh: str) -> bool:
+    """True when ``original`` (a points file as read) holds nothing of a person's own
+    that a save should keep: each of its tables (the blocks between blank lines) is
+    either written again exactly as it is, or is itself exactly the plain writer's text
+    for its own contents (tomllib reads it; safe_files.toml_text writes it back the
+    same). A comment, a blank line, spacing, key order or a number spelled otherwise
+    than the plain writer does makes it False, and so does a file with more than
+    _CHANGED_TABLES_MAX changed tables (then tomlkit's keeping road decides)."""
+    import tomllib
+
+    from benchjog.console.cell.safe_files import toml_text
+
+    if "\r" in original or not original.endswith("\n"):
+        return False
+    written = set(fresh[:-1].split("\n\n"))
+    changed = [block for block in original[:-1].split("\n\n") if block not in written]
+    if len(changed) > _CHANGED_TABLES_MAX:
+        return False
+    for block in changed:
+        if not block.startswith("["):
+            return False   # a comment block of a person's own (the header is never changed)
+        try:
+            data = tomllib.loads(block)
+        except tomllib.TOMLDecodeError:
+            return False
+        if toml_text(data) != block + "\n":
+            return False
+    return True
 
 
 def _display_cartesian(arm: Arm, values: Sequence[float]) -> list[float]:

@@ -21,7 +21,8 @@ from benchjog.console.cell.points import PointBook, PointError
 from benchjog.console.cell.programs import DwellStep, MoveStep, OutputStep, Program
 from benchjog.drivers.interlock import Confirmer, Dwell, Interlock, Proposal, RunResult, SetOutput
 from benchjog.kinematics.model import Arm
-from benchjog.kinematics.planner import PlanSummary, plan_move
+from benchjog.kinematics.planner import (JOINT, PlanSummary, Prefetched, joint_move_end,
+                                         joint_move_knots, plan_move, prefetch_joint_moves)
 from benchjog.kinematics.solve import TargetError
 
 
@@ -112,13 +113,64 @@ def _tolerance(step: MoveStep) -> dict[str, float]:
     return {} if step.tolerance_mm is None else {"tolerance_mm": step.tolerance_mm}
 
 
+LOOK_AHEAD_MOVES = 64   # joint moves planned ahead together (their keep-out sweeps in one pass)
+
+
+def _look_ahead(arm: Arm, steps: list[Any], index: int, here: tuple[float, ...],
+                book: PointBook, plans: dict[tuple, Any],
+                ) -> tuple[Prefetched, int, dict[int, tuple[float, ...]]]:
+    """Guess where the arm is before each coming step, assuming every joint move that
+    has a usable solution is planned and leaves the arm at its goal, and compute the
+    keep-out sweeps and tool-speed bounds of up to LOOK_AHEAD_MOVES such moves at once.
+    Stops before a line move (its end is known only once it is planned).
+
+    Returns the results, the index of the first step not looked at, and the guessed
+    start pose of each step looked at. A guess is only a guess: a step planned from
+    elsewhere (a refused move, a bad point) finds nothing ahead and is planned as
+    usual, and the caller looks ahead again from where the arm really is."""
+    moves: list[Any] = []
+    found = Prefetched()
+    expected: dict[int, tuple[float, ...]] = {}
+    pos = here
+    i = index
+    while i < len(steps) and len(moves) < LOOK_AHEAD_MOVES:
+        step = steps[i]
+        expected[i] = pos
+        if isinstance(step, MoveStep):
+            if step.path != JOINT:
+                break
+            try:
+                point, target = _step_target(book, step)
+                key = (pos, target, point.branch, step.path, step.speed_pct, step.tolerance_mm)
+                done = plans.get(key)
+                if done is not None:
+                    if done.ok and done.segments:
+                        pos = done.segments[-1].joints
+                else:
+                    knots = joint_move_knots(arm, pos, target, branch=point.branch, ahead=found)
+                    if knots is not None:
+                        moves.append(knots)
+                        pos = joint_move_end(knots) or pos
+            except (PointError, TargetError):
+                pass  # planned (and reported) in the step itself
+        i += 1
+    return prefetch_joint_moves(arm, moves, found), i, expected
+
+
 def plan_program(arm: Arm, program: Program, book: PointBook,
                  start_joints: tuple[float, ...] | None = None,
-                 gate: Interlock | None = None, start_words: str | None = None) -> ProgramReport:
+                 gate: Interlock | None = None, start_words: str | None = None, *,
+                 ahead: bool = True) -> ProgramReport:
     """Plan every step (no motion). ``start_joints`` default: the arm's home pose.
     ``gate``: the interlock whose static checks to apply; a simulated one is opened
     (and closed) when none is given. ``start_words`` names the start pose in the
-    report (default: "the home pose", or "the given joints")."""
+    report (default: "the home pose", or "the given joints").
+
+    ``ahead`` (default): joint moves are planned with their keep-out sweeps and
+    tool-speed bounds computed ahead, many at once (:func:`_look_ahead`), and the gate's
+    checks of all steps run together (``Interlock.check_each``); the report is the same
+    as with ``ahead=False``, which plans and checks one step after the other
+    (tests/test_check_batch.py compares the two)."""
     start = tuple(start_joints) if start_joints is not None else arm.home_joints
     if start_words is None:
         start_words = "the home pose" if start_joints is None else "the given joints"
@@ -129,10 +181,19 @@ def plan_program(arm: Arm, program: Program, book: PointBook,
     # the plan and the gate's verdict on it are the same, so each is made once.
     plans: dict[tuple, Any] = {}
     verdicts: dict[tuple, list[str]] = {}
+    steps = list(program.steps)
+    prefetched: Prefetched | None = None
+    ahead_until = 0
+    expected: dict[int, tuple[float, ...]] = {}
+    checks: list[tuple[StepReport, tuple]] = []   # (report, verdict key), checked at the end
     try:
         here = start
         reports: list[StepReport] = []
-        for number, step in enumerate(program.steps, 1):
+        for number, step in enumerate(steps, 1):
+            index = number - 1
+            if ahead and (index >= ahead_until or expected.get(index) != here):
+                prefetched, ahead_until, expected = _look_ahead(arm, steps, index, here, book,
+                                                                plans)
             report = StepReport(number, step)
             reports.append(report)
             if isinstance(step, MoveStep):
@@ -148,7 +209,7 @@ def plan_program(arm: Arm, program: Program, book: PointBook,
                     if plan is None:
                         plan = plans[key] = plan_move(arm, here, target, branch=point.branch,
                                                       path=step.path, speed_pct=step.speed_pct,
-                                                      **_tolerance(step))
+                                                      ahead=prefetched, **_tolerance(step))
                 except TargetError as exc:
                     report.problems.append(str(exc))
                     continue
@@ -167,8 +228,18 @@ def plan_program(arm: Arm, program: Program, book: PointBook,
                 # a plan's own problems come back among them
                 begin = report.summary.start_joints if report.summary is not None else None
                 key = (id(report.action), begin)
-                if isinstance(report.action, (Dwell, SetOutput)) or key not in verdicts:
-                    verdicts[key] = list(gate.check_actions([report.action], begin).reasons)
+                if not ahead:
+                    if isinstance(report.action, (Dwell, SetOutput)) or key not in verdicts:
+                        verdicts[key] = list(gate.check_actions([report.action], begin).reasons)
+                    report.problems += [r for r in verdicts[key] if r not in report.problems]
+                else:
+                    checks.append((report, key))
+        if checks:
+            # every action's own verdict, the keep-out work of all plans in one pass
+            todo = {key: (r.action, key[1]) for r, key in checks}
+            for key, verdict in zip(todo, gate.check_each(list(todo.values()))):
+                verdicts[key] = list(verdict.reasons)
+            for report, key in checks:
                 report.problems += [r for r in verdicts[key] if r not in report.problems]
         return ProgramReport(arm, program, start, here, reports, list(book.warnings),
                              start_words=start_words)

@@ -14,6 +14,7 @@ from __future__ import annotations
 import argparse
 import importlib
 
+from benchjog.console.cli.commands import summary
 from benchjog.console.cli.common import (add_arm_option, add_journal_option, add_port_options,
                                          add_verbosity_options)
 from benchjog.kinematics.options import TOUCH_SPEED_PCT
@@ -41,7 +42,7 @@ def _wants_json(args: argparse.Namespace) -> bool:
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    cal = sub.add_parser("calibrate", help="calibrate the arm file from touched fixture-plate holes",
+    cal = sub.add_parser("calibrate", help=summary("calibrate"),
                          description="Kinematic calibration: touch holes of a fixture plate with "
                          "the tool tip, fit link lengths, joint zeros and the base pose, write "
                          "the corrected arm file. See docs/calibration.md.")
@@ -93,7 +94,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     _json_options(apply)
     apply.set_defaults(func=_step("cmd_apply"))
 
-    com = sub.add_parser("commission", help="commission one axis: direction, counts, zero, limits, homing",
+    com = sub.add_parser("commission", help=summary("commission"),
                          description="A guided walk-through for one axis, every motion through the "
                          "interlock at reduced speed after confirmation: confirm the direction, "
                          "measure counts per unit, set the zero at a reference mark, find the safe "

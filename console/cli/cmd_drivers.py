@@ -6,12 +6,13 @@ import argparse
 import sys
 
 from benchjog.console import exit_codes
+from benchjog.console.cli.commands import summary
 from benchjog.console.cli.common import add_output_options, note, print_json
 
 
 def register(subparsers) -> None:
     emulate = subparsers.add_parser(
-        "emulate", help="run the controller emulator on a pseudo-terminal",
+        "emulate", help=summary("emulate"),
         description=("Start the controller emulator on a pseudo-terminal, print its device "
                      "path on the first line of stdout and serve until interrupted. It starts "
                      "as a controller does after power-up: drives off, not homed. While it "
@@ -42,7 +43,7 @@ def register(subparsers) -> None:
     emulate.set_defaults(func=cmd_emulate)
 
     ports = subparsers.add_parser(
-        "ports", help="list serial ports; probe one for servos on a bus",
+        "ports", help=summary("ports"),
         description=("List the serial ports with USB VID:PID, serial number, description and "
                      "a guess of what is behind each. With --probe PORT: send one HELLO and "
                      "report a benchjog controller that answers; with --probe PORT --ids LIST: "

@@ -5,18 +5,16 @@ from __future__ import annotations
 
 import argparse
 import sys
-from pathlib import Path
 
 from benchjog.console import exit_codes
-from benchjog.console.cell.armfile import load_arm
-from benchjog.console.cell.safe_files import write_atomic
+from benchjog.console.cli.commands import summary
 from benchjog.console.cli.common import add_output_options, print_json
 from benchjog.console.errors import Refused, UsageError
 
 
 def register(sub: argparse._SubParsersAction) -> None:
     fw = sub.add_parser(
-        "firmware", help="write the controller firmware and a config for an arm to a folder",
+        "firmware", help=summary("firmware"),
         description=("Write the reference controller firmware (MicroPython) and a config.py "
                      "filled in from the arm file to a folder, ready to copy onto the board. "
                      "Pins in config.py are placeholders: check every one against the wiring. "
@@ -35,6 +33,10 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def cmd_firmware(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from benchjog.console.cell.armfile import load_arm
+    from benchjog.console.cell.safe_files import write_atomic
     from benchjog.drivers.firmware.configgen import board_files, config_for_arm
 
     arm = load_arm(args.arm)

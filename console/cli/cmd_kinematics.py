@@ -8,6 +8,7 @@ import math
 TYPE_CHECKING = False  # typing.TYPE_CHECKING without importing typing at start-up
 
 from benchjog.console import exit_codes
+from benchjog.console.cli.commands import summary
 from benchjog.console.cli.common import (add_arm_option, add_output_options, add_target_arguments,
                                          add_value_arguments, parse_number,
                                          print_json, round_out, text_console)
@@ -20,7 +21,7 @@ if TYPE_CHECKING:  # numpy (through the solver) and rich load only in the comman
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    solve = sub.add_parser("solve", help="every IK branch for a tool target",
+    solve = sub.add_parser("solve", help=summary("solve"),
                            description="Every IK branch for a tool target (mm, degrees), with "
                            "limit, reach and singularity findings.")
     add_target_arguments(solve)
@@ -28,7 +29,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     add_output_options(solve)
     solve.set_defaults(func=cmd_solve)
 
-    fk = sub.add_parser("fk", help="the tool pose for joint values",
+    fk = sub.add_parser("fk", help=summary("fk"),
                         description="The tool pose for joint values (degrees, mm for the quill).")
     add_value_arguments(fk, "values", (
         ("J1", "first joint (degrees)"), ("J2", "second joint (degrees)"),

@@ -10,6 +10,7 @@ import sys
 
 TYPE_CHECKING = False  # typing.TYPE_CHECKING without importing typing at start-up
 
+from benchjog.console.cli.commands import summary
 from benchjog.console.cli.common import (add_arm_option, add_journal_option, add_output_options,
                                          add_target_arguments,
                                          add_port_options, drives_off, exit_code_of, note, open_gate,
@@ -17,21 +18,20 @@ from benchjog.console.cli.common import (add_arm_option, add_journal_option, add
                                          MIN_SPEED_PCT)
 from benchjog.console.cli.cmd_kinematics import target_from_args
 from benchjog.console.errors import UsageError
-from benchjog.kinematics.model import Branch
-from benchjog.kinematics.options import (JOINT, LINE, LINE_TOLERANCE_MAX_MM, LINE_TOLERANCE_MIN_MM,
-                                         LINE_TOLERANCE_MM)
+from benchjog.kinematics.options import (BRANCHES, JOINT, LINE, LINE_TOLERANCE_MAX_MM,
+                                         LINE_TOLERANCE_MIN_MM, LINE_TOLERANCE_MM)
 
 if TYPE_CHECKING:  # the planner and the interlock (numpy) load only when a command runs
     from benchjog.drivers.interlock import RunResult
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    move = sub.add_parser("move", help="plan one move, print it, ask, move",
+    move = sub.add_parser("move", help=summary("move"),
                           description="Plan one move from the current position, print the plan, "
                           "ask for confirmation, execute it (the simulated arm when no port). "
                           "It never homes: on an unhomed controller it refuses.")
     add_target_arguments(move)
-    move.add_argument("--branch", choices=[b.value for b in Branch],
+    move.add_argument("--branch", choices=BRANCHES,
                       help="IK branch (default: the usable one nearest the current joints)")
     move.add_argument("--path", choices=[JOINT, LINE], default=JOINT,
                       help="joint-interpolated (default) or a straight tool line")
@@ -47,7 +47,7 @@ def register(sub: argparse._SubParsersAction) -> None:
                        "(docs/cli-json.md)")
     move.set_defaults(func=cmd_move)
 
-    home = sub.add_parser("home", help="run the controller's homing cycle after confirmation",
+    home = sub.add_parser("home", help=summary("home"),
                           description="Run the controller's homing cycle after confirmation "
                           "(the simulated arm when no port; it starts homed).")
     add_arm_option(home)
@@ -75,6 +75,8 @@ def cmd_move(args: argparse.Namespace) -> int:
 
     arm = load_arm(args.arm)
     target = target_from_args(arm, args.coords)
+    from benchjog.kinematics.model import Branch
+
     branch = Branch(args.branch) if args.branch else None
     options = {}
     if args.tolerance is not None:

@@ -18,6 +18,7 @@ import math
 import sys
 
 from benchjog.console import exit_codes
+from benchjog.console.cli.commands import summary
 from benchjog.console.cli.common import (add_arm_option, add_journal_option, add_output_options,
                                          add_port_options, drives_off, exit_code_of, open_gate,
                                          print_json, quiet, result_json, run_stoppable)
@@ -26,7 +27,7 @@ from benchjog.console.cli.common import (add_arm_option, add_journal_option, add
 # --- the commands----------------------------------------------------------------
 
 def register(sub: argparse._SubParsersAction) -> None:
-    check = sub.add_parser("check", help="dry-run a program of taught points and report",
+    check = sub.add_parser("check", help=summary("check"),
                            description="Plan every step of a program (from --start, the arm's "
                            "home pose unless given) and report durations, warnings, closest "
                            "approaches, branch changes and problems. Nothing moves. A run "
@@ -42,7 +43,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     add_output_options(check)
     check.set_defaults(func=cmd_check)
 
-    run = sub.add_parser("run", help="run a program for real after one confirmation",
+    run = sub.add_parser("run", help=summary("run"),
                          description="Plan the whole program from the current position, print "
                          "the plan, ask once, run it (the simulated arm when no port). A step "
                          "that fails halts the program and is named.")
@@ -133,8 +134,9 @@ class StepReporter:
     step on stdout; on a terminal (stdout and stderr both, not ``--quiet``) a rich
     progress bar on stderr; into a pipe, nothing extra.
 
-    It learns of each step from the interlock's journal records (a ``segment`` or an
-    ``output`` record names its step), so it watches and never drives the arm."""
+    It learns of each step from the records the interlock journals (``Interlock.watch``:
+    a ``segment`` or an ``output`` record names its step), so it watches and never drives
+    the arm."""
 
     def __init__(self, args: argparse.Namespace, program_steps) -> None:
         self.steps = list(program_steps)
@@ -146,15 +148,11 @@ class StepReporter:
         self._task = None
 
     def watch(self, gate) -> None:
-        journal = gate._journal  # noqa: SLF001 - read-only tap on what the gate records
-        record = journal.record
-
-        def tapped(kind: str, **fields):
-            record(kind, **fields)
+        def seen(kind: str, **fields) -> None:
             if kind in ("segment", "output") and fields.get("step") is not None:
                 self.reached(int(fields["step"]))
 
-        journal.record = tapped
+        gate.watch(seen)
 
     def reached(self, index: int) -> None:
         """Steps up to ``index`` (0-based) have started (a dwell records nothing, so

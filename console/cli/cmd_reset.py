@@ -13,6 +13,7 @@ import argparse
 import sys
 
 from benchjog.console import exit_codes
+from benchjog.console.cli.commands import summary
 from benchjog.console.cli.common import (add_arm_option, add_journal_option, add_output_options,
                                          add_port_options, note, print_json)
 from benchjog.console.errors import UsageError
@@ -20,7 +21,7 @@ from benchjog.console.errors import UsageError
 
 def register(sub: argparse._SubParsersAction) -> None:
     reset = sub.add_parser(
-        "reset", help="clear a latched fault or a released e-stop, after confirmation",
+        "reset", help=summary("reset"),
         description="Clear a controller's latched fault, or its e-stop latch once the button "
         "is released, after confirmation (y or yes). It never switches the drives on and "
         "never moves. A hardware e-stop comes first: find out why the arm stopped before "

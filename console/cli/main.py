@@ -1,7 +1,10 @@
 """The ``benchjog`` command line: argparse subcommands, one ``cmd_<name>`` each.
 
 Subcommands live in ``console/cli/cmd_*.py`` modules; each has ``register(subparsers)``
-that adds its parsers with ``set_defaults(func=cmd_<name>)``. ``main`` turns the known
+that adds its parsers with ``set_defaults(func=cmd_<name>)``; console/cli/commands.py
+lists them with their one-line summaries. Only the modules of the commands named on
+the command line are imported: the others get a parser with their summary alone, so
+``benchjog --help`` and ``benchjog solve ...`` import one module or none. ``main`` turns the known
 errors into one stderr line and an exit code (console/exit_codes.py), never a traceback.
 
 Start-up: registering the parsers imports only argparse-level code; a command's heavy
@@ -22,15 +25,6 @@ if TYPE_CHECKING:
     import argparse
     from collections.abc import Sequence
 
-COMMAND_MODULES = (
-    "benchjog.console.cli.cmd_kinematics",
-    "benchjog.console.cli.cmd_drivers",
-    "benchjog.console.cli.cmd_motion",
-    "benchjog.console.cli.cmd_program",
-    "benchjog.console.cli.cmd_firmware",
-    "benchjog.console.cli.cmd_calibrate",
-    "benchjog.console.cli.cmd_reset",
-)
 
 
 def _parser_class():
@@ -50,9 +44,13 @@ def version() -> str:
     return __version__
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(argv: Sequence[str] | None = None) -> argparse.ArgumentParser:
+    """The whole parser, or (``argv`` given) one whose subcommands other than those
+    named in ``argv`` carry only their summary: the overview and every usage message
+    read the same, and nothing else is needed to parse ``argv``."""
     import importlib
 
+    from benchjog.console.cli.commands import COMMANDS
     from benchjog.console.cli.common import add_verbosity_options, baud_rate
 
     _Parser = _parser_class()
@@ -83,9 +81,29 @@ def build_parser() -> argparse.ArgumentParser:
                         help="console: the program file to build (default: the cell's "
                         "program.toml)")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
-    for name in COMMAND_MODULES:
-        importlib.import_module(name).register(sub)
+    wanted = _modules_named(argv)
+    registered: set[str] = set()
+    for name, module, words in COMMANDS:
+        if module in registered:
+            continue                      # it registered all of its commands, in order
+        if wanted is None or module in wanted:
+            importlib.import_module(module).register(sub)
+            registered.add(module)
+        else:
+            sub.add_parser(name, help=words, add_help=False)
     return parser
+
+
+def _modules_named(argv: Sequence[str] | None) -> set[str] | None:
+    """The command modules ``argv`` needs, or None for all of them (no ``argv``, or a
+    completion script, which describes every command). A word that merely looks like
+    a command (an option's value) only costs one module more."""
+    if argv is None or any(len(a) > 4 and "--print-completion".startswith(a) for a in argv):
+        return None
+    from benchjog.console.cli.commands import COMMANDS
+
+    words = set(argv)
+    return {module for name, module, _ in COMMANDS if name in words}
 
 
 COMPLETION_SHELLS = ("bash", "zsh", "tcsh")
@@ -97,7 +115,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         if argv == ["--version"]:  # the quickest answer: no parser to build
             print(f"benchjog {version()}")
             return exit_codes.OK
-        parser = build_parser()
+        parser = build_parser(argv)
         try:
             args = parser.parse_args(argv)
         except SystemExit as done:  # --help, --version, a usage error

@@ -1,6 +1,8 @@
 """Benchmark (run by hand): big cells. Loading and saving a points file of 1,000 and
 10,000 points against the bare floor (tomllib.loads of the same text; writing the same
-text to a file), and `check` of a 1,000-step program. Ratios are measured in one run.
+text to a file), saving 10,000 points against an f-string loop that writes the same
+text, and `check` of a 1,000-step program against the step-by-step dry run and the bare
+IK solve. Ratios are measured in one run.
 
     python tests/perf/bench_cells.py
 """
@@ -46,6 +48,82 @@ def grid_book(arm, n: int, path: Path) -> PointBook:
     return book
 
 
+def floor_text(book: PointBook, header_lines: list[str]) -> str:
+    """The points file's text by a plain f-string loop (planar arm, names and notes
+    that need no escaping): the floor a save is measured against."""
+    j1, j2 = book.arm.joints
+
+    def r6(v: float) -> float:
+        v = round(v, 6)
+        return 0.0 if v == 0 else v
+    out = header_lines + ["", "[file]", 'kind = "benchjog-points"', "version = 1",
+                          f'arm = "{book.arm.name}"']
+    for p in book.points:
+        x, y = p.cartesian
+        out.append(f'\n[[points]]\nname = "{p.name}"\nframe = "{p.frame}"\n'
+                   f"cartesian = [{r6(x)!r}, {r6(y)!r}]\n"
+                   f"joints = [{r6(j1.to_display(p.joints[0]))!r}, "
+                   f"{r6(j2.to_display(p.joints[1]))!r}]\n"
+                   f'branch = "{p.branch.value}"\ntaught = "{p.taught}"')
+    return "\n".join(out) + "\n"
+
+
+def bench_save(arm, tmp: Path) -> None:
+    """Saving 10,000 points: a new book, the same file loaded and saved again after one
+    change (as benchjog wrote it: nothing of a person's to keep), and a file with a
+    comment of a person's (tomlkit's keeping road), against the f-string floor."""
+    n = 10000
+    path = tmp / "save-10000.toml"
+    book = grid_book(arm, n, path)
+    _, t_new = best_of(lambda: book.save() if not path.unlink(missing_ok=True) else None)
+    text = path.read_text()
+    header = [line for line in text.split("\n\n")[0].splitlines()]
+    floor_path = tmp / "floor-10000.toml"
+
+    def floor() -> None:
+        with open(floor_path, "w", encoding="utf-8") as f:
+            f.write(floor_text(book, header))
+    _, t_floor = best_of(floor)
+    same = floor_path.read_text() == text
+    loaded = PointBook.load(path, arm)
+    loaded.path = path
+    loaded.set_note("p00001", "moved 2 mm")
+    _, t_again = best_of(loaded.save)
+    print(f"{n:6d} points saved: new book {t_new:.3f} s, loaded and saved after one change "
+          f"{t_again:.3f} s, vs an f-string loop writing the same text {t_floor:.3f} s "
+          f"(same text: {same}; ratios {t_new / t_floor:.2f} and {t_again / t_floor:.2f})")
+    path.write_text(text.replace("[[points]]", "# re-taught in March\n[[points]]", 1))
+    hand = PointBook.load(path, arm)
+    hand.path = path
+    hand.set_note("p00001", "moved 2 mm")
+    _, t_hand = best_of(hand.save, runs=1)
+    print(f"{n:6d} points saved, the file with one comment of a person's (kept by tomlkit): "
+          f"{t_hand:.3f} s (ratio {t_hand / t_floor:.0f})")
+
+
+def bench_check(arm, book: PointBook, names: list[str]) -> None:
+    from benchjog.kinematics.solve import joints_from_tool as ik
+    steps = [MoveStep(names[(i * 37) % len(names)]) for i in range(1000)]
+    program = Program("big", "points-1000.toml", steps)
+    report, t_check = best_of(lambda: plan_program(arm, program, book))
+    old, t_old = best_of(lambda: plan_program(arm, program, book, ahead=False), runs=1)
+    targets = [book.base_target(book.point(s.point)) for s in steps]
+    _, t_ik = best_of(lambda: [ik(arm, t) for t in targets])
+    same = [(s.problems, s.warnings, s.summary) for s in report.steps] == \
+        [(s.problems, s.warnings, s.summary) for s in old.steps]
+    print(f"check of a {len(steps)}-step program, every move different: {t_check:.3f} s "
+          f"({t_check * 1e3 / len(steps):.2f} ms per move step), ok={report.ok}; "
+          f"step by step (ahead=False) {t_old:.3f} s: {t_old / t_check:.1f}x faster, same "
+          f"report: {same}; {t_check / t_ik:.0f}x the bare IK solve of every target "
+          f"({t_ik * 1e6 / len(steps):.0f} us per target)")
+    cycle = [MoveStep(names[k]) for k in (0, 500, 999, 250, 750)] * 200  # a repeated cycle
+    program = Program("cycle", "points-1000.toml", cycle)
+    report, t_cycle = best_of(lambda: plan_program(arm, program, book))
+    print(f"check of a {len(cycle)}-step program, a 5-move cycle repeated: {t_cycle:.3f} s "
+          f"({t_cycle * 1e3 / len(cycle):.2f} ms per move step; ratio to every-move-different "
+          f"{t_cycle / t_check:.2f}), ok={report.ok}")
+
+
 def main() -> None:
     arm = builtin_arm("planar-bench")
     with tempfile.TemporaryDirectory() as tmp:
@@ -63,19 +141,8 @@ def main() -> None:
                   f"{t_load * 1e6 / n:.0f} us/point; save {t_save:.3f} s vs plain write "
                   f"{t_write:.4f} s (ratio {t_save / t_write:.1f})")
         book = PointBook.load(Path(tmp) / "points-1000.toml", arm)
-        names = book.names
-        steps = [MoveStep(names[(i * 37) % len(names)]) for i in range(1000)]
-        program = Program("big", "points-1000.toml", steps)
-        report, t_check = best_of(lambda: plan_program(arm, program, book))
-        print(f"check of a {len(steps)}-step program, every move different: {t_check:.3f} s "
-              f"({t_check * 1e3 / len(steps):.2f} ms per move step), ok={report.ok}")
-        cycle = [MoveStep(names[k]) for k in (0, 500, 999, 250, 750)] * 200  # a repeated cycle
-        program = Program("cycle", "points-1000.toml", cycle)
-        report, t_cycle = best_of(lambda: plan_program(arm, program, book))
-        print(f"check of a {len(cycle)}-step program, a 5-move cycle repeated: {t_cycle:.3f} s "
-              f"({t_cycle * 1e3 / len(cycle):.2f} ms per move step; ratio to every-move-different "
-              f"{t_cycle / t_check:.2f}), ok={report.ok}")
-
+        bench_check(arm, book, book.names)
+        bench_save(arm, Path(tmp))
 
 if __name__ == "__main__":
     main()
