@@ -370,8 +370,8 @@ def test_progress_counts_the_points_and_can_stop_the_load(tmp_path):
 
 
 async def test_edits_change_only_their_rows_and_show_what_a_full_fill_shows(tmp_path, gate):
-    # teach (a row added), update and rename (rows changed in place), a frame taught
-    # again (its points' joints recomputed), delete (filled again): after each, the
+    # teach (a row added), update, rename, a note (rows changed in place), delete (a
+    # row removed; filled again when it held a column's widest cell): after each, the
     # table holds the book's rows in order, with the column widths a fresh fill gives
     points, program = tmp_path / "points.toml", tmp_path / "program.toml"
     points.write_text(grid_text(300))
@@ -405,6 +405,8 @@ async def test_edits_change_only_their_rows_and_show_what_a_full_fill_shows(tmp_
             lambda: teach.book.set_note("p9", "a note [in brackets]"),
             lambda: teach.book.rename("a-much-longer-name-than-the-others", "short"),
             lambda: teach.book.delete("p3"),
+            lambda: teach.book.set_note("p4", "the longest note of them all, by far"),
+            lambda: teach.book.delete("p4"),      # the widest note goes: the table is filled
         ]
         fills: list[int] = []
         fill = teach._fill_points
@@ -415,7 +417,8 @@ async def test_edits_change_only_their_rows_and_show_what_a_full_fill_shows(tmp_
             await settled()
             rows, widths = shown()
             assert rows == expected()
-            # only a delete fills the table again; the other edits change their rows
+            # only deleting the widest cell of a column fills the table again; the
+            # other edits change, add or remove their rows
             assert fills == ([len(teach.book.points)] if n == len(edits) - 1 else [])
             teach._shown_points = None            # a full fill of the same book
             teach.refresh_all()

@@ -706,12 +706,15 @@ class TeachScreen(DimmedKeyHints, Screen):
     def _patch_points(self, points: list) -> bool:
         """Bring the table to ``points`` by changing a few rows, as an edit needs:
         rows added at the end (teach), rows changed in place (update, rename, a note, a
-        frame taught again). False when it takes more (a delete, a new file): then the
-        table is filled again, which gives the same rows and column widths."""
+        frame taught again), one row removed (delete) when it was not the widest in a
+        column. False when it takes more (a new file): then the table is filled again,
+        which gives the same rows and column widths."""
         shown = self._shown_points
         if shown is None or self._filling is not None:
             return False
         n = len(shown)
+        if len(points) == n - 1:
+            return self._patch_delete(points)
         if len(points) < n:
             return False
         changed = [i for i in range(n) if shown[i] is not points[i]]
@@ -723,6 +726,32 @@ class TeachScreen(DimmedKeyHints, Screen):
                 table.update_cell_at(Coordinate(i, column), value, update_width=True)
         for p in points[n:]:
             table.add_row(*self._point_row(p))
+        self._shown_points = points
+        return True
+
+    def _patch_delete(self, points: list) -> bool:
+        """One point deleted: its row removed, unless one of its cells was the widest of
+        its column (a fill would narrow the column; a removed row leaves it wide)."""
+        shown = self._shown_points
+        gone = next((i for i, p in enumerate(points) if shown[i] is not p), len(points))
+        if not same_items(shown[gone + 1:], points[gone:]):
+            return False
+        table = self.query_one("#points-table", DataTable)
+
+        def width(value: str) -> int:   # the table measures a str cell as its markup renders
+            return Text.from_markup(value).cell_len
+
+        for c, (value, column) in enumerate(zip(self._point_row(shown[gone]),
+                                                table.ordered_columns)):
+            wide = width(value)
+            if wide >= column.content_width and column.label.cell_len < wide and \
+                    not any(width(self._point_row(p)[c]) >= wide for p in points):
+                return False   # the widest cell of its column: a fill narrows the column
+        row_key = table.coordinate_to_cell_key(Coordinate(gone, 0)).row_key
+        row = table.cursor_row
+        table.remove_row(row_key)
+        if table.row_count:
+            table.move_cursor(row=min(row, table.row_count - 1))
         self._shown_points = points
         return True
 
