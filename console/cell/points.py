@@ -36,7 +36,7 @@ from __future__ import annotations
 
 import difflib
 import math
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
 from pathlib import Path
@@ -57,6 +57,10 @@ CONSISTENCY_MM = 0.05  # stored joints and Cartesian values further apart than t
 POINT_KEYS = ("name", "frame", "cartesian", "joints", "branch", "taught", "note")
 MAX_CELL_MM = 1e6  # a kilometre: any bench cell's coordinates are far inside this
 FRAME_KEYS = ("name", "origin", "angle_deg", "z_mm", "taught")
+PROGRESS_EVERY = 256  # points checked between two calls of a load's progress callback
+
+# a load's progress callback: (points checked, points in the file); it may raise to stop
+Progress = Callable[[int, int], None]
 
 
 class PointError(ValueError):
@@ -147,27 +151,29 @@ class PointBook:
     # --- files ---------------------------------------------------------------------
 
     @classmethod
-    def load(cls, path: str | Path, arm: Arm) -> "PointBook":
-        """Read and validate a points file (no lock).
+    def load(cls, path: str | Path, arm: Arm, *, progress: Progress | None = None) -> "PointBook":
+        """Read and validate a points file (no lock). ``progress(done, total)``, when
+        given, is called as the points are checked (see :func:`book_from_mapping`).
 
         Raises:
             FileError: one line naming the file, the key and the problem.
         """
         path = Path(path)
         text = read_text(path)
-        book = book_from_mapping(parse_toml(text, str(path)), arm, str(path))
+        book = book_from_mapping(parse_toml(text, str(path)), arm, str(path), progress=progress)
         book.path = path
         book._as_read = text
         return book
 
     @classmethod
-    def open(cls, path: str | Path, arm: Arm) -> "PointBook":
+    def open(cls, path: str | Path, arm: Arm, *, progress: Progress | None = None) -> "PointBook":
         """The book for editing: takes the file's lock (FileLocked if another console
-        holds it), then reads the file, or starts an empty book when there is none."""
+        holds it), then reads the file, or starts an empty book when there is none.
+        An exception from ``progress`` (a load given up) releases the lock."""
         path = Path(path)
         lock = FileLock(path).acquire()
         try:
-            book = cls.load(path, arm) if path.exists() else cls(arm, path=path)
+            book = cls.load(path, arm, progress=progress) if path.exists() else cls(arm, path=path)
         except BaseException:
             lock.release()
             raise
@@ -579,8 +585,13 @@ class _Reader:
         return value
 
 
-def book_from_mapping(data: Mapping[str, Any], arm: Arm, source: str = "<points>") -> PointBook:
+def book_from_mapping(data: Mapping[str, Any], arm: Arm, source: str = "<points>", *,
+                      progress: Progress | None = None) -> PointBook:
     """Validate a parsed points file into a :class:`PointBook`.
+
+    ``progress(done, total)``, when given, is called with 0 before the first point,
+    after every PROGRESS_EVERY points and with ``total`` after the last; an exception
+    it raises stops the load and is passed on.
 
     Raises:
         FileError: naming the file, the key (``point 'pick': joints``) and the problem.
@@ -625,7 +636,12 @@ def book_from_mapping(data: Mapping[str, Any], arm: Arm, source: str = "<points>
     n_cart = 4 if arm.is_scara else 2
     cart_words = "x, y, z mm, roll deg" if arm.is_scara else "x, y mm"
     joint_words = ", ".join(f"{j.name} {j.unit}" for j in arm.joints)
-    for i, raw in enumerate(r.table_list(data, "points")):
+    raws = r.table_list(data, "points")
+    if progress is not None:
+        progress(0, len(raws))
+    for i, raw in enumerate(raws):
+        if progress is not None and i and not i % PROGRESS_EVERY:
+            progress(i, len(raws))
         where = f"point {i + 1}"
         name = r.text(raw, "name", where)
         where = f"point {name!r}"
@@ -654,6 +670,8 @@ def book_from_mapping(data: Mapping[str, Any], arm: Arm, source: str = "<points>
                             r.timestamp(raw, where), r.text(raw, "note", where, required=False))
         book._append(point)
         book.warnings += _consistency(book, point, source)
+    if progress is not None:
+        progress(len(raws), len(raws))
     return book
 
 

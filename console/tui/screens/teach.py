@@ -10,13 +10,22 @@ Every edit is saved at once (atomically, with a ``.bak`` of the previous version
 points and program files are locked while the screen is open so a second console
 cannot write them. The screen has no text field of its own (names are typed in small
 dialogs), so the stop key always reaches it.
+
+Big files are read off the UI thread (a thread worker) and a big points table is
+filled a slice at a time, so the stop key, escape and help keep working while a book
+of thousands of points opens; the keys that need the files are dimmed ("the points
+file is still loading") until it has, and a point taught from the jog screen meanwhile
+is taught as soon as the book is there.
 """
 
 from __future__ import annotations
 
+import asyncio
 import math
 import os
-from dataclasses import dataclass
+import threading
+import time
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -25,6 +34,7 @@ from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.coordinate import Coordinate
 from textual.message import Message
 from textual.screen import ModalScreen, Screen
 from textual.css.query import NoMatches
@@ -46,6 +56,58 @@ SPEEDS = (100.0, 50.0, 25.0, 10.0)
 # measured pose is taught (deg for revolute joints, mm for the quill)
 FOLLOW_MAX_DEG = 2.0
 FOLLOW_MAX_MM = 2.0
+# files up to this size together are read on the UI thread as the screen opens: some
+# 400 points, about 20 ms of PointBook.load (measured by hand, 250 points in 12 ms),
+# so a small cell shows at once with no "loading" flash; bigger ones are read by a
+# thread worker, with progress shown (tests/perf/bench_teach_load.py)
+INLINE_LOAD_BYTES = 64 * 1024
+# a big points table is filled FILL_CHUNK rows in the first turn of the UI thread's loop,
+# twice as many in each next turn, up to FILL_CHUNK_MAX (every turn costs the table a
+# pass over all its rows: longer slices, fewer passes; shorter, shorter waits for a key)
+FILL_CHUNK = 200
+FILL_CHUNK_MAX = 400
+PROGRESS_EVERY_S = 0.1    # the loading progress is shown at most this often
+
+
+class LoadGivenUp(Exception):
+    """Raised inside a load when the screen has closed or the app is shutting down:
+    nothing more is read, and the lock taken for it is released."""
+
+
+@dataclass
+class OpenedFiles:
+    """What opening the points and program files gave: the book and the program, the
+    program's lock (held, or None when it could not be taken), whether the screen is
+    read only and why, and the status lines in the order they were said. Made without
+    touching a widget (a thread worker may make it); applied on the UI thread."""
+
+    book: PointBook | None = None
+    program: Program | None = None
+    program_lock: FileLock | None = None
+    read_only: bool = False
+    reason: str = ""
+    said: list[tuple[str, bool]] = field(default_factory=list)
+
+    def make_read_only(self, reason: str) -> None:
+        self.read_only = True
+        self.reason = self.reason or reason
+
+    def say(self, words: str, error: bool = True) -> None:
+        self.said.append((words, error))
+
+    def release(self) -> None:
+        """Give up the locks (the screen closed before these were used)."""
+        if self.book is not None:
+            self.book.close()
+        if self.program_lock is not None:
+            self.program_lock.release()
+
+
+def same_items(shown: list | None, now: list) -> bool:
+    """Whether a table shows these very items (points and steps are frozen: an edit
+    puts a new object in the list, so identity tells a change)."""
+    return shown is not None and len(shown) == len(now) and \
+        all(a is b for a, b in zip(shown, now))
 
 
 def one_line(exc: BaseException) -> str:
@@ -274,6 +336,19 @@ class TeachScreen(DimmedKeyHints, Screen):
         self.status_error = False
         self.report_text: list[str] = []
         self.run_clock: RunClock | None = None
+        # opening the files: "idle" (not yet), "loading" (a thread worker reads them),
+        # "ready"; the worker hands its OpenedFiles over under _files_mutex, and
+        # _close_files (unmount, app exit) releases whatever is held at that moment
+        self.load_state = "idle"
+        self.load_progress: tuple[str, int, int] = ("reading", 0, 0)
+        self._files_mutex = threading.Lock()
+        self._files_closed = False
+        self._opened: OpenedFiles | None = None
+        self._status_before_load: tuple[str, bool] = ("", False)
+        self._queued_teaches: list[tuple[tuple[float, ...], str]] = []
+        self._shown_points: list | None = None   # the points the table shows (as objects)
+        self._shown_steps: list | None = None
+        self._filling: tuple[int, int] | None = None  # (rows added, rows) while filling
 
     # --- life cycle ------------------------------------------------------------------
 
@@ -286,7 +361,7 @@ class TeachScreen(DimmedKeyHints, Screen):
             yield PoseSketch(self.arm, id="teach-sketch")
         with Horizontal(id="teach-tables"):
             with Vertical(id="points-box"):
-                yield Label(Text("points", style="bold"))
+                yield Label(Text("points", style="bold"), id="points-title")
                 yield DataTable(id="points-table", cursor_type="row", zebra_stripes=True)
             with Vertical(id="steps-box"):
                 yield Label(Text("program", style="bold"), id="steps-title")
@@ -303,52 +378,231 @@ class TeachScreen(DimmedKeyHints, Screen):
         steps.add_columns("#", "step", "note")
         self._open_files()
         self.set_status(self.status, error=self.status_error)   # set before it was composed
+        self._show_loading()
         self.refresh_all()
 
     def on_unmount(self) -> None:
         self._close_files()
 
     def _open_files(self) -> None:
-        if self.book is not None:
-            return   # opened already (a point taught from the jog screen)
-        try:
-            self.book = PointBook.open(self.points_path, self.arm)
-        except FileError as exc:
-            self.read_only = True
-            self.read_only_reason = one_line(exc)
-            self.set_status(f"read only: {one_line(exc)}", error=True)
+        """Open the points and program files, once (here or from ``teach_here``, the
+        screen perhaps not mounted yet). Small files are read at once; bigger ones by
+        a thread worker, the screen meanwhile showing how far it is."""
+        if self.book is not None or self.load_state != "idle" or self._files_closed:
+            return   # opened already, or being opened (a point taught from the jog screen)
+        if self._files_bytes() <= INLINE_LOAD_BYTES:
+            self.load_state = "ready"
+            self._apply_opened(self._read_files())
+            return
+        self.load_state = "loading"
+        self.load_progress = ("reading", 0, 0)
+        self._status_before_load = (self.status, self.status_error)
+        self.set_status(self._loading_words())
+        self._load_worker(self.app)
+
+    def _files_bytes(self) -> int:
+        total = 0
+        for path in (self.points_path, self.program_path):
             try:
-                self.book = PointBook.load(self.points_path, self.arm) \
-                    if self.points_path.exists() else PointBook(self.arm, path=self.points_path)
-            except FileError as exc2:
-                self.book = PointBook(self.arm, path=self.points_path)
-                self.set_status(f"cannot use the points file: {one_line(exc2)}", error=True)
+                total += path.stat().st_size
+            except OSError:
+                pass   # none yet, or unreadable: the load says so
+        return total
+
+    def _read_files(self, progress=None) -> OpenedFiles:
+        """Take the locks, read and check both files; widgets are not touched (a
+        thread worker runs this). A file another console holds, or a broken one,
+        makes the screen read only with a one-line reason. ``progress(done, total)``
+        follows the points being checked and may raise LoadGivenUp."""
+        out = OpenedFiles()
         try:
-            self.program_lock.acquire()
-        except FileError as exc:
+            try:
+                out.book = PointBook.open(self.points_path, self.arm, progress=progress)
+            except FileError as exc:
+                out.make_read_only(one_line(exc))
+                out.say(f"read only: {one_line(exc)}")
+                try:
+                    out.book = PointBook.load(self.points_path, self.arm, progress=progress) \
+                        if self.points_path.exists() else PointBook(self.arm, path=self.points_path)
+                except FileError as exc2:
+                    out.book = PointBook(self.arm, path=self.points_path)
+                    out.say(f"cannot use the points file: {one_line(exc2)}")
+            if progress is not None:
+                progress(-1, -1)   # the program file next (and a last chance to give up)
+            lock = FileLock(self.program_path)
+            try:
+                out.program_lock = lock.acquire()
+            except FileError as exc:
+                out.make_read_only(one_line(exc))
+                out.say(f"read only: {one_line(exc)}")
+            try:
+                if self.program_path.exists():
+                    out.program = Program.load(self.program_path)
+                    if (out.program.points_path.resolve() != self.points_path.resolve()
+                            and not out.read_only):  # a read-only reason says more; keep it
+                        out.say(f"note: the program uses {out.program.points_path}, "
+                                f"this screen edits {self.points_path}")
+                else:
+                    rel = os.path.relpath(self.points_path.resolve(),
+                                          self.program_path.resolve().parent)
+                    out.program = Program(self.program_path.stem, rel, path=self.program_path,
+                                          arm=self.arm.name)
+            except FileError as exc:
+                out.make_read_only(one_line(exc))
+                out.program = Program(self.program_path.stem, str(self.points_path),
+                                      path=self.program_path)
+                out.say(f"read only: {one_line(exc)}")
+        except BaseException:
+            out.release()
+            raise
+        if out.book.warnings:
+            out.say(out.book.warnings[0])
+        return out
+
+    def _apply_opened(self, out: OpenedFiles) -> None:
+        """Take over what the files gave (UI thread): the book, the program, its lock,
+        read only and why, and the status lines, as they were said."""
+        self.book = out.book
+        self.program = out.program
+        if out.program_lock is not None:
+            self.program_lock = out.program_lock
+        if out.read_only:
             self.read_only = True
-            self.read_only_reason = self.read_only_reason or one_line(exc)
-            self.set_status(f"read only: {one_line(exc)}", error=True)
+            self.read_only_reason = self.read_only_reason or out.reason
+        for words, error in out.said:
+            self.set_status(words, error=error)
+
+    @work(thread=True, group="teach-files", exit_on_error=False)
+    def _load_worker(self, app) -> None:
         try:
-            if self.program_path.exists():
-                self.program = Program.load(self.program_path)
-                if (self.program.points_path.resolve() != self.points_path.resolve()
-                        and not self.read_only):  # a read-only reason says more; keep it
-                    self.set_status(f"note: the program uses {self.program.points_path}, "
-                                    f"this screen edits {self.points_path}", error=True)
-            else:
-                rel = os.path.relpath(self.points_path.resolve(), self.program_path.resolve().parent)
-                self.program = Program(self.program_path.stem, rel, path=self.program_path,
-                                       arm=self.arm.name)
-        except FileError as exc:
-            self.read_only = True
-            self.program = Program(self.program_path.stem, str(self.points_path),
-                                   path=self.program_path)
-            self.set_status(f"read only: {one_line(exc)}", error=True)
-        if self.book and self.book.warnings:
-            self.set_status(self.book.warnings[0], error=True)
+            out = self._read_files(self._progress_reporter(app))
+        except LoadGivenUp:
+            return   # the screen closed; what the load had taken is released
+        except Exception as exc:  # noqa: BLE001 - never a crash: read only, in one line
+            out = OpenedFiles(PointBook(self.arm, path=self.points_path),
+                              Program(self.program_path.stem, str(self.points_path),
+                                      path=self.program_path))
+            out.make_read_only(f"cannot open the files: {one_line(exc)}")
+            out.say(f"read only: cannot open the files: {one_line(exc)}")
+        with self._files_mutex:
+            if self._gone(app):
+                out.release()
+                return
+            self._opened = out
+        if not self._to_ui(app, self._load_finished):
+            with self._files_mutex:   # the app is closing: nobody will take them over
+                out, self._opened = self._opened, None
+            if out is not None:
+                out.release()
+
+    def _gone(self, app) -> bool:
+        """Whether the files are no longer wanted: the screen closed, or the app is
+        shutting down (which does not unmount a teach screen that was never shown,
+        one opened by teaching from the jog screen)."""
+        return self._files_closed or not app.is_running
+
+    def _progress_reporter(self, app):
+        """The load's progress callback (worker thread): gives up once the screen has
+        closed; shows the count on the screen at most every PROGRESS_EVERY_S."""
+        last = [0.0]
+
+        def report(done: int, total: int) -> None:
+            if self._gone(app):
+                raise LoadGivenUp()
+            now = time.monotonic()
+            if done <= 0 or done == total or now - last[0] >= PROGRESS_EVERY_S:
+                last[0] = now
+                phase = "program" if done < 0 else "checking"
+                self._to_ui(app, self._show_load_progress, phase, done, total)
+
+        return report
+
+    @staticmethod
+    def _to_ui(app, callback, *args) -> bool:
+        """Run ``callback`` on the UI thread, later (from a worker thread; the screen
+        may not be mounted, so through the app). False when the app has gone."""
+        try:
+            return bool(app.call_later(callback, *args))
+        except RuntimeError:
+            return False   # the app's loop is closed: the app has exited
+
+    def _show_load_progress(self, phase: str, done: int, total: int) -> None:
+        if self.load_state == "loading":
+            self.load_progress = (phase, done, total)
+            self._show_loading()
+
+    def _load_finished(self) -> None:
+        """The worker's files, taken over on the UI thread; then the points taught from
+        the jog screen while they loaded."""
+        with self._files_mutex:
+            out, self._opened = self._opened, None
+        if out is None or self._files_closed:
+            return
+        self.load_state = "ready"
+        self._show_loading()
+        self._end_wait_words()
+        self._apply_opened(out)
+        queued, self._queued_teaches = self._queued_teaches, []
+        for joints, how in queued:
+            self._teach_queued(joints, how)
+        self.refresh_all()
+
+    def _waiting_words_shown(self) -> bool:
+        """Whether the status line says the files are loading (or a key refused for
+        it), which must not outlast the load."""
+        return self.status == self._loading_words() or "is still loading" in self.status
+
+    def _end_wait_words(self) -> None:
+        """The load (or the table's filling) is over: the status line shows again what
+        it showed before the loading words or a refusal for the load, unless something
+        else (a stop) has been said since."""
+        if self._waiting_words_shown():
+            words, error = self._status_before_load
+            self.set_status(words, error=error)
+
+    def _loading_words(self) -> str:
+        """The status line while the files load (set once: a refusal or a stop shown
+        there is not overwritten; the count is in the points table's title)."""
+        return f"loading the points file {self.points_path} ..."
+
+    def _title_words(self) -> str:
+        """The points table's title: "points", or how far the load is."""
+        if self.load_state == "loading":
+            phase, done, total = self.load_progress
+            if phase == "reading":
+                return f"points: reading {self.points_path.name} ..."
+            if phase == "program":
+                return "points: read; reading the program ..."
+            return f"points: {done:,} of {total:,} checked"
+        if self._filling is not None:
+            return f"points: showing {self._filling[0]:,} of {self._filling[1]:,}"
+        return "points"
+
+    def _show_loading(self) -> None:
+        try:
+            self.query_one("#points-title", Label).update(Text(self._title_words(), style="bold"))
+        except NoMatches:
+            pass   # not composed yet: shown on mount
+
+    def files_wait(self) -> str:
+        """Why the keys that need the files cannot act yet ("" once they can)."""
+        if self.load_state == "loading":
+            return ("the program file is still loading" if self.load_progress[0] == "program"
+                    else "the points file is still loading")
+        if self._filling is not None:
+            return (f"the points file is still loading (showing {self._filling[0]:,} of "
+                    f"{self._filling[1]:,})")
+        return ""
 
     def _close_files(self) -> None:
+        """Release the locks (unmount, app exit): those the screen holds, those of a
+        load that has finished but not been taken over; a load still running gives up
+        and releases its own (the worker checks _files_closed under the mutex)."""
+        with self._files_mutex:
+            self._files_closed = True
+            pending, self._opened = self._opened, None
+        if pending is not None:
+            pending.release()
         if self.book is not None:
             self.book.close()
         self.program_lock.release()
@@ -429,22 +683,120 @@ class TeachScreen(DimmedKeyHints, Screen):
             self.query_one("#teach-files", Static).update(self.files_words())
         except NoMatches:
             return   # not composed (taught from the jog screen): shown when it is
+        points = self.book.points if self.book else []
+        if not same_items(self._shown_points, points):   # a stop or a setting: no refill
+            if not self._patch_points(list(points)):
+                self._fill_points(list(points))
+        steps = self.query_one("#steps-table", DataTable)
+        program_steps = self.program.steps if self.program else []
+        if not same_items(self._shown_steps, program_steps):
+            self._shown_steps = list(program_steps)
+            srow = steps.cursor_row
+            steps.clear()
+            for n, step in enumerate(program_steps, 1):
+                steps.add_row(str(n), step.describe(), step.note)
+            if steps.row_count:
+                steps.move_cursor(row=min(srow, steps.row_count - 1))
+        self.query_one("#teach-report", Static).update("\n".join(self.report_text))
+        self.refresh_bindings()
+
+    def _point_row(self, p) -> tuple:
+        return (p.name, p.frame, self._cart_words(p.cartesian), str(p.branch), p.taught, p.note)
+
+    def _patch_points(self, points: list) -> bool:
+        """Bring the table to ``points`` by changing a few rows, as an edit needs:
+        rows added at the end (teach), rows changed in place (update, rename, a note, a
+        frame taught again), one row removed (delete) when it was not the widest in a
+        column. False when it takes more (a new file): then the table is filled again,
+        which gives the same rows and column widths."""
+        shown = self._shown_points
+        if shown is None or self._filling is not None:
+            return False
+        n = len(shown)
+        if len(points) == n - 1:
+            return self._patch_delete(points)
+        if len(points) < n:
+            return False
+        changed = [i for i in range(n) if shown[i] is not points[i]]
+        if len(changed) + len(points) - n > FILL_CHUNK:
+            return False
         table = self.query_one("#points-table", DataTable)
+        for i in changed:
+            for column, value in enumerate(self._point_row(points[i])):
+                table.update_cell_at(Coordinate(i, column), value, update_width=True)
+        for p in points[n:]:
+            table.add_row(*self._point_row(p))
+        self._shown_points = points
+        return True
+
+    def _patch_delete(self, points: list) -> bool:
+        """One point deleted: its row removed, unless one of its cells was the widest of
+        its column (a fill would narrow the column; a removed row leaves it wide)."""
+        shown = self._shown_points
+        gone = next((i for i, p in enumerate(points) if shown[i] is not p), len(points))
+        if not same_items(shown[gone + 1:], points[gone:]):
+            return False
+        table = self.query_one("#points-table", DataTable)
+
+        def width(value: str) -> int:   # the table measures a str cell as its markup renders
+            return Text.from_markup(value).cell_len
+
+        for c, (value, column) in enumerate(zip(self._point_row(shown[gone]),
+                                                table.ordered_columns)):
+            wide = width(value)
+            if wide >= column.content_width and column.label.cell_len < wide and \
+                    not any(width(self._point_row(p)[c]) >= wide for p in points):
+                return False   # the widest cell of its column: a fill narrows the column
+        row_key = table.coordinate_to_cell_key(Coordinate(gone, 0)).row_key
         row = table.cursor_row
-        table.clear()
-        for p in (self.book.points if self.book else []):
-            table.add_row(p.name, p.frame, self._cart_words(p.cartesian), str(p.branch),
-                          p.taught, p.note, key=p.name)
+        table.remove_row(row_key)
         if table.row_count:
             table.move_cursor(row=min(row, table.row_count - 1))
-        steps = self.query_one("#steps-table", DataTable)
-        srow = steps.cursor_row
-        steps.clear()
-        for n, step in enumerate(self.program.steps if self.program else [], 1):
-            steps.add_row(str(n), step.describe(), step.note)
-        if steps.row_count:
-            steps.move_cursor(row=min(srow, steps.row_count - 1))
-        self.query_one("#teach-report", Static).update("\n".join(self.report_text))
+        self._shown_points = points
+        return True
+
+    def _fill_points(self, points: list) -> None:
+        """Show ``points`` in the table: at once when they are few, else FILL_CHUNK rows
+        per turn of the UI thread's loop (keys are handled in between; the keys that
+        need the table wait, dimmed). The cursor keeps its row."""
+        table = self.query_one("#points-table", DataTable)
+        row = table.cursor_row
+        self._shown_points = points
+        table.clear()
+        if len(points) <= FILL_CHUNK:
+            self._filling = None
+            for p in points:
+                table.add_row(*self._point_row(p))
+            if table.row_count:
+                table.move_cursor(row=min(row, table.row_count - 1))
+            self._show_loading()
+            return
+        self._filling = (0, len(points))
+        self._show_loading()
+        self._fill_worker(points, row)
+
+    @work(exclusive=True, group="teach-fill", exit_on_error=False)
+    async def _fill_worker(self, points: list, row: int) -> None:
+        table = self.query_one("#points-table", DataTable)
+        start, chunk = 0, FILL_CHUNK
+        while start < len(points):
+            if self._shown_points is not points:
+                return   # a newer fill took over
+            for p in points[start:start + chunk]:
+                table.add_row(*self._point_row(p))
+            start += chunk
+            # each slice costs the table a pass over all its rows when it is next drawn:
+            # slices grow (to FILL_CHUNK_MAX) so that a big table takes few passes
+            chunk = min(2 * chunk, FILL_CHUNK_MAX)
+            self._filling = (table.row_count, len(points))
+            self._show_loading()
+            await asyncio.sleep(0.001)   # keys, the stop key first, and the table's measuring
+        if self._shown_points is not points:
+            return
+        self._filling = None
+        table.move_cursor(row=min(row, table.row_count - 1))
+        self._show_loading()
+        self._end_wait_words()
         self.refresh_bindings()
 
     def selected_point(self) -> str | None:
@@ -464,7 +816,12 @@ class TeachScreen(DimmedKeyHints, Screen):
     EDITS = {"teach", "update", "rename", "delete_point", "frame", "add_step", "add_dwell",
              "add_output", "move_step", "delete_step"}
 
+    # keys that need the points and program files (dimmed while they load)
+    NEEDS_FILES = EDITS | {"goto", "check", "run"}
+
     def check_action(self, action: str, parameters: tuple) -> bool | None:
+        if action in self.NEEDS_FILES and self.files_wait():
+            return None
         if action in self.EDITS and (self.read_only or self.busy):
             return None
         if action in ("update", "rename", "delete_point", "goto", "add_step") \
@@ -556,16 +913,38 @@ class TeachScreen(DimmedKeyHints, Screen):
             return f"not taught: read only ({self.read_only_reason})", False
         if self.busy:
             return f"not taught: busy with {self.busy}", False
+        joints, how = self._teach_joints()
+        if joints is None:
+            return self.status, False
+        if self.book is None:   # still loading: the pose is taken now, taught once loaded
+            self._queued_teaches.append((joints, how))
+            return (f"the points file is still loading: the pose here is taught as the next "
+                    f"point once it has loaded", True)
+        return self._teach_next(joints, how)
+
+    def _teach_next(self, joints: tuple[float, ...], how: str) -> tuple[str, bool]:
+        """Teach ``joints`` as the next free ``p<n>`` in the base frame and save."""
         n = len(self.book.points) + 1
         while self.book.has(f"p{n}"):
             n += 1
         name = f"p{n}"
-        joints, how = self._teach_joints()
-        if joints is None:
-            return self.status, False
         self._edit(f"taught {name} at the {how}", lambda: self.book.teach(name, joints) and None,
                    points=True)
         return self.status, self.status.endswith("(saved)")
+
+    def _teach_queued(self, joints: tuple[float, ...], how: str) -> None:
+        """A pose taught from the jog screen while the files loaded: taught now (or
+        refused, read only), the result on the jog screen's message line and events."""
+        if self.read_only:
+            words, ok = f"not taught: read only ({self.read_only_reason})", False
+        else:
+            words, ok = self._teach_next(joints, how)
+        log = getattr(getattr(self.app, "jog_screen", None), "log_event", None)
+        if log is not None:
+            log("teach", words)
+        message = getattr(self.app, "set_message", None)
+        if message is not None:
+            message(words, error=not ok)
 
     def _teach_answered(self, values: dict | None) -> None:
         if not values:
@@ -885,10 +1264,14 @@ class TeachScreen(DimmedKeyHints, Screen):
     # --- help ----------------------------------------------------------------------------
 
     def show_refusal(self, words: str) -> None:
+        if self.files_wait() and not self._waiting_words_shown():
+            self._status_before_load = (self.status, self.status_error)   # shown again after
         self.set_status(words, error=True)
 
     def why_dimmed(self, action: str, parameters: tuple = ()) -> str:
         """Why a teach-screen key is dimmed now, in words."""
+        if action in self.NEEDS_FILES and self.files_wait():
+            return self.files_wait()
         if action in self.EDITS and self.read_only:
             return f"read only: {self.read_only_reason or 'another console holds the files'}"
         if self.busy and action != "pause":
