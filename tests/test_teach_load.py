@@ -447,3 +447,22 @@ async def test_an_unexpected_failure_of_the_load_is_one_line_not_a_crash(cell, g
         assert await until(pilot, lambda: teach.status.startswith("teach: read only: cannot open"))
     for path in (points, program):
         FileLock(path).acquire().release()
+
+
+async def test_quitting_after_teaching_from_the_jog_screen_leaves_no_lock(tmp_path, gate):
+    # a small cell: the jog screen's `a` opens the files at once (the teach screen is
+    # made but never shown, so never unmounted); quitting must still free both locks
+    points, program = tmp_path / "points.toml", tmp_path / "program.toml"
+    points.write_text(grid_text(3))
+    app = make_app(ARM, gate, points_path=points, program_path=program)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await until(pilot, lambda: app.state is not None)
+        await pilot.press("a")
+        assert await until(pilot, lambda: "taught" in app.message)
+        assert isinstance(app.screen, JogScreen)
+        with pytest.raises(FileError, match="locked by another console"):
+            FileLock(points).acquire()
+        await pilot.press("ctrl+q")
+    for path in (points, program):
+        FileLock(path).acquire().release()         # free for the next console
+    assert tomllib.loads(points.read_text())["points"][-1]["name"] == "p4"

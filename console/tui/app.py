@@ -170,6 +170,7 @@ class BenchjogApp(App):
         self._polling = False
         self._readiness: tuple | None = None
         self._has_teach: bool | None = None
+        self._teach_screen = None   # the one teach screen, once made (its locks on quit)
         self.jog_screen = JogScreen(arm)
 
     # -- life cycle --------------------------------------------------------------------
@@ -180,10 +181,16 @@ class BenchjogApp(App):
 
     def on_unmount(self) -> None:
         self.closing = True
-        if self.is_screen_installed("teach"):   # taught from the jog screen only: its locks
-            close = getattr(self.get_screen("teach"), "_close_files", None)
-            if close is not None:
+        # A teach screen used only through the jog screen's `a` was never shown, so it is
+        # never unmounted, and Textual has emptied the installed screens by now: close
+        # its files (their locks) through the reference kept when it was made.
+        screen, self._teach_screen = self._teach_screen, None
+        close = getattr(screen, "_close_files", None)
+        if close is not None:
+            try:
                 close()
+            except Exception:  # noqa: BLE001 - closing down: the locks go with the process
+                pass
 
     # -- state refresh (thread worker, never blocks the UI) ------------------------------
     def _poll_tick(self) -> None:
@@ -598,6 +605,7 @@ class BenchjogApp(App):
                 self.set_message(f"teach screen unavailable: {one_line(exc)}", error=True)
                 return False
             self.install_screen(screen, name="teach")
+            self._teach_screen = screen
         return True
 
     def action_calibrate(self) -> None:
