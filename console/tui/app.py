@@ -211,6 +211,8 @@ class BenchjogApp(App):
 
     def on_state_updated(self, message: StateUpdated) -> None:
         self._polling = False
+        if self.closing or not self.screen_stack:
+            return   # a report that arrives while the app shuts down: no screen to show it
         self.state_error = message.error
         if message.state is not None:
             self.state = message.state
@@ -653,6 +655,10 @@ class BenchjogApp(App):
         if action == "teach":
             return True if (self.has_teach() and self.busy is None) else None
         if action == "commission":
+            # from the jog screen only: the teach and calibration screens have c keys of
+            # their own, and one of theirs that is dimmed must not fall through to this
+            if self.screen is not self.jog_screen:
+                return False
             return True if self.busy is None else None
         return True
 

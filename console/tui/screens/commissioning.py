@@ -207,8 +207,8 @@ class CommissioningScreen(DimmedKeyHints, Screen):
         return "\n".join(lines)
 
     def refresh_view(self) -> None:
-        if not self.is_mounted:
-            return
+        if not self.is_mounted or not self.query("#cm-status"):
+            return   # not composed yet: on_mount draws it
         j = self.joint
         names = "  ".join(f"[{jj.name}]" if i == self.axis else jj.name
                           for i, jj in enumerate(self.arm.joints))
@@ -237,7 +237,8 @@ class CommissioningScreen(DimmedKeyHints, Screen):
                 words += f"; {self.found_value(counts):.3f} {j.unit} as found"
             if not state.enabled:
                 words += "  (drives off: e)"
-        self.query_one("#cm-now", Static).update(words)
+        for now in self.query("#cm-now").results(Static):   # none while still composing
+            now.update(words)
 
     def say(self, words: str, *, error: bool = False) -> None:
         self.status, self.error = words, error
