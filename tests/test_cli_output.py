@@ -98,3 +98,14 @@ def test_completion_script_is_generated_from_the_parser(capsys):
     assert re.search(r"^complete -o \w+ -F _shtab_benchjog benchjog$", script, re.M), script[-300:]
     for command in ("solve", "fk", "move", "home", "check", "run", "emulate", "ports"):
         assert command in script
+
+
+@pytest.mark.parametrize("argv", [["--print-completion", "bash"], ["--print-completion=bash"],
+                                  ["--print-comp", "bash"]])
+def test_the_completion_script_knows_every_commands_options(capsys, argv):
+    # only the named command's module is loaded for a command line (console/cli/main.py);
+    # a completion script describes every command, so it is made from the whole parser
+    assert main(argv) == 0
+    script = capsys.readouterr().out
+    for option in ("--tolerance", "--start", "--probe", "--force"):
+        assert option in script, option

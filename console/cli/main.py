@@ -98,7 +98,8 @@ def _modules_named(argv: Sequence[str] | None) -> set[str] | None:
     """The command modules ``argv`` needs, or None for all of them (no ``argv``, or a
     completion script, which describes every command). A word that merely looks like
     a command (an option's value) only costs one module more."""
-    if argv is None or any(len(a) > 4 and "--print-completion".startswith(a) for a in argv):
+    if argv is None or any(len(a) > 4 and "--print-completion".startswith(a.split("=")[0])
+                           for a in argv):
         return None
     from benchjog.console.cli.commands import COMMANDS
 
