@@ -15,6 +15,7 @@
 from __future__ import annotations
 
 import math
+import re
 import tomllib
 
 import pytest
@@ -69,6 +70,10 @@ def _edits(book: PointBook):
                                       taught="2026-12-02T08:00:00Z")
 
 
+def _hex_lower(text: str) -> str:
+    return re.sub(r"\\u[0-9A-Fa-f]{4}", lambda m: m.group(0).lower(), text)
+
+
 @pytest.mark.parametrize("arm", [PLANAR, SCARA], ids=["planar", "scara"])
 def test_a_file_as_benchjog_wrote_it_saves_as_tomlkit_would(arm, tmp_path):
     path = tmp_path / "points.toml"
@@ -84,7 +89,10 @@ def test_a_file_as_benchjog_wrote_it_saves_as_tomlkit_would(arm, tmp_path):
         if _name in ("rename", "teach"):   # a new table: tomlkit's road spaces it its own way
             assert tomllib.loads(fast) == tomllib.loads(careful)
         else:
-            assert fast == careful, _name
+            # tomlkit's releases differ in the case of a \uXXXX escape's hex digits (0.11
+            # writes \u007F, later ones \u007f): the same TOML string (TOML 1.0, "String")
+            assert tomllib.loads(fast) == tomllib.loads(careful), _name
+            assert _hex_lower(fast) == _hex_lower(careful), _name
 
 
 def test_a_persons_touches_take_the_keeping_road(tmp_path):
