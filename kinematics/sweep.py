@@ -263,7 +263,10 @@ def _first_entry(arm: Arm, knots: np.ndarray, found: Contact) -> Contact:
     """Locate where the path first enters a zone on the piece of ``found`` (a pose
     found inside, not necessarily the first): poses from the piece's start to
     ``found.tau`` spaced so that no point moves more than CONTACT_SCAN_MM between them
-    (at most CONTACT_SCAN_MAX poses), the first one inside."""
+    (at most CONTACT_SCAN_MAX poses), the first one inside. A contact at the start
+    of its piece (a path of one pose, or one that starts inside) is the entry itself."""
+    if found.tau <= 0.0 or found.segment + 1 >= len(knots):
+        return found
     qa, qb = knots[found.segment], knots[found.segment + 1]
     dq = qb - qa
     rate = float(max(lever_mm(arm, dq), z_step_mm(arm, dq)))

@@ -75,3 +75,23 @@ def test_a_tool_inside_a_zone_is_found_with_no_clearance():
     result = joints_from_tool(arm, (-250.0, 0.0))
     assert result.solutions and all(not s.usable for s in result.solutions)
     assert all(any("parts-tray" in p for p in s.problems) for s in result.solutions)
+
+
+def test_a_path_of_one_pose_inside_a_zone_is_a_contact_at_that_pose():
+    # The demo tray spans x -300..-200, |y| <= 70 (the arm file); the tool at (-250, 0)
+    # is inside it (and the link to it within the 12 mm clearance). A path of that one
+    # pose is a contact at its start, as the same pose held (two equal knots) is; a pose
+    # clear of every zone is no contact.
+    import numpy as np
+
+    from benchjog.kinematics.solve import joints_from_tool
+    from benchjog.kinematics.sweep import sweep_zones
+
+    arm = builtin_arm("planar-bench")
+    q = np.array(joints_from_tool(arm, (-250.0, 0.0)).solutions[0].joints)
+    assert zones.zone_problems(arm, tuple(q))            # the gate's words: inside
+    one, held = sweep_zones(arm, q[None, :]), sweep_zones(arm, np.array([q, q]))
+    assert one.contact is not None and (one.contact.segment, one.contact.tau) == (0, 0.0)
+    assert one.contact.zone == held.contact.zone == "parts-tray"
+    clear = np.array(joints_from_tool(arm, (150.0, 200.0)).solutions[0].joints)
+    assert sweep_zones(arm, clear[None, :]).contact is None
