@@ -1,7 +1,7 @@
 """The firmware core runs on MicroPython itself: the same scripted protocol exchanges
 run through drivers/firmware/core.py under MicroPython's WebAssembly port (the npm
 package ``@micropython/micropython-webassembly-pyscript``, run by node) and under
-CPython, and the two transcripts must be the same line for line, and right. So do the
+CPython, and the two logs must be the same line for line, and right. So do the
 board's own files (main.py's loop with a wrapping microsecond clock, the servo and
 step/direction layers on recorded pins, a config written by ``benchjog firmware``).
 
@@ -100,10 +100,10 @@ EXPECTED = {
 }
 
 
-def _strip(transcript: list[str]) -> list[str]:
+def _strip(log: list[str]) -> list[str]:
     """Each sent line's CRC checked with the host's parser, then dropped for reading."""
     out = []
-    for entry in transcript:
+    for entry in log:
         t, rest = entry.split(" ", 1)
         if rest.startswith("@ "):
             out.append(entry)
@@ -129,7 +129,7 @@ def _node_and_package() -> str:
 
 
 @pytest.fixture(scope="module")
-def micropython_transcripts(tmp_path_factory):
+def micropython_logs(tmp_path_factory):
     node = _node_and_package()
     scripts = tmp_path_factory.mktemp("mpy") / "scripts.json"
     scripts.write_text(json.dumps(SCRIPTS))
@@ -156,13 +156,13 @@ def micropython_transcripts(tmp_path_factory):
 
 
 @pytest.mark.parametrize("name", sorted(SCRIPTS))
-def test_cpython_transcript_is_right(name):
+def test_cpython_log_is_right(name):
     assert _strip(exchange.run(core, SCRIPTS[name])) == EXPECTED[name]
 
 
 @pytest.mark.parametrize("name", sorted(SCRIPTS))
-def test_micropython_runs_the_same_exchange(micropython_transcripts, name):
-    on_mpy = micropython_transcripts[name]
+def test_micropython_runs_the_same_exchange(micropython_logs, name):
+    on_mpy = micropython_logs[name]
     assert on_mpy == exchange.run(core, SCRIPTS[name])      # byte for byte, CRCs included
     assert _strip(on_mpy) == EXPECTED[name]
 
@@ -204,7 +204,7 @@ def _board_folder(tmp_path) -> Path:
     return folder
 
 
-def _board_transcript(lines: list[str]) -> list[str]:
+def _board_log(lines: list[str]) -> list[str]:
     """The board run without the heartbeat replies, CRCs checked and dropped."""
     out = []
     for entry in lines:
@@ -242,4 +242,4 @@ def test_the_board_files_run_the_same_on_micropython(tmp_path):
         for name in flat:
             sys.modules.pop(name, None)
     assert on_mpy == on_cpython
-    assert _board_transcript(on_mpy) == BOARD_EXPECTED
+    assert _board_log(on_mpy) == BOARD_EXPECTED

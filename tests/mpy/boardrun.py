@@ -2,7 +2,7 @@
 config.py) run against recorded pins, a scripted host and a clock whose microsecond
 ticks wrap, as MicroPython's do. Plain Python for MicroPython and CPython alike.
 
-``run(config, core, hw_io, main)`` returns a transcript: what the host received, and
+``run(config, core, hw_io, main)`` returns a log: what the host received, and
 the pins' state at a few moments.
 """
 

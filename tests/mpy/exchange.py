@@ -1,11 +1,11 @@
 """A scripted protocol exchange with the controller core: plain Python that runs on
-MicroPython and on CPython alike, so both transcripts can be compared line by line.
+MicroPython and on CPython alike, so both logs can be compared line by line.
 
 ``run(core, script)`` takes a dict ``{"settings": {...}, "steps": [...]}``; each step is
 ``[kind, t_us, arg]``: ``line`` (a host body, framed here), ``raw`` (bytes as latin-1
 text, sent as they are), ``tick``, ``estop`` (input 1/0), ``limit`` (axis or 0),
 ``home`` (axis 0-based whose home switch closes at or below count ``arg[1]``), ``fault``
-([code, axis]). It returns the transcript: every line the controller sent as
+([code, axis]). It returns the log: every line the controller sent as
 ``"<t_us> <line>"``, and after every ``tick`` ``"<t_us> @ <c1>,<c2>,..."`` (the
 setpoints the hardware got).
 """
