@@ -14,6 +14,7 @@ The interlock is not a safety-rated function: keep clear of the arm while it mov
 from __future__ import annotations
 
 import io
+from collections.abc import Callable
 from pathlib import Path
 
 from rich.text import Text
@@ -95,6 +96,36 @@ class WriteFileScreen(ModalScreen[bool]):
 
     def action_answer(self, yes: bool) -> None:
         self.dismiss(bool(yes))
+
+
+def arm_file_out(arm: Arm, suffix: str) -> Path:
+    """Where a changed arm file is written: the arm's own file, or (a built-in arm)
+    ``<name>-<suffix>.toml`` in the working directory."""
+    if Path(arm.source).is_file():
+        return Path(arm.source)
+    return Path(f"{arm.name}-{suffix}.toml")
+
+
+def offer_arm_file(screen, path: Path, new: str, title: str, diff: str,
+                   say: Callable[[str, bool], None], on_written=None) -> None:
+    """Show ``diff`` in the write dialog; on yes write ``new`` to ``path`` (the old file
+    kept as .bak). What happened is one line through ``say(words, is_error)``;
+    ``on_written(path)`` after a write."""
+
+    def answered(yes: bool | None) -> None:
+        if not yes:
+            say("nothing written", False)
+            return
+        try:
+            cf.write_arm_file(path, new)
+        except Exception as exc:  # noqa: BLE001 - one line on the screen
+            say(f"not written: {one_line(exc)}", True)
+            return
+        if on_written is not None:
+            on_written(path)
+        say(f"wrote {path} (the old one kept as .bak); restart the console on it and home", False)
+
+    screen.app.push_screen(WriteFileScreen(title, diff), answered)
 
 
 class CalibrationScreen(Screen):
@@ -243,9 +274,7 @@ class CalibrationScreen(Screen):
         self.say("fitted: w writes the corrected arm file")
 
     def corrected_path(self) -> Path:
-        if Path(self.arm.source).is_file():
-            return Path(self.arm.source)
-        return Path(f"{self.arm.name}-calibrated.toml")
+        return arm_file_out(self.arm, "calibrated")
 
     def action_write(self) -> None:
         if self.result is None:
@@ -260,18 +289,8 @@ class CalibrationScreen(Screen):
             self.say(f"not written: {one_line(exc)}")
             return
 
-        def answered(yes: bool | None) -> None:
-            if not yes:
-                self.say("nothing written")
-                return
-            try:
-                cf.write_arm_file(path, new)
-            except Exception as exc:  # noqa: BLE001
-                self.say(f"not written: {one_line(exc)}")
-                return
-            self.say(f"wrote {path} (the old one kept as .bak); restart the console on it and home")
-
-        self.app.push_screen(WriteFileScreen(f"Write {path}?", cf.diff_text(old, new, path.name)), answered)
+        offer_arm_file(self, path, new, f"Write {path}?", cf.diff_text(old, new, path.name),
+                       lambda words, _error: self.say(words))
 
     def action_back(self) -> None:
         self.app.pop_screen()

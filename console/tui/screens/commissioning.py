@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from rich.text import Text
-from textual import events, work
+from textual import work
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.message import Message
@@ -31,8 +31,9 @@ from textual.widgets import Input, Static
 
 from benchjog.console.cell import calibration_files as cf
 from benchjog.console.cell import commissioning as cm
-from benchjog.console.tui.screens.commission import WriteFileScreen, one_line
+from benchjog.console.tui.screens.commission import arm_file_out, offer_arm_file, one_line
 from benchjog.console.tui.widgets.keys import DimmedKeyHints, KeyFooter, TooSmall
+from benchjog.console.tui.widgets.target_input import FieldInput
 from benchjog.drivers.calibration import counts_from_joint
 from benchjog.kinematics.model import Arm
 from benchjog.kinematics.options import TOUCH_SPEED_PCT
@@ -61,22 +62,9 @@ class AxisWalk:
     notes: dict[int, str] = field(default_factory=dict)   # stage -> what it found, in words
 
 
-class NumberInput(Input):
+class NumberInput(FieldInput):
     """The typed answers. Space stops the arm (a number has no spaces); escape hands the
     keys back to the screen."""
-
-    async def _on_key(self, event: events.Key) -> None:
-        if event.key == "space":
-            event.stop()
-            event.prevent_default()
-            self.app.action_stop()
-            return
-        if event.key == "escape":
-            event.stop()
-            event.prevent_default()
-            self.screen.set_focus(None)
-            return
-        await super()._on_key(event)
 
 
 class CommissioningScreen(DimmedKeyHints, Screen):
@@ -441,9 +429,7 @@ class CommissioningScreen(DimmedKeyHints, Screen):
 
     # -- writing -----------------------------------------------------------------------
     def out_path(self) -> Path:
-        if Path(self.arm.source).is_file():
-            return Path(self.arm.source)
-        return Path(f"{self.arm.name}-commissioned.toml")
+        return arm_file_out(self.arm, "commissioned")
 
     def action_write(self) -> None:
         w, j = self.walk, self.joint
@@ -465,17 +451,9 @@ class CommissioningScreen(DimmedKeyHints, Screen):
                      "nothing to write")
             return
 
-        def answered(yes: bool | None) -> None:
-            if not yes:
-                self.say("nothing written")
-                return
-            try:
-                cf.write_arm_file(path, new)
-            except Exception as exc:  # noqa: BLE001
-                self.say(f"not written: {one_line(exc)}", error=True)
-                return
-            self.written = path
-            self.say(f"wrote {path} (the old one kept as .bak); restart the console on it and home")
+        def written(where: Path) -> None:
+            self.written = where
 
-        self.app.push_screen(WriteFileScreen(f"Write {path}? {cm.findings_line(j, w.found, self.margin)}",
-                                             cf.diff_text(old, new, path.name, "commissioned")), answered)
+        offer_arm_file(self, path, new, f"Write {path}? {cm.findings_line(j, w.found, self.margin)}",
+                       cf.diff_text(old, new, path.name, "commissioned"),
+                       lambda words, error: self.say(words, error=error), written)

@@ -50,7 +50,28 @@ def target_from_text(arm: Arm, text: str) -> tuple[float, ...]:
     return target_from_display(arm, values)
 
 
-class TargetInput(Input):
+class FieldInput(Input):
+    """A typed field of the console: escape hands the keys back to the screen, and
+    space stops the arm whenever ``space_stops()`` says so (then it types no space)."""
+
+    def space_stops(self) -> bool:
+        return True
+
+    async def _on_key(self, event: events.Key) -> None:
+        if event.key == "space" and self.space_stops():
+            event.stop()
+            event.prevent_default()
+            self.app.action_stop()
+            return
+        if event.key == "escape":
+            event.stop()
+            event.prevent_default()
+            self.screen.set_focus(None)
+            return
+        await super()._on_key(event)
+
+
+class TargetInput(FieldInput):
     """Enter parses the text: :class:`TargetChosen` or :class:`Rejected` (one line).
     Escape hands the keys back to the screen. While a motion runs, space stops it
     (the console's stop key works even here)."""
@@ -85,15 +106,5 @@ class TargetInput(Input):
         self.post_message(self.TargetChosen(target, self.value.strip()))
         self.screen.set_focus(None)
 
-    async def _on_key(self, event: events.Key) -> None:
-        if event.key == "space" and getattr(self.app, "motion_active", False):
-            event.stop()
-            event.prevent_default()
-            self.app.action_stop()
-            return
-        if event.key == "escape":
-            event.stop()
-            event.prevent_default()
-            self.screen.set_focus(None)
-            return
-        await super()._on_key(event)
+    def space_stops(self) -> bool:
+        return bool(getattr(self.app, "motion_active", False))
