@@ -428,20 +428,28 @@ class BenchjogApp(App):
             return MotionDone(request, "home", result.outcome, result.detail)
         if request.kind == "jog":
             return self._run_jog(request)
-        else:
-            proposal = gate.propose_move(request.target, branch=request.branch, path=request.path,
-                                         speed_pct=self.speed_pct)
+        proposal = gate.propose_move(request.target, branch=request.branch, path=request.path,
+                                     speed_pct=self.speed_pct)
+        return self._carry_out(request, proposal, gate.execute)
+
+    def _carry_out(self, request: MotionRequest, proposal, execute, *,
+                   session_end: str | None = None, jog_session: bool = False) -> MotionDone:
+        """Runs in the worker thread: the proposal refused with its reasons, or run by
+        ``execute(proposal, confirmer)`` (the console's confirmation box); the planner's
+        warnings and the plan's end pose go with the result. ``jog_session``: say whether
+        the interlock's jog session is still on afterwards."""
         warnings = tuple(w for plan in proposal.plans
                          for w in getattr(plan.summary, "warnings", ()) or ())
         if not proposal.ok:
             return MotionDone(request, proposal.request, "refused",
                               "refused: " + "; ".join(proposal.verdict.reasons),
-                              proposal.verdict.reasons, warnings=warnings)
+                              proposal.verdict.reasons, warnings=warnings, session_end=session_end)
         ends = [p.segments[-1].joints for p in proposal.plans if p.segments]
-        result = gate.execute(proposal, self.confirmer)
+        result = execute(proposal, self.confirmer)
         return MotionDone(request, proposal.request, result.outcome, result.detail,
                           end_joints=tuple(ends[-1]) if ends and result.completed else None,
-                          warnings=warnings)
+                          warnings=warnings, session_end=session_end,
+                          session=jog_session and self.interlock.jog_session() is not None)
 
     def _run_jog(self, request: MotionRequest) -> MotionDone:
         """Runs in the worker thread. Inside the interlock's jog session the step runs
@@ -468,18 +476,8 @@ class BenchjogApp(App):
         except SessionError as exc:
             return MotionDone(request, words, "refused", f"refused: {exc}",
                               session_end=step.ended)
-        warnings = tuple(w for plan in proposal.plans
-                         for w in getattr(plan.summary, "warnings", ()) or ())
-        if not proposal.ok:
-            return MotionDone(request, proposal.request, "refused",
-                              "refused: " + "; ".join(proposal.verdict.reasons),
-                              proposal.verdict.reasons, warnings=warnings, session_end=step.ended)
-        ends = [p.segments[-1].joints for p in proposal.plans if p.segments]
-        result = gate.execute_jog_session(proposal, self.confirmer)
-        return MotionDone(request, proposal.request, result.outcome, result.detail,
-                          end_joints=tuple(ends[-1]) if ends and result.completed else None,
-                          warnings=warnings, session=gate.jog_session() is not None,
-                          session_end=step.ended)
+        return self._carry_out(request, proposal, gate.execute_jog_session,
+                               session_end=step.ended, jog_session=True)
 
     def session_view(self):
         """The interlock's active jog session (read-only), or None."""
