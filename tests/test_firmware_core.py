@@ -10,7 +10,9 @@ emulator, under tests/test_serial_driver.py and tests/test_emulator_cli.py.
 from __future__ import annotations
 
 import binascii
+import importlib.util
 from fractions import Fraction
+from pathlib import Path
 
 import pytest
 from hypothesis import given, settings
@@ -21,49 +23,36 @@ from benchjog.drivers.firmware import core
 from benchjog.drivers.firmware.hw_servo import pulse_ns_from_counts
 from benchjog.drivers.firmware.hw_stepdir import StepCounter
 
+# the scripted hardware of the MicroPython exchanges (plain Python, no package)
+_spec = importlib.util.spec_from_file_location(
+    "exchange", Path(__file__).resolve().parent / "mpy" / "exchange.py")
+exchange = importlib.util.module_from_spec(_spec)
+_spec.loader.exec_module(exchange)
+
 FUZZ = settings(max_examples=150, deadline=None)
 RANGE = 100000
 TICK_US = 1000
 
 
-class Hw:
-    """A scripted hardware layer: inputs set by the test, setpoints recorded."""
+class Hw(exchange.ScriptedHardware):
+    """A scripted hardware layer (the one the MicroPython exchanges use, tests/mpy/):
+    inputs set by the test, setpoints recorded; with ``steps_per_tick`` a step counter
+    per axis follows the setpoints and reports a following error."""
 
     def __init__(self, n, steps_per_tick=None):
-        self.on = False
-        self.counts = [0] * n
+        super().__init__(n)
         self.history = []
-        self.outputs = 0
-        self.estop = False
-        self.limit = 0
-        self.home_below = [None] * n
         self.steppers = [StepCounter(steps_per_tick) for _ in range(n)] if steps_per_tick else None
 
-    def enable(self, on):
-        self.on = on
-
     def write_counts(self, counts):
-        self.counts = list(counts)
+        super().write_counts(counts)
         self.history.append(list(counts))
         if self.steppers and self.on:
             for s, c in zip(self.steppers, counts):
                 s.plan(c)
 
-    def write_outputs(self, bits):
-        self.outputs = bits
-
-    def estop_active(self):
-        return self.estop
-
-    def limit_active(self):
-        return self.limit
-
-    def home_active(self, i):
-        at = self.home_below[i]
-        return at is not None and self.counts[i] <= at
-
     def reference(self, i, counts):
-        self.counts[i] = counts
+        super().reference(i, counts)
         if self.steppers:
             self.steppers[i].at = counts
 
