@@ -34,14 +34,14 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from benchjog.kinematics.accuracy import (TASK_COND_WARN, Accuracy, accuracy_at,  # noqa: F401 (re-exported)
+                                          condition_number, steps_per_count_mm, task_conditioning)
 from benchjog.kinematics.dh import tool_transform
 from benchjog.kinematics.model import Arm, Branch
-from benchjog.kinematics.solve import jacobian as joint_jacobian
 from benchjog.kinematics.solve import joints_from_tool
 
 RANK_TOL = 1e-7        # a scaled Jacobian column whose share of rank is below this is not separable
 COND_WARN = 100.0      # warn above this condition number of the scaled Jacobian (a choice made here)
-TASK_COND_WARN = 10.0  # joint-to-tool Jacobian: "ill-conditioned" above this (a choice made here)
 STEP_MM = 1e-5         # central-difference step for mm parameters
 STEP_RAD = 1e-7        # and for angles
 
@@ -233,16 +233,6 @@ def noise_amplification_o4(singular_values: Sequence[float]) -> float:
     if s.size == 0 or s.max() <= 0:
         return 0.0
     return float(s.min() ** 2 / s.max())
-
-
-def condition_number(singular_values: Sequence[float]) -> float:
-    """s_max / s_min (infinite when s_min is 0).
-
-    >>> condition_number([4.0, 1.0])
-    4.0
-    """
-    s = np.asarray(singular_values, dtype=float)
-    return float(s.max() / s.min()) if s.min() > 0 else math.inf
 
 
 def inseparable(jac_scaled: np.ndarray, keys: Sequence[str]) -> list[tuple[str, list[str]]]:
@@ -682,56 +672,8 @@ def plan_touches(arm: Arm, candidates: Sequence[Candidate], count: int,
 
 
 # -- accuracy at a target ------------------------------------------------------------------
-
-def position_jacobian_mm(arm: Arm, joints: Sequence[float]) -> np.ndarray:
-    """d(tool position)/d(joint values): rows x, y (SCARA also z), mm per rad or per mm."""
-    full = joint_jacobian(arm, joints)
-    return full[:3] if arm.is_scara else full[:2]
-
-
-def steps_per_count_mm(arm: Arm, joints: Sequence[float]) -> list[float]:
-    """How far the tool point moves for one encoder count of each joint at this pose
-    (mm): the Jacobian's column length times the joint step per count.
-
-    >>> from benchjog.console.cell.armfile import builtin_arm
-    >>> arm = builtin_arm("planar-bench")   # 40 counts/deg on both joints
-    >>> [round(v, 5) for v in steps_per_count_mm(arm, (0.0, math.pi / 2))]  # |(-160, 220)|, 160 mm/rad
-    [0.1187, 0.06981]
-    """
-    jac = position_jacobian_mm(arm, joints)
-    out = []
-    for i, j in enumerate(arm.joints):
-        if i >= jac.shape[1]:
-            break
-        per_count = j.from_display(1.0 / j.counts_per_unit)
-        out.append(float(np.linalg.norm(jac[:, i])) * per_count)
-    return out
-
-
-def task_conditioning(arm: Arm, joints: Sequence[float]) -> tuple[float, str | None]:
-    """The condition number of the x-y part of the joint-to-tool Jacobian, and words
-    when it exceeds :data:`TASK_COND_WARN` (near the stretched or folded pose, where one
-    direction of tool motion takes large joint motion and counts are coarse).
-
-    >>> from benchjog.console.cell.armfile import builtin_arm
-    >>> arm = builtin_arm("planar-bench")
-    >>> round(task_conditioning(arm, (0.0, math.pi / 2))[0], 3)   # J = [[-160, -160], [220, 0]]
-    2.416
-    >>> task_conditioning(arm, (0.0, math.radians(3.0)))[1]
-    'ill-conditioned: the elbow is 3.0 deg from stretched (Jacobian condition number 92)'
-    """
-    jxy = position_jacobian_mm(arm, joints)[:2, :2]
-    s = np.linalg.svd(jxy, compute_uv=False)
-    cond = condition_number(s)
-    if cond <= TASK_COND_WARN:
-        return cond, None
-    t2 = joints[1] + arm.joints[1].offset_rad
-    near = abs(math.remainder(t2, 2 * math.pi))
-    kind, dist = ("stretched", near) if near < math.pi / 2 else ("folded", math.pi - near)
-    shown = "infinite" if math.isinf(cond) else f"{cond:.0f}"
-    return cond, (f"ill-conditioned: the elbow is {math.degrees(dist):.1f} deg from {kind} "
-                  f"(Jacobian condition number {shown})")
-
+# (the step per count and the conditioning live in accuracy.py, numpy-free; here the part
+# that needs the identification model)
 
 def arm_param_keys(arm: Arm) -> list[str]:
     """The parameters of the arm itself (links and zeros), not the base."""
@@ -765,31 +707,3 @@ def position_sigma_mm(arm: Arm, joints: Sequence[float], keys: Sequence[str],
     jp = identification_jacobian(arm, params, nominal_vector(arm), np.array([joints]))[:, idx]
     m = jp @ cov @ jp.T
     return float(math.sqrt(max(np.linalg.eigvalsh(m).max(), 0.0)))
-
-
-@dataclass(frozen=True)
-class Accuracy:
-    """What a pose promises: the tool step per encoder count of each joint (mm), the
-    1-sigma position error from a calibration's covariance (mm; None without one), the
-    task Jacobian's condition number and words when it is ill-conditioned."""
-
-    step_per_count_mm: tuple[float, ...]
-    position_sigma_mm: float | None
-    condition_number: float
-    conditioning: str | None
-
-
-def accuracy_at(arm: Arm, joints: Sequence[float], keys: Sequence[str] | None = None,
-                covariance_display: np.ndarray | None = None) -> Accuracy:
-    """:class:`Accuracy` at a pose (joint values rad, mm).
-
-    >>> from benchjog.console.cell.armfile import builtin_arm
-    >>> acc = accuracy_at(builtin_arm("planar-bench"), (0.0, math.pi / 2))
-    >>> [round(v, 4) for v in acc.step_per_count_mm], acc.position_sigma_mm, acc.conditioning
-    ([0.1187, 0.0698], None, None)
-    """
-    cond, words = task_conditioning(arm, joints)
-    sigma = None
-    if keys is not None and covariance_display is not None:
-        sigma = position_sigma_mm(arm, joints, keys, np.asarray(covariance_display, dtype=float))
-    return Accuracy(tuple(steps_per_count_mm(arm, joints)), sigma, cond, words)

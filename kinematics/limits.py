@@ -1,13 +1,18 @@
-"""Angle wrapping and joint-limit findings. Units: radians and mm."""
+"""Angle wrapping and joint-limit findings. Units: radians and mm.
+
+The scalar functions need no numpy (``benchjog fk``/``solve`` start without it); the
+``*_array`` ones import it when called."""
 
 from __future__ import annotations
 
 import math
 from collections.abc import Sequence
 
-import numpy as np
-
 from benchjog.kinematics.model import Arm, Joint
+
+TYPE_CHECKING = False  # typing.TYPE_CHECKING without importing typing
+if TYPE_CHECKING:
+    import numpy as np
 
 TWO_PI = 2.0 * math.pi
 LIMIT_TOL = 1e-9  # rad or mm: a value this close to a limit counts as on it
@@ -56,6 +61,8 @@ def _wrap_pi_into(a: np.ndarray, mask: np.ndarray) -> np.ndarray:
     two exact +-2 pi steps then fix a rounded tie. Wider angles go through ``fmod``
     (exact, but slower) first.
     """
+    import numpy as np
+
     if not (a.size and float(a.max()) < 4.9 * math.pi and float(a.min()) > -4.9 * math.pi):
         a = np.fmod(a, TWO_PI)  # exact; NaN stays NaN
     base = np.multiply(a, 1.0 / TWO_PI)
@@ -74,9 +81,12 @@ def wrap_pi_array(angle_rad: np.ndarray) -> np.ndarray:
 
     Exact, like math.remainder: see :func:`_wrap_pi_into`.
 
+    >>> import numpy as np
     >>> np.degrees(wrap_pi_array(np.radians([270.0, -180.0, 540.0, 10.0]))).round(9).tolist()
     [-90.0, 180.0, 180.0, 10.0]
     """
+    import numpy as np
+
     a = np.asarray(angle_rad, dtype=np.float64)
     return _wrap_pi_into(a, np.empty(a.shape, dtype=bool))
 
@@ -88,10 +98,13 @@ def wrap_into_limits_array(angle_rad: np.ndarray, lo: float, hi: float) -> np.nd
     [lo, hi], the k nearest 0 is clip(0, k_lo, k_hi); when k_lo > k_hi there is none
     and k = 0.
 
+    >>> import numpy as np
     >>> np.degrees(wrap_into_limits_array(np.radians([-170.0, 170.0]), 0.0,
     ...                                   math.radians(200.0))).round(9).tolist()
     [190.0, 170.0]
     """
+    import numpy as np
+
     a = np.asarray(angle_rad, dtype=np.float64)
     mask = np.empty(a.shape, dtype=bool)
     base = _wrap_pi_into(a, mask)

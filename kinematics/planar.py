@@ -2,13 +2,18 @@
 
 Angles are the DH thetas (joint value + offset), counter-clockwise positive seen from
 above. Elbow-down has theta2 > 0, elbow-up theta2 < 0 (CONTRACT.md).
+
+The scalar functions need no numpy (``benchjog fk``/``solve`` start without it); the
+batch functions and :func:`jacobian` import it when called.
 """
 
 from __future__ import annotations
 
 import math
 
-import numpy as np
+TYPE_CHECKING = False  # typing.TYPE_CHECKING without importing typing
+if TYPE_CHECKING:
+    import numpy as np
 
 REACH_REL_TOL = 1e-13  # a target this close (relative to the reach) to a boundary is on it
 BATCH_CHUNK = 16384  # targets per block in the batch IK: the temporaries stay in cache
@@ -126,6 +131,8 @@ def thetas_from_tool_xy_block(a1_mm: float, a2_mm: float, x: np.ndarray, y: np.n
     arrays (x, y, reachable, on_boundary of shape (n,), t1, t2 of shape (2, n)). The
     same operations, in the same order, as :func:`thetas_from_tool_xy`, with in-place
     ufuncs."""
+    import numpy as np
+
     tol = reach_tolerance_mm(a1_mm, a2_mm)
     top, diff = a1_mm + a2_mm, abs(a1_mm - a2_mm)
     two_a1a2 = 2.0 * a1_mm * a2_mm
@@ -193,9 +200,12 @@ def thetas_from_tool_xy_batch(a1_mm: float, a2_mm: float, x_mm: np.ndarray, y_mm
 
     >>> t1, t2, ok, edge = thetas_from_tool_xy_batch(300.0, 200.0, [300.0, 500.0, 0.0],
     ...                                              [200.0, 0.0, 0.0])
+    >>> import numpy as np
     >>> np.degrees(t2).round(6).tolist(), ok.tolist(), edge.tolist()
     ([[90.0, 0.0, nan], [-90.0, 0.0, nan]], [True, True, False], [False, True, False])
     """
+    import numpy as np
+
     x, y = np.broadcast_arrays(np.asarray(x_mm, dtype=np.float64),
                                np.asarray(y_mm, dtype=np.float64))
     shape = x.shape
@@ -224,6 +234,8 @@ def jacobian(a1_mm: float, a2_mm: float, t1_rad: float, t2_rad: float) -> np.nda
     >>> jacobian(300.0, 200.0, 0.0, math.pi / 2).round(9).tolist()
     [[-200.0, -200.0], [300.0, 0.0]]
     """
+    import numpy as np
+
     s1, c1 = math.sin(t1_rad), math.cos(t1_rad)
     s12, c12 = math.sin(t1_rad + t2_rad), math.cos(t1_rad + t2_rad)
     return np.array([[-a1_mm * s1 - a2_mm * s12, -a2_mm * s12],

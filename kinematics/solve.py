@@ -2,6 +2,10 @@
 
 Units: mm and radians. Targets: planar (x, y); SCARA (x, y, z, roll). Tool poses:
 planar (x, y, heading); SCARA (x, y, z, roll).
+
+The scalar path (:func:`joints_from_tool`, :func:`tool_from_joints`, the findings) needs
+no numpy, so ``benchjog fk``/``solve`` start without it; the DH chain, the Jacobian
+and the batch IK import it when called.
 """
 
 from __future__ import annotations
@@ -10,14 +14,15 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-import numpy as np
-
 from benchjog.kinematics import planar, scara
-from benchjog.kinematics.dh import pose_from_transform, tool_transform
 from benchjog.kinematics.limits import (LIMIT_TOL, limit_problems, wrap_into_limits, wrap_into_limits_array,
                                wrap_joints)
 from benchjog.kinematics.model import Arm, Branch
 from benchjog.kinematics.zones import zone_problems
+
+TYPE_CHECKING = False  # typing.TYPE_CHECKING without importing typing
+if TYPE_CHECKING:
+    import numpy as np
 
 
 @dataclass(frozen=True)
@@ -198,6 +203,8 @@ def tool_from_joints(arm: Arm, values: Sequence[float]) -> tuple[float, ...]:
 
 def tool_from_joints_dh(arm: Arm, values: Sequence[float]) -> tuple[float, ...]:
     """The tool pose through the full DH chain of 4x4 transforms."""
+    from benchjog.kinematics.dh import pose_from_transform, tool_transform
+
     return pose_from_transform(arm, tool_transform(arm, values))
 
 
@@ -208,6 +215,8 @@ def jacobian(arm: Arm, values: Sequence[float]) -> np.ndarray:
     columns (j1, j2, j3, j4); z falls 1 mm per mm of quill and the roll turns against
     the roll joint (the 180-degree alpha).
     """
+    import numpy as np
+
     j1, j2 = arm.joints[0], arm.joints[1]
     t1, t2 = values[0] + j1.offset_rad, values[1] + j2.offset_rad
     jxy = planar.jacobian(j1.a_mm, j2.a_mm, t1, t2)
@@ -249,6 +258,8 @@ def joints_from_tool_batch(arm: Arm, targets: np.ndarray) -> BatchIK:
     Raises:
         TargetError: ``targets`` is not an (N, 2) or (N, 4) array of numbers.
     """
+    import numpy as np
+
     width = 4 if arm.is_scara else 2
     try:
         targets = np.asarray(targets, dtype=np.float64)

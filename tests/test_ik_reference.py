@@ -272,3 +272,51 @@ def test_plan_summaries_state_the_heading_as_the_rotation_gives_it(name):
     assert shown == pytest.approx(expected, abs=1e-9)
     word = "roll" if arm.is_scara else "heading"
     assert f"{word} {expected:.2f} deg" in "\n".join(plan.summary.lines(arm))
+
+
+@pytest.mark.parametrize("name", sorted(ARMS))
+def test_numpy_free_accuracy_agrees_with_jacobianspace_and_lapack_svd(name):
+    # kinematics/accuracy.py works without numpy (solve starts without it): its position
+    # rows against modern_robotics' JacobianSpace, its 2x2 singular values and condition
+    # number against numpy.linalg.svd (LAPACK), its steps per count against column norms.
+    from benchjog.kinematics import accuracy
+
+    arm = ARMS[name]
+    rng = np.random.default_rng(11)
+    rows_ref = 3 if arm.is_scara else 2
+    for i in range(200):
+        values = random_values(arm, rng)
+        if i < 4:  # stretched and folded elbows, exactly and near (not nearer than 1e-6
+            # rad: modern_robotics' NearZero takes smaller angles for zero)
+            values[1] = [0.0, math.pi, 1e-5, math.pi - 1e-5][i] - arm.joints[1].offset_rad
+        ref = tip_jacobian(arm, values)[:rows_ref]
+        rows = np.array(accuracy.position_jacobian_rows(arm, values))
+        np.testing.assert_allclose(rows, ref, atol=1e-9, rtol=0)
+        s_ref = np.linalg.svd(ref[:2, :2], compute_uv=False)
+        s = accuracy.singular_values_2x2(*rows[0, :2], *rows[1, :2])
+        assert s[0] == pytest.approx(s_ref[0], rel=1e-12)
+        assert s[1] == pytest.approx(s_ref[1], rel=1e-6, abs=1e-9 * s_ref[0])
+        cond, _ = accuracy.task_conditioning(arm, values)
+        if s_ref[1] > 1e-6 * s_ref[0]:
+            assert cond == pytest.approx(s_ref[0] / s_ref[1], rel=1e-6)
+        else:
+            assert cond > 1e5
+        per_count = [j.from_display(1.0 / j.counts_per_unit) for j in arm.joints]
+        expected = np.linalg.norm(ref, axis=0) * per_count[:ref.shape[1]]
+        np.testing.assert_allclose(accuracy.steps_per_count_mm(arm, values), expected,
+                                   rtol=1e-12, atol=1e-15)
+
+
+def test_singular_values_2x2_against_lapack_on_random_matrices():
+    # reference: numpy.linalg.svd (LAPACK); matrices of any shape of conditioning
+    from benchjog.kinematics.accuracy import singular_values_2x2
+
+    rng = np.random.default_rng(12)
+    for _ in range(2000):
+        m = rng.normal(size=(2, 2)) * 10.0 ** rng.uniform(-3, 3)
+        s_ref = np.linalg.svd(m, compute_uv=False)
+        s = singular_values_2x2(*m.ravel())
+        assert s[0] == pytest.approx(s_ref[0], rel=1e-13)
+        assert s[1] == pytest.approx(s_ref[1], rel=1e-9, abs=1e-14 * s_ref[0])
+    assert singular_values_2x2(0.0, 0.0, 0.0, 0.0) == (0.0, 0.0)
+    assert singular_values_2x2(1.0, 2.0, 2.0, 4.0)[1] == 0.0   # rank one, exactly

@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import math
 import sys
 import tomllib
+from dataclasses import dataclass
 from pathlib import Path
 
 from benchjog.kinematics.armspec import ArmSpecError, arm_from_mapping
@@ -87,3 +89,40 @@ def load_arm(spec: str | Path | None) -> Arm:
     except UnicodeDecodeError:
         raise ArmSpecError(str(spec), "file", "not UTF-8 text") from None
     return _arm_from_text(text, str(spec))
+
+
+@dataclass(frozen=True)
+class CalibrationInfo:
+    """What ``solve`` uses of an arm file's calibration: the parameter keys and their
+    covariance (mm and deg), and the fit's RMS residual."""
+
+    keys: list[str]
+    covariance: list[list[float]]
+    rms_after_mm: float
+
+
+def calibration_of(path: str | Path | None) -> CalibrationInfo | None:
+    """The ``[calibration]`` table of an arm file, if it has a usable one (None for a
+    built-in arm name or a file without one)."""
+    if path is None or not Path(path).is_file():
+        return None
+    from benchjog.console.cell.safe_files import FileError, read_text
+
+    try:
+        data = tomllib.loads(read_text(path))
+    except (tomllib.TOMLDecodeError, FileError):
+        return None
+    table = data.get("calibration")
+    if not isinstance(table, dict):
+        return None
+    keys, cov = table.get("parameters"), table.get("covariance")
+    if not (isinstance(keys, list) and isinstance(cov, list) and len(cov) == len(keys)
+            and all(isinstance(r, list) and len(r) == len(keys) for r in cov)):
+        return None
+    try:
+        rows = [[float(v) for v in r] for r in cov]
+    except (TypeError, ValueError):
+        return None
+    if not all(math.isfinite(v) for r in rows for v in r):
+        return None
+    return CalibrationInfo([str(k) for k in keys], rows, float(table.get("rms_after_mm", math.nan)))

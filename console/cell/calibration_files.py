@@ -240,38 +240,6 @@ def write_arm_file(path: str | Path, text: str) -> None:
     write_atomic(path, text, backup=True)
 
 
-@dataclass(frozen=True)
-class CalibrationInfo:
-    keys: list[str]
-    covariance: list[list[float]]
-    rms_after_mm: float
-
-
-def calibration_of(path: str | Path | None) -> CalibrationInfo | None:
-    """The ``[calibration]`` table of an arm file, if it has a usable one (None for a
-    built-in arm name or a file without one)."""
-    if path is None or not Path(path).is_file():
-        return None
-    try:
-        data = tomllib.loads(read_text(path))
-    except (tomllib.TOMLDecodeError, FileError):
-        return None
-    table = data.get("calibration")
-    if not isinstance(table, dict):
-        return None
-    keys, cov = table.get("parameters"), table.get("covariance")
-    if not (isinstance(keys, list) and isinstance(cov, list) and len(cov) == len(keys)
-            and all(isinstance(r, list) and len(r) == len(keys) for r in cov)):
-        return None
-    try:
-        rows = [[float(v) for v in r] for r in cov]
-    except (TypeError, ValueError):
-        return None
-    if not all(math.isfinite(v) for r in rows for v in r):
-        return None
-    return CalibrationInfo([str(k) for k in keys], rows, float(table.get("rms_after_mm", math.nan)))
-
-
 def branch_of(arm: Arm, joints: Sequence[float]) -> str:
     """The contract's branch label of a pose (elbow-down: elbow > 0)."""
     t2 = joints[1] + arm.joints[1].offset_rad

@@ -16,7 +16,7 @@ from benchjog.console.errors import UsageError
 
 if TYPE_CHECKING:  # numpy (through the solver) and rich load only in the commands that use them
     from benchjog.kinematics.model import Arm
-    from benchjog.kinematics.identify import Accuracy
+    from benchjog.kinematics.accuracy import Accuracy
     from benchjog.kinematics.solve import IKResult
 
 
@@ -81,8 +81,8 @@ def accuracy_dict(acc: Accuracy) -> dict:
 
 
 def _accuracies(arm: Arm, result: IKResult, arm_spec) -> list[Accuracy]:
-    from benchjog.console.cell.calibration_files import calibration_of
-    from benchjog.kinematics.identify import accuracy_at
+    from benchjog.console.cell.armfile import calibration_of
+    from benchjog.kinematics.accuracy import accuracy_at
 
     cal = calibration_of(arm_spec)
     keys, cov = (cal.keys, cal.covariance) if cal else (None, None)

@@ -9,7 +9,7 @@ from rich.text import Text
 from textual.message import Message
 from textual.widgets import Static
 
-from benchjog.kinematics.identify import accuracy_at
+from benchjog.kinematics.accuracy import accuracy_at
 from benchjog.kinematics.model import Arm, Branch
 from benchjog.kinematics.solve import IKResult
 
@@ -57,7 +57,7 @@ def branch_rows(arm: Arm, ik: IKResult | None, active: Branch | None) -> list[tu
 
 def accuracy_row(arm: Arm, sols: dict) -> tuple[str, ...]:
     """The tool's largest step per encoder count on each branch (mm), and the task
-    Jacobian's condition number when it is ill-conditioned (kinematics/identify.py)."""
+    Jacobian's condition number when it is ill-conditioned (kinematics/accuracy.py)."""
     cells = ["mm/count"]
     for b in BRANCH_ORDER:
         sol = sols[b]
