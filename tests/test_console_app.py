@@ -178,7 +178,7 @@ async def test_estop_latches_blocks_jogs_and_needs_reset(planar):
 
 async def test_estop_during_a_move_halts_it(planar):
     arm, gate = planar
-    slow = Interlock.open(arm, "sim", journal=False, time_scale=0.5)
+    slow = Interlock.open(arm, "sim", journal=False, time_scale=0.1)  # ~10 s: a loaded machine still stops it mid-way
     try:
         app = make_app(arm, slow)
         async with app.run_test(size=SIZE) as pilot:
@@ -200,7 +200,7 @@ async def test_estop_during_a_move_halts_it(planar):
 
 async def test_stop_key_stops_a_move(planar):
     arm, gate = planar
-    slow = Interlock.open(arm, "sim", journal=False, time_scale=0.5)
+    slow = Interlock.open(arm, "sim", journal=False, time_scale=0.1)  # ~10 s: a loaded machine still stops it mid-way
     try:
         app = make_app(arm, slow)
         async with app.run_test(size=SIZE) as pilot:
@@ -405,7 +405,7 @@ async def test_home_asks_first(planar):
 
 async def test_quit_stops_first(planar):
     arm, gate = planar
-    slow = Interlock.open(arm, "sim", journal=False, time_scale=0.5)
+    slow = Interlock.open(arm, "sim", journal=False, time_scale=0.1)  # ~10 s: a loaded machine still stops it mid-way
     try:
         app = make_app(arm, slow)
         async with app.run_test(size=SIZE) as pilot:

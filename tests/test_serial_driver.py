@@ -272,8 +272,8 @@ def test_estop_mid_move_after_n_moves(make_rig):
     d = r.driver
     ready(d)
     for k in range(1, 7):
-        try:
-            d.queue(Segment((DEG(10.0 * k), DEG(90.0)), 0.2))
+        try:  # 1 s a segment: on a loaded machine the first is still under way at the e-stop
+            d.queue(Segment((DEG(10.0 * k), DEG(90.0)), 1.0))
         except ControllerError:
             pass
     # lines already in the pipeline when the e-stop hit were refused by the controller;
