@@ -128,6 +128,34 @@ def test_a_lagging_servo_arrives_late_without_a_fault(make_rig):
     assert d.state().latched is None and rig.counts() == (400, 1200)
 
 
+def test_stop_never_waits_for_the_bus_and_the_hold_follows(make_rig):
+    # A stop while the bus is busy (here: the test holds the bus lock, as a tick waiting
+    # out a silent servo's reply timeout would) returns at once, with nothing more
+    # queued; the streaming thread then reads where the servos are and writes that as
+    # their goal. wait_stopped() waits for that hold; the state is fresh only after it.
+    import threading
+
+    rig = make_rig()
+    d = rig.driver
+    ready(d)
+    d.queue(Segment((DEG(60.0), DEG(30.0)), 2.0))      # shoulder 0 -> 2400 counts
+    assert wait_for(lambda: rig.counts()[0] > 40, 2.0)
+    returned = threading.Event()
+    with d.bus.lock:
+        worker = threading.Thread(target=lambda: (d.stop(), returned.set()))
+        worker.start()
+        assert returned.wait(5.0)                       # the bus is still held here
+        st = d.state()
+        assert st.queued == 0 and not st.fresh and st.mode is Mode.MOVING
+        assert not d.wait_stopped(0.05)                 # the hold waits for the bus
+    assert d.wait_stopped(5.0)
+    hold = [g for sid, g in rig.emulator.goal_log if sid == 1][-1] - T.CENTER
+    assert 40 < hold < 2400                             # held short of the target
+    assert d.wait_idle(3.0) and d.state().fresh
+    assert abs(rig.counts()[0] - hold) <= 1
+    assert any("hold where they are" in e.detail for e in d.poll_events() if e.kind == "info")
+
+
 def test_a_stuck_servo_is_a_following_fault(make_rig):
     rig = make_rig(following_deg=2.0, following_s=0.2)
     rig.emulator.set_lag(1, lag_s=0.0, max_speed_pps=10.0)   # barely turns

@@ -116,6 +116,11 @@ class ServoBusDriver(Driver):
         self.write_times: deque[float] = deque(maxlen=100_000)   # when each goal sync write went out
         self.setpoints_sent = 0
         self._fresh_needed = False   # a hold or halt: the state waits for a read after it
+        self._hold_wanted = False    # a stop asked the streaming thread to hold the servos
+        self._hold_said = False      # that stop flushed segments: the hold is reported
+        self._held = threading.Event()   # set: no hold is waiting to be written
+        self._held.set()
+        self._wake = threading.Event()   # wakes the streaming thread at once (a stop)
         self._ran_dry = 0            # segments that started on an empty host queue
         self.segments_streamed = 0   # the last segment whose goals went out (segments count from 1)
 
@@ -262,9 +267,11 @@ class ServoBusDriver(Driver):
 
     def _close(self) -> None:
         self._running = False
+        self._wake.set()
         if self._thread is not None and self._thread is not threading.current_thread():
             self._thread.join(timeout=2.0)
         self._thread = None
+        self._give_up_hold()
         if self.bus.is_open:
             try:
                 with self.bus.lock:
@@ -386,28 +393,51 @@ class ServoBusDriver(Driver):
             time.sleep(0.002)
 
     def stop(self) -> None:
-        """Flush the queue and hold every servo where it is now (a fresh read, then that
-        position as the goal); the state shows MOVING until a read after the hold."""
+        """Flush the queue at once (no further goal is written) and have the streaming
+        thread hold every servo where it is (a fresh read, then that position as the
+        goal) as soon as the bus is free. Returns without waiting for the bus: a tick in
+        progress, or a servo that does not answer, never delays the caller;
+        :meth:`wait_stopped` waits for the hold. The state shows MOVING and not fresh
+        until a read after the hold."""
         with self._lock:
             self._stops += 1
             had = bool(self._segs)
             self._segs.clear()
-            if not (self._open and self._enabled):
+            if not (self._open and self._enabled and self._running):
                 return
-        try:
-            with self.bus.lock:
-                self._read_tick(time.monotonic())
-                with self._lock:
-                    hold = list(self._present)
-                    self._goal = hold
-                    self._fresh_needed = True
-                self.bus.sync_write(T.GOAL_POSITION, {sid: T.CENTER + c for sid, c in zip(self.config.ids, hold)})
-            with self._lock:
-                self._t_last_write = time.monotonic()
-                if had:
-                    self._event("info", "stopped: queue flushed, servos hold where they are")
-        except Exception:  # noqa: BLE001 - stop never raises for a dead link
-            pass
+            self._hold_wanted = True
+            self._hold_said = self._hold_said or had
+            self._fresh_needed = True
+            self._held.clear()
+        self._wake.set()
+
+    def wait_stopped(self, timeout_s: float | None = None) -> bool:
+        """Wait until the hold of every stop so far is written (or given up on: the
+        link is gone or the driver closed); True when none is waiting any more."""
+        return self._held.wait(timeout_s)
+
+    def _hold(self) -> None:
+        """The hold a stop asked for (the streaming thread, bus lock held): read where
+        the servos are and write that as their goal."""
+        self._read_tick(time.monotonic())
+        with self._lock:
+            hold = list(self._present)
+            self._goal = hold
+            self._fresh_needed = True   # the next read, after the hold, makes it fresh
+        self.bus.sync_write(T.GOAL_POSITION, {sid: T.CENTER + c for sid, c in zip(self.config.ids, hold)})
+        with self._lock:
+            self._t_last_write = time.monotonic()
+            self._hold_wanted = False
+            if self._hold_said:
+                self._event("info", "stopped: queue flushed, servos hold where they are")
+            self._hold_said = False
+            self._held.set()
+
+    def _give_up_hold(self) -> None:
+        with self._lock:
+            self._hold_wanted = False
+            self._hold_said = False
+            self._held.set()
 
     def _state_locked(self) -> DriverState:
         moving = bool(self._segs) or self._fresh_needed
@@ -508,8 +538,9 @@ class ServoBusDriver(Driver):
         t_next = time.monotonic()
         while self._running:
             now = time.monotonic()
-            if now < t_next:
-                time.sleep(min(t_next - now, 0.05))
+            if now < t_next and not self._hold_wanted:
+                self._wake.wait(min(t_next - now, 0.05))
+                self._wake.clear()
                 continue
             try:
                 self._tick(now)
@@ -520,9 +551,11 @@ class ServoBusDriver(Driver):
                     self._open = False
                     self._latch(f"link lost: {exc}", "link-lost", f"{exc}; the servos' bus watchdog stops them")
                 self._running = False
+                self._give_up_hold()
                 self.bus.close()
                 return
             except Exception as exc:  # noqa: BLE001 - a bug here must stop the arm, not hide
+                self._give_up_hold()
                 with self.bus.lock:
                     self._torque_off_all()
                 self._latch(f"fault: DRIVE axis=0", "fault", f"servobus internal error: {type(exc).__name__}: {exc}")
@@ -554,6 +587,14 @@ class ServoBusDriver(Driver):
     def _tick(self, now: float) -> None:
         with self.bus.lock:
             now = time.monotonic()   # after the lock: a wait for the bus counts as a gap too
+            if self._hold_wanted:
+                with self._lock:
+                    holding = self._enabled and not self._power_lost
+                if not holding:
+                    self._give_up_hold()
+                else:
+                    self._hold()
+                    return
             with self._lock:
                 if self._power_lost:
                     power_lost = True
