@@ -31,7 +31,6 @@ import select
 import signal
 import threading
 import time
-import tty
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TextIO
@@ -39,6 +38,7 @@ from typing import TextIO
 from benchjog.drivers import protocol as P
 from benchjog.drivers.firmware import core
 from benchjog.drivers.calibration import hard_ranges_counts
+from benchjog.drivers.pty_pair import close_pty, open_raw_pty
 from benchjog.kinematics.model import Arm
 
 WATCHDOG_S = 1.0
@@ -224,11 +224,7 @@ class Emulator:
 
     # -- life cycle -----------------------------------------------------------------
     def start(self) -> str:
-        master, slave = os.openpty()
-        tty.setraw(master)
-        tty.setraw(slave)
-        self._master, self._slave = master, slave
-        self.path = os.ttyname(slave)
+        self._master, self._slave, self.path = open_raw_pty()
         with self._lock:
             self._running = True
             self.t_start = now = self.clock()
@@ -248,12 +244,7 @@ class Emulator:
         self._out.put(None)
         for t in self._threads:
             t.join(timeout=2.0)
-        for fd in (self._master, self._slave):
-            if fd is not None:
-                try:
-                    os.close(fd)
-                except OSError:
-                    pass
+        close_pty(self._master, self._slave)
         self._master = self._slave = None
 
     def __enter__(self) -> "Emulator":

@@ -16,6 +16,7 @@ from dataclasses import dataclass
 
 import tomlkit
 
+from benchjog.console.numbers import finite_number
 from benchjog.kinematics.model import Joint
 
 # the walk-through's defaults (the command line's options have the same)
@@ -48,13 +49,7 @@ def number_from_text(text: str) -> float:
     ...
     benchjog.console.cell.commissioning.CommissionError: not a number ('ten')
     """
-    try:
-        value = float(text)
-    except ValueError:
-        raise CommissionError(f"not a number ({text.strip()!r})") from None
-    if not math.isfinite(value):
-        raise CommissionError(f"not a number ({text.strip()!r})")
-    return value
+    return finite_number(text, CommissionError)
 
 
 def step_from_text(text: str, unit: str) -> float:

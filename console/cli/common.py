@@ -6,7 +6,6 @@ with the console and re-exported here for the subcommands."""
 from __future__ import annotations
 
 import argparse
-import math
 import sys
 TYPE_CHECKING = False  # typing's own constant, without importing typing at start-up
 if TYPE_CHECKING:
@@ -14,7 +13,7 @@ if TYPE_CHECKING:
 
 from benchjog.console.cell.link import open_gate
 from benchjog.console.errors import UsageError
-from benchjog.console.numbers import round_out
+from benchjog.console.numbers import finite_number, round_out
 
 
 def add_arm_option(parser: argparse.ArgumentParser) -> None:
@@ -92,13 +91,7 @@ def add_port_options(parser: argparse.ArgumentParser) -> None:
 
 def parse_number(text: str, name: str) -> float:
     """A finite float from the command line, or a one-line UsageError."""
-    try:
-        value = float(text)
-    except ValueError:
-        raise UsageError(f"{name}: not a number ({text!r})") from None
-    if not math.isfinite(value):
-        raise UsageError(f"{name}: not a finite number ({text!r})")
-    return value
+    return finite_number(text, UsageError, name)
 
 
 def print_json(data: Any) -> None:

@@ -36,9 +36,9 @@ import os
 import select
 import threading
 import time
-import tty
 from dataclasses import dataclass, field
 
+from benchjog.drivers.pty_pair import close_pty, open_raw_pty
 from benchjog.drivers.servobus import packet as P
 from benchjog.drivers.servobus import table as T
 
@@ -111,11 +111,7 @@ class BusEmulator:
 
     # -- life cycle -----------------------------------------------------------------------
     def start(self) -> str:
-        master, slave = os.openpty()
-        tty.setraw(master)
-        tty.setraw(slave)
-        self._master, self._slave = master, slave
-        self.path = os.ttyname(slave)
+        self._master, self._slave, self.path = open_raw_pty()
         self._running = True
         self._thread = threading.Thread(target=self._serve, name="servobus-emulator", daemon=True)
         self._thread.start()
@@ -126,12 +122,7 @@ class BusEmulator:
         if self._thread is not None:
             self._thread.join(timeout=2.0)
             self._thread = None
-        for fd in (self._master, self._slave):
-            if fd is not None:
-                try:
-                    os.close(fd)
-                except OSError:
-                    pass
+        close_pty(self._master, self._slave)
         self._master = self._slave = None
 
     def _serve(self) -> None:
