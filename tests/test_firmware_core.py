@@ -10,9 +10,7 @@ emulator, under tests/test_serial_driver.py and tests/test_emulator_cli.py.
 from __future__ import annotations
 
 import binascii
-import importlib.util
 from fractions import Fraction
-from pathlib import Path
 
 import pytest
 from hypothesis import given, settings
@@ -23,11 +21,7 @@ from benchjog.drivers.firmware import core
 from benchjog.drivers.firmware.hw_servo import pulse_ns_from_counts
 from benchjog.drivers.firmware.hw_stepdir import StepCounter
 
-# the scripted hardware of the MicroPython exchanges (plain Python, no package)
-_spec = importlib.util.spec_from_file_location(
-    "exchange", Path(__file__).resolve().parent / "mpy" / "exchange.py")
-exchange = importlib.util.module_from_spec(_spec)
-_spec.loader.exec_module(exchange)
+from mpy import exchange  # the scripted hardware of the MicroPython exchanges (tests/mpy/)
 
 FUZZ = settings(max_examples=150, deadline=None)
 RANGE = 100000

@@ -24,15 +24,13 @@ import pytest
 
 from benchjog.drivers import protocol as P
 from benchjog.drivers.firmware import core
+from mpy import exchange  # tests/mpy/ (a folder of the tests, on their path like driver_contract)
 
 HERE = Path(__file__).resolve().parent
 MPY = HERE / "mpy"
 CORE = Path(core.__file__)
 PACKAGE = MPY / "node_modules" / "@micropython" / "micropython-webassembly-pyscript"
 
-_spec = importlib.util.spec_from_file_location("exchange", MPY / "exchange.py")
-exchange = importlib.util.module_from_spec(_spec)
-_spec.loader.exec_module(exchange)
 
 AXES2 = [{"min_counts": -5000, "max_counts": 5000}, {"min_counts": -5000, "max_counts": 5000}]
 
