@@ -30,10 +30,6 @@ from benchjog.kinematics.solve import joints_from_tool, tool_from_joints
 
 DEADMAN_S = 0.3                 # a held key must repeat within this, or the arm stops
 TEACH_SPEED_MAX_MM_S = 250.0    # reduced (teaching) speed cap, common practice per ISO 10218-1
-DEFAULT_BOX_MM = 25.0           # half-width of the envelope along x and y (mm)
-DEFAULT_Z_MM = 10.0             # half-height along z on a SCARA (mm)
-DEFAULT_ROLL_DEG = 30.0         # half-range of the tool roll on a SCARA (deg)
-DEFAULT_IDLE_S = 30.0           # the session ends after this long without a step
 BOX_TOL_MM = 0.3                # controller count rounding at full reach stays below this
 BOX_TOL_RAD = math.radians(0.2)
 ENVELOPE_SAMPLES = 4            # sub-samples per segment when checking the envelope
@@ -146,11 +142,14 @@ def tool_point(arm: Arm, joints: Sequence[float]) -> tuple[float, ...]:
 
 
 def make_bounds(arm: Arm, joints: Sequence[float], frame: str, step: float, *,
-                box_mm: float = DEFAULT_BOX_MM, z_mm: float = DEFAULT_Z_MM,
-                roll_deg: float = DEFAULT_ROLL_DEG,
+                box_mm: float | None = None, z_mm: float | None = None,
+                roll_deg: float | None = None,
                 speed_cap_mm_s: float = TEACH_SPEED_MAX_MM_S,
-                idle_s: float = DEFAULT_IDLE_S) -> SessionBounds:
-    """Bounds around the tool pose at ``joints``.
+                idle_s: float | None = None) -> SessionBounds:
+    """Bounds around the tool pose at ``joints``. The envelope and the idle timeout
+    not given are the arm file's (``jog_session_box``, ``jog_session_z``,
+    ``jog_session_roll``, ``jog_session_idle``; 25 mm, 10 mm, 30 deg and 30 s unless
+    it says otherwise).
 
     Raises:
         SessionError: a frame other than tool/joint; a non-finite or non-positive box,
@@ -159,6 +158,10 @@ def make_bounds(arm: Arm, joints: Sequence[float], frame: str, step: float, *,
     """
     if frame not in FRAMES:
         raise SessionError(f"unknown jog frame {frame!r} (tool or joint)")
+    box_mm = arm.jog_box_mm if box_mm is None else box_mm
+    z_mm = arm.jog_z_mm if z_mm is None else z_mm
+    roll_deg = arm.jog_roll_deg if roll_deg is None else roll_deg
+    idle_s = arm.jog_idle_s if idle_s is None else idle_s
     for name, value in (("envelope half-width", box_mm), ("z half-height", z_mm),
                         ("roll half-range", roll_deg), ("step", step),
                         ("idle timeout", idle_s), ("speed cap", speed_cap_mm_s)):

@@ -226,5 +226,9 @@ def arm_from_mapping(data: Mapping[str, Any], source: str = "<arm>") -> Arm:
         tool_speed_max_mm_s=positive("tool_speed_max", 250.0),
         jog_step_max_mm=positive("jog_step_max", 50.0),
         link_clearance_mm=positive("link_clearance", 0.0, allow_zero=True),
+        jog_box_mm=positive("jog_session_box", 25.0),
+        jog_z_mm=positive("jog_session_z", 10.0),
+        jog_roll_deg=positive("jog_session_roll", 30.0),
+        jog_idle_s=positive("jog_session_idle", 30.0),
         source=source,
     )

@@ -120,6 +120,9 @@ class Arm:
         jog_step_max_mm: the largest single jog step the interlock accepts.
         link_clearance_mm: keep-out zones are grown by this much when links are
             checked against them (the links' half-width plus a safety gap).
+        jog_box_mm, jog_z_mm, jog_roll_deg, jog_idle_s: a jog session's envelope
+            (half-width along x and y, half-height along z, half-range of the roll) and
+            its idle timeout, as the confirmation offers them (drivers/jog_session.py).
     """
 
     name: str
@@ -132,6 +135,10 @@ class Arm:
     tool_speed_max_mm_s: float = 250.0
     jog_step_max_mm: float = 50.0
     link_clearance_mm: float = 0.0
+    jog_box_mm: float = 25.0
+    jog_z_mm: float = 10.0
+    jog_roll_deg: float = 30.0
+    jog_idle_s: float = 30.0
     source: str = "<built-in>"
 
     @property

@@ -182,6 +182,12 @@ CASES = [
      "arm.singularity_warn_deg", "must be below 90"),
     ("negative clearance", PLANAR, lambda d: d["arm"].update(link_clearance=-1.0),
      "arm.link_clearance", "must be >= 0"),
+    ("jog session box of zero", PLANAR, lambda d: d["arm"].update(jog_session_box=0.0),
+     "arm.jog_session_box", "must be > 0"),
+    ("jog session idle as text", PLANAR, lambda d: d["arm"].update(jog_session_idle="long"),
+     "arm.jog_session_idle", "not a number"),
+    ("jog session roll infinite", SCARA, lambda d: d["arm"].update(jog_session_roll=math.inf),
+     "arm.jog_session_roll", "not a finite number"),
 ]
 
 

@@ -136,6 +136,31 @@ def test_the_confirmation_shows_the_bounds(gate):
         assert words in text, words
 
 
+def test_the_arm_file_sets_the_envelope_and_the_idle_timeout(tmp_path, clock):
+    # a cramped cell: the arm file asks for +/-8 mm and 12 s (README, "The arm file")
+    from benchjog.console.cell.armfile import load_arm
+
+    text = (ROOT / "console/cell/arms/planar-bench.toml").read_text()
+    path = tmp_path / "cramped.toml"
+    path.write_text(text.replace("[arm]\n", "[arm]\njog_session_box = 8.0\njog_session_idle = 12.0\n", 1))
+    arm = load_arm(path)
+    g = Interlock.open(arm, "sim", journal=False, time_scale=50.0, clock=clock)
+    try:
+        g.enable()
+        proposal = g.propose_jog_session("x", 1.0, step=1.0)
+        text = "\n".join(g.jog_session_lines(proposal))
+        x0, y0 = xy_from_deg(*joints_deg_from_counts((0, 0)))
+        assert f"x {x0 - 8:.1f}..{x0 + 8:.1f}" in text and "12 s" in text
+        assert g.execute_jog_session(proposal, Answer(True)).completed
+        for _ in range(7):
+            assert g.session_jog("x", 1.0).ended is None
+        step = g.session_jog("x", 1.0)            # the ninth mm leaves the +/-8 mm box
+        assert step.result is None and step.ended
+        assert tool_xy(g)[0] - x0 == pytest.approx(8.0, abs=0.2)
+    finally:
+        g.close()
+
+
 @pytest.mark.parametrize("interrupt, words", [
     (lambda g, c: g.stop(), "stop"),
     (lambda g, c: g.disable(), "drives"),
