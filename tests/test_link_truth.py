@@ -178,6 +178,13 @@ def test_ten_plans_right_after_a_stop_start_from_where_the_arm_stopped(rig):
     starts = []
     for k in range(10):
         proposal = r.gate.propose_jog("x", 1.0 if k % 2 else -1.0)
+        if not proposal.ok:
+            # a machine too loaded to see the stop's fresh STATE within STOP_SETTLE_S
+            # refuses the plan as stale (never plans from the old pose); once the
+            # stop is answered, the plan is made
+            assert any("stale" in reason for reason in proposal.verdict.reasons), proposal.verdict
+            assert r.gate.wait_stopped(5.0)
+            proposal = r.gate.propose_jog("x", 1.0 if k % 2 else -1.0)
         truth = r.true_joints()
         assert proposal.ok, proposal.verdict
         starts.append(max(abs(a - b) for a, b in zip(proposal.start_joints, truth)))
