@@ -96,6 +96,9 @@ async def test_one_axis_through_all_five_stages_writes_the_truth(bench, tmp_path
         await pilot.press("right")                       # choose the elbow before starting
         assert screen.joint.name == "elbow"
         count = lambda: counts_from_joint(arm.joints[1], gate.state().joints[1])  # noqa: E731
+        await pilot.press("h")                           # homing is stage 5: not yet, not here
+        assert "homing is stage 5" in screen.status and app.screen is screen
+        assert not [c for c in gate.sim.commands if c[0] == "HOME"]
 
         # 1 direction: the person watches which way it turns
         before = count()
@@ -162,10 +165,11 @@ async def test_one_axis_through_all_five_stages_writes_the_truth(bench, tmp_path
         await type_line(pilot, "ok")
         assert screen.walk.stage == 4
 
-        # 5 homing
-        await pilot.press("enter")
+        # 5 homing: h (or enter) runs it and the stage records it
+        await pilot.press("h")
         await confirm(pilot, app, screen)
         assert screen.walk.found.homing == "done, elbow at count 0"
+        assert [c for c in gate.sim.commands if c[0] == "HOME"]
 
         # the diff first; "n" writes nothing, then "y" writes with a backup
         await pilot.press("w")

@@ -642,6 +642,8 @@ class BenchjogApp(App):
                 return None
             return True if s.enabled else (None if self.latched() else True)
         if action == "home":
+            if getattr(self.screen, "HOMES_ITSELF", False):
+                return False   # its own h records the homing; a dimmed one must not fall through
             s = self.state
             ok = (s is not None and s.is_open and s.enabled and not self.latched()
                   and self.busy is None)

@@ -74,6 +74,7 @@ class CommissioningScreen(DimmedKeyHints, Screen):
     HELP_NAME = "commissioning screen"
     FOOTER_KEYS = ("cm.axis-prev", "cm.axis-next", "cm.go", "cm.yes", "cm.no", "cm.write",
                    "app.stop", "cm.back", "app.help")
+    HOMES_ITSELF = True   # h is this screen's homing stage, not the app's homing
     BINDINGS = [
         Binding("left", "axis(-1)", "axis-", tooltip="Choose the previous axis (each keeps what "
                 "was found)", id="cm.axis-prev"),
@@ -82,6 +83,9 @@ class CommissioningScreen(DimmedKeyHints, Screen):
                 "first), or type the answer asked for", id="cm.go"),
         Binding("y", "answer(True)", "yes", tooltip="It moved the positive way", id="cm.yes"),
         Binding("n", "answer(False)", "no", tooltip="It moved the other way", id="cm.no"),
+        Binding("h", "home_stage", "home", tooltip="Stage 5: run the controller's homing cycle "
+                "(asks first) and record what it found; h homes only there on this screen",
+                id="cm.home"),
         Binding("w", "write", "write", tooltip="Show the new arm file as a diff; y writes it "
                 "(the old one kept as .bak)", id="cm.write"),
         Binding("x", "restart", "restart", show=False, tooltip="Forget what was found for this "
@@ -243,6 +247,8 @@ class CommissioningScreen(DimmedKeyHints, Screen):
             return True if self.moving is None and self.waits() in ("go", "type") else None
         if action == "answer":
             return True if self.moving is None and self.waits() == "ask" else None
+        if action == "home_stage":
+            return True if self.moving is None and self.walk.step == "home" else None
         if action in ("write", "restart"):
             ok = self.moving is None and (action == "restart" or self.waits() == "done")
             return True if ok else None
@@ -259,6 +265,11 @@ class CommissioningScreen(DimmedKeyHints, Screen):
             return "no question asked now"
         if action == "write":
             return f"finish the five stages first (now: {cm.STAGES[self.walk.stage]})"
+        if action == "home_stage":
+            if self.walk.stage > HOMING:
+                return "homing is checked: w writes (x starts the axis again)"
+            return (f"homing is stage 5, checked after the others (now: "
+                    f"{cm.STAGES[self.walk.stage]}); escape homes from the jog screen")
         return "not available now"
 
     def action_axis(self, step: int) -> None:
@@ -295,6 +306,14 @@ class CommissioningScreen(DimmedKeyHints, Screen):
             self.start_motion(f"move {j.name} {-self.test_move:+g} {j.unit}", -self.test_move)
         elif w.step == "home":
             self.start_motion("home", None)
+
+    def action_home_stage(self) -> None:
+        """``h`` here is the homing stage itself (recorded like enter), never a homing
+        the walk does not see."""
+        if self.walk.step != "home":
+            self.say(self.why_dimmed("home_stage"), error=True)
+            return
+        self.action_go()
 
     def action_answer(self, yes: bool) -> None:
         w, j = self.walk, self.joint
