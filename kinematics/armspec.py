@@ -15,6 +15,18 @@ from benchjog.kinematics.model import GEOMETRIES, PLANAR, PRISMATIC, REVOLUTE, S
 
 JOINT_KEYS = ("name", "type", "a", "alpha", "d", "offset", "min", "max", "max_speed",
               "counts_per_unit", "zero", "direction")
+# Every key benchjog reads, per table. CONTRACT.md allows more keys (a site's own notes, a
+# part number), so an unknown key is refused only when it is a likely misspelling of one
+# of these: a `link_clearence` silently dropped would check zones with no clearance.
+KNOWN_KEYS = {
+    "": ("arm", "joints", "zones", "bus", "calibration"),
+    "arm": ("name", "geometry", "singularity_warn_deg", "limit_margin_deg", "limit_margin_mm",
+            "tool_speed_max", "jog_step_max", "link_clearance", "jog_session_box",
+            "jog_session_z", "jog_session_roll", "jog_session_idle"),
+    "joints": JOINT_KEYS + ("max_accel", "servo_id", "servo_model", "servo_offset"),
+    "zones": ("name", "kind", "z_min", "z_max", "x_min", "x_max", "y_min", "y_max", "cx", "cy", "r"),
+}
+MISSPELLING_CUTOFF = 0.8   # difflib ratio above which an unknown key is taken for a known one
 REVOLUTE_LIMIT_DEG = 720.0   # two turns either way: beyond that a limit is a typo
 PRISMATIC_LIMIT_MM = 10000.0
 MIN_SPEED = 0.01  # deg/s or mm/s (and per s^2): slower is a typo, and would plan for ever
@@ -49,12 +61,38 @@ class ArmSpecError(ValueError):
         super().__init__(f"{source}: {key}: {problem}")
 
 
+def misspelt_key(key: str, known: tuple[str, ...]) -> str | None:
+    """The known key an unknown one most likely misspells, or None (a key of a site's
+    own, or a known one).
+
+    >>> misspelt_key("link_clearence", KNOWN_KEYS["arm"]), misspelt_key("part_no", KNOWN_KEYS["arm"])
+    ('link_clearance', None)
+    """
+    if key in known:
+        return None
+    import difflib   # only for a file with a key benchjog does not read
+
+    close = difflib.get_close_matches(key, known, n=1, cutoff=MISSPELLING_CUTOFF)
+    return close[0] if close else None
+
+
 class _Reader:
     def __init__(self, source: str):
         self.source = source
 
     def fail(self, key: str, problem: str) -> ArmSpecError:
         return ArmSpecError(self.source, key, problem)
+
+    def spelling(self, data: Mapping[str, Any], table: str, where: str) -> None:
+        """Refuse a key that misspells one benchjog reads in this table (before a
+        missing-key error could hide the cause)."""
+        known = KNOWN_KEYS[table]
+        for key in data:
+            if isinstance(key, str) and key not in known:
+                meant = misspelt_key(key, known)
+                if meant:
+                    raise self.fail(f"{where}.{key}" if where else key,
+                                    f"unknown key (did you mean {meant}?)")
 
     def table(self, data: Mapping[str, Any], key: str) -> Mapping[str, Any]:
         if key not in data:
@@ -94,6 +132,7 @@ def _joint(r: _Reader, data: Any, index: int) -> Joint:
     if not isinstance(data, Mapping):
         raise r.fail(where, "must be a table")
     # CONTRACT.md: more keys are allowed (a site's own notes, a part number, ...).
+    r.spelling(data, "joints", where)
     name = r.text(data, "name", where)
     jtype = r.text(data, "type", where)
     if jtype not in (REVOLUTE, PRISMATIC):
@@ -138,6 +177,7 @@ def _zone(r: _Reader, data: Any, index: int) -> Zone:
     where = f"zones[{index}]"
     if not isinstance(data, Mapping):
         raise r.fail(where, "must be a table")
+    r.spelling(data, "zones", where)
     name = r.text(data, "name", where, default=f"zone {index + 1}")
     kind = r.text(data, "kind", where)
     z_min = r.number(data, "z_min", where, default=-math.inf) if "z_min" in data else -math.inf
@@ -192,7 +232,9 @@ def arm_from_mapping(data: Mapping[str, Any], source: str = "<arm>") -> Arm:
         ArmSpecError: naming the key and the problem.
     """
     r = _Reader(source)
+    r.spelling(data, "", "")
     head = r.table(data, "arm")
+    r.spelling(head, "arm", "arm")
     name = r.text(head, "name", "arm")
     geometry = r.text(head, "geometry", "arm")
     if geometry not in GEOMETRIES:

@@ -182,6 +182,18 @@ CASES = [
      "arm.singularity_warn_deg", "must be below 90"),
     ("negative clearance", PLANAR, lambda d: d["arm"].update(link_clearance=-1.0),
      "arm.link_clearance", "must be >= 0"),
+    # a misspelling of a key benchjog reads is refused (silently dropped, a clearance or
+    # a zone would go unchecked); a key of a site's own is allowed (test below)
+    ("misspelt clearance", PLANAR, lambda d: d["arm"].update(link_clearence=12.0),
+     "arm.link_clearence", "unknown key (did you mean link_clearance?)"),
+    ("zone for zones", PLANAR, lambda d: d.update(zone=[{"kind": "circle", "cx": 0.0, "cy": 0.0,
+                                                         "r": 5.0}]),
+     "zone", "unknown key (did you mean zones?)"),
+    ("misspelt max_speed", PLANAR, lambda d: d["joints"][0].update(max_sped=d["joints"][0].pop("max_speed")),
+     "joints[0].max_sped", "unknown key (did you mean max_speed?)"),
+    ("misspelt zone key", PLANAR, lambda d: d.update(zones=[{"kind": "box", "x_min": 0.0, "x_max": 1.0,
+                                                             "y_min": 0.0, "y_max": 1.0, "z_maxx": 9.0}]),
+     "zones[0].z_maxx", "unknown key (did you mean z_max?)"),
     ("jog session box of zero", PLANAR, lambda d: d["arm"].update(jog_session_box=0.0),
      "arm.jog_session_box", "must be > 0"),
     ("jog session idle as text", PLANAR, lambda d: d["arm"].update(jog_session_idle="long"),
@@ -295,5 +307,6 @@ def test_extra_keys_are_allowed(tmp_path):
     text = text.replace('name = "shoulder"', 'name = "shoulder"\npart_number = "SH-1"', 1)
     text = text.replace('[arm]', '[arm]\ncell = "bench 3"', 1)
     path = tmp_path / "extra.toml"
+    text = text.replace('[[zones]]', '[[zones]]\nreason = "parts tray"', 1)
     path.write_text(text)
     assert load_arm(path).joints[0].name == "shoulder"
