@@ -138,6 +138,9 @@ class Driver(ABC):
     """
 
     name: ClassVar[str] = "abstract"
+    #: What :meth:`home` does, for the confirmation: None when it runs a homing cycle
+    #: that moves the arm (the usual case); words when it moves nothing (absolute encoders).
+    homing_without_motion: ClassVar[str | None] = None
 
     def __init__(self, arm: Arm, **options) -> None:
         self.arm = arm

@@ -1093,7 +1093,7 @@ class Interlock:
         reasons = [r for r in self._state_reasons(state, need_homed=False, need_enabled=not enables)
                    if not r.startswith("position report")]
         token = next(self._tokens)
-        notes = [self.HOME_NOTE]
+        notes = [type(self.__driver).homing_without_motion or self.HOME_NOTE]
         if enables:
             notes.append("the drives are off: they are switched on only after your yes")
         with self._issued_lock:

@@ -203,6 +203,9 @@ def test_home_on_the_bus_moves_nothing_and_checks_the_offsets(monkeypatch, capsy
                              "--journal", str(tmp_path / "j.jsonl"))
         assert code == 0, err
         assert emu.goal_changes == 0
+        # the confirmation says what homing does here, not a cycle's unchecked path
+        said = out + err
+        assert "moves nothing" in said and "NOT checked" not in said, said
         assert emu.register(2, T.HOMING_OFFSET) == 40          # the elbow's zero offset, written on open
         assert emu.present(1) == T.CENTER and emu.present(2) == T.CENTER + 40
     finally:

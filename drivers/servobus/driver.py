@@ -72,6 +72,9 @@ class ServoBusDriver(Driver):
     (default 0.5), ``queue_depth`` (default 16)."""
 
     name = "servobus"
+    homing_without_motion = ("homing on a servo bus moves nothing: the servos' absolute encoders "
+                             "know where they are; their zero offsets, modes and limits are checked "
+                             "against the arm file (written while the drives are off)")
 
     def __init__(self, arm: Arm, **options) -> None:
         super().__init__(arm, **options)
