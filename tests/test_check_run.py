@@ -258,7 +258,8 @@ def test_estop_halts_the_program_at_once_and_names_the_step():
         after = gate.sim.commands[pressed["at"]:]
         assert [c for c in after if c[0] in ("MOVE", "OUT")] == []
         assert gate.state().latched == "estop"
-        assert "at step 1 (move to clear" in result_words(report, result)
+        words = result_words(report, result)
+        assert "at step 1 (move to clear" in words and words.count("at step") == 1, words
         assert exit_code_of(result) == 3
 
 

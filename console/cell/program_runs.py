@@ -430,5 +430,8 @@ def result_words(report: ProgramReport, result: RunResult) -> str:
                 f"{report.duration_s:.2f} s planned")
     if result.step is not None and 0 <= result.step < len(report.steps):
         s = report.steps[result.step]
-        return f"{result.outcome} at step {s.number} ({s.step.describe()}): {result.detail}"
+        # the gate's own words may already say "halted at step 2: ..."; say it once
+        said = f"{result.outcome} at step {result.step + 1}: "
+        detail = result.detail.removeprefix(said)
+        return f"{result.outcome} at step {s.number} ({s.step.describe()}): {detail}"
     return result.detail
