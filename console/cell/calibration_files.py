@@ -201,7 +201,7 @@ def corrected_text(original: str, result: identify.Identification) -> str:
             joints[p.joint]["zero"] = _r(fixed.joints[p.joint].zero, 5)
     keys, cov = result.covariance_display()
     table = tomlkit.table()
-    table.comment("written by benchjog calibrate fit: mm and deg")
+    table.comment("written by benchjog calibrate apply from the fit: mm and deg")
     table["touches"] = result.n_touches
     table["rms_before_mm"] = _r(identify.rms_mm(result.residuals_before_mm), 4)
     table["rms_after_mm"] = _r(identify.rms_mm(result.residuals_after_mm), 4)

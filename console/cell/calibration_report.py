@@ -70,7 +70,9 @@ def print_report(doc: dict, out=None) -> None:
       "(the arm file as it is, its base laid on the holes by a rigid fit)")
     w(f"residuals after:  RMS {a['rms_mm']:.3f} mm, max {a['max_mm']:.3f} mm "
       f"(residual sigma {doc['sigma_mm']:.3f} mm per coordinate)")
-    w(f"{'parameter':16s} {'arm file':>12s} {'fitted':>12s} {'change':>10s} {'std error':>10s}")
+    w("nominal: the arm file's link lengths, each zero as a correction from 0, the base where "
+      "a rigid fit lays it on the holes")
+    w(f"{'parameter':16s} {'nominal':>12s} {'fitted':>12s} {'change':>10s} {'std error':>10s}")
     for p in doc["parameters"]:
         w(f"{p['key']:16s} {p['file']:12.4f} {p['fitted']:12.4f} {p['change']:+10.4f} "
           f"{p['std_error']:10.4f} {p['unit']}")
