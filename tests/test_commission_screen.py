@@ -37,7 +37,9 @@ async def test_touch_fit_and_write_from_the_console(tmp_path, monkeypatch):
     gate = Interlock.open(arm, "sim", journal=False, time_scale=50.0,
                           true_errors={"shoulder.a": 1.0, "base.x": 200.0})
     try:
-        app = make_app(arm, gate)
+        cell = tmp_path / "cell"
+        cell.mkdir()
+        app = make_app(arm, gate, points_path=cell / "points.toml")
         async with app.run_test(size=SIZE) as pilot:
             gate.enable()
             await pilot.press("k")
@@ -64,7 +66,8 @@ async def test_touch_fit_and_write_from_the_console(tmp_path, monkeypatch):
                     assert not isinstance(app.screen, CalibrationScreen)
                     await pilot.press("k")
                     assert app.screen is screen and len(screen.records) == 2
-            saved = cf.load_touches(tmp_path / "touches.toml", arm)
+            saved = cf.load_touches(cell / "touches.toml", arm)    # in the cell folder,
+            assert not (tmp_path / "touches.toml").exists()        # not the shell's folder
             assert [r.hole for r in saved] == [r.hole for r in screen.records]
             await pilot.press("f")
             assert "residuals after" in screen.report and "O4" in screen.report

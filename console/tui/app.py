@@ -613,7 +613,11 @@ class BenchjogApp(App):
         if not self.is_screen_installed("calibrate"):
             from benchjog.console.tui.screens.commission import CalibrationScreen
 
-            self.install_screen(CalibrationScreen(self.interlock, self.arm), name="calibrate")
+            # the touches go beside the cell's points file, never into the shell's folder
+            touches = (self.points_path.with_name("touches.toml") if self.points_path
+                       else Path("touches.toml"))
+            self.install_screen(CalibrationScreen(self.interlock, self.arm, touches_path=touches),
+                                name="calibrate")
         if self.screen is not self.get_screen("calibrate"):
             self.push_screen("calibrate")
 
