@@ -54,6 +54,22 @@ def test_the_walk_through_writes_the_axis_after_a_diff_and_keeps_a_backup(monkey
     assert (tmp_path / "arm.toml.bak").read_bytes() == PLANAR.read_bytes()
 
 
+@pytest.mark.parametrize("last, outcome, code", [("y\n", "written", 0), ("n\n", "cancelled", 1)])
+def test_json_is_one_document_whether_written_or_not(monkeypatch, capsys, tmp_path, last, outcome, code):
+    # docs/cli-json.md: every command with --json prints one document on stdout
+    import json
+
+    arm = tmp_path / "arm.toml"
+    shutil.copy(PLANAR, arm)
+    got, out, err = run(monkeypatch, capsys, SCRIPT + last, "commission", "elbow", "--arm", str(arm),
+                        "--out", str(arm), "--journal", str(tmp_path / "j.log"), "--json")
+    assert got == code, err
+    doc = json.loads(out)
+    assert doc["outcome"] == outcome and doc["axis"] == "elbow" and doc["direction"] == 1
+    assert doc["counts_per_unit"] == pytest.approx(400 / 10.5, abs=1e-6)
+    assert (doc["written"] == str(arm)) is (outcome == "written")
+
+
 def test_quitting_midway_writes_nothing(monkeypatch, capsys, tmp_path):
     out = tmp_path / "new.toml"
     code, _, err = run(monkeypatch, capsys, "y\nquit\n", "commission", "1", "--out", str(out),

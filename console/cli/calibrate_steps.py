@@ -317,8 +317,20 @@ def cmd_commission(args: argparse.Namespace) -> int:
             drives_off(gate)
     changes = found.changes(joint)
     print(cm.findings_line(joint, found, args.margin), file=sys.stderr)
+
+    def result(outcome: str, written: Path | None) -> None:
+        if _wants_json(args):   # docs/cli-json.md: one document, whatever the outcome
+            print_json({"outcome": outcome, "written": None if written is None else str(written),
+                        "axis": joint.name, "direction": found.direction,
+                        "counts_per_unit": round_out(found.counts_per_unit),
+                        "zero": round_out(found.zero),
+                        "min": None if found.min is None else round_out(found.min),
+                        "max": None if found.max is None else round_out(found.max),
+                        "homing": found.homing})
+
     if not changes:
         print("benchjog: the arm file already says all this: nothing to write", file=sys.stderr)
+        result("unchanged", None)
         return exit_codes.OK
     new = cm.commissioned_text(original, index, changes)
     cf.check_arm_text(new, str(out))
@@ -328,13 +340,11 @@ def cmd_commission(args: argparse.Namespace) -> int:
           "[y/N] ", end="", file=sys.stderr, flush=True)
     answer = sys.stdin.readline()
     if not is_yes(answer):
+        result("cancelled", None)
         raise Refused("cancelled: nothing written")
     cf.write_arm_file(out, new)
     print(f"benchjog: wrote {out}; home the arm again before relying on it", file=sys.stderr)
-    if _wants_json(args):
-        print_json({"written": str(out), "axis": joint.name, "direction": found.direction,
-                    "counts_per_unit": found.counts_per_unit, "zero": found.zero,
-                    "min": found.min, "max": found.max, "homing": found.homing})
+    result("written", out)
     return exit_codes.OK
 
 
