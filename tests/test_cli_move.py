@@ -85,3 +85,12 @@ def test_move_on_the_simulated_arm_with_a_line_path(monkeypatch, capsys, tmp_pat
                     "--journal", str(tmp_path / "j.jsonl"))
     assert code == 0, err
     assert "done" in err
+
+
+def test_a_journal_in_a_missing_folder_is_one_line_and_makes_no_folder(monkeypatch, capsys, tmp_path):
+    # a typo in --journal must not create folders wherever it points; nothing moves
+    missing = tmp_path / "no-such-folder" / "sub"
+    code, err = run(monkeypatch, capsys, "y\n", "move", "150", "200", "--journal",
+                    str(missing / "j.jsonl"))
+    assert code == 2 and err.count("\n") == 1 and "--journal: no folder" in err, err
+    assert not (tmp_path / "no-such-folder").exists()

@@ -18,6 +18,13 @@ def open_gate(arm, args: argparse.Namespace, *, require_link: bool = True,
     from benchjog.drivers.interlock import Interlock  # the gate, and only the gate, owns a driver
 
     journal = getattr(args, "journal", None) or None
+    if journal is not None:
+        from pathlib import Path
+
+        folder = Path(journal).expanduser().parent
+        if not folder.is_dir():   # a typo must not make folders wherever it points
+            raise UsageError(f"--journal: no folder {folder} (make it first, or leave "
+                             "--journal out for the default journal folder)")
     port = getattr(args, "port", None)
     if port is not None and not port.strip():
         raise UsageError("--port: empty (leave it out for the simulated arm)")
