@@ -244,7 +244,7 @@ def _header_pattern(tables: Sequence[str], arrays: Sequence[str]) -> re.Pattern[
     heads = [rf"\[\[[ \t]*{re.escape(k)}[ \t]*\]\]" for k in arrays] + \
         [rf"\[[ \t]*{re.escape(k)}[ \t]*\]" for k in tables]
     return re.compile(r"^(?:[ \t]*(?:#[^\n]*)?\r?\n)*(?P<head>[ \t]*(?:" + "|".join(heads) +
-                      r")[ \t]*(?:#[^\n]*)?)$", re.M)
+                      r")[ \t]*(?:#[^\r\n]*)?)\r?$", re.M)
 
 
 def toml_pieces(text: str, tables: Sequence[str], arrays: Sequence[str], *,
