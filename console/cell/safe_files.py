@@ -263,8 +263,8 @@ def toml_pieces(text: str, tables: Sequence[str], arrays: Sequence[str], *,
     statement of one piece reaches into another's table; a ``[table]`` met twice, a
     sub-table header (``[file.x]``) or anything else is refused (None).
 
-    ``progress(done, total)`` (characters parsed of the text's length) is called every
-    PIECES_EVERY pieces and at the end; an exception it raises is passed on.
+    ``progress(done, total)`` (characters parsed of the text's length) is called at the
+    start, every PIECES_EVERY pieces and at the end; an exception it raises is passed on.
 
     Raises:
         tomllib.TOMLDecodeError, RecursionError: never here; a piece that does not
@@ -276,6 +276,8 @@ def toml_pieces(text: str, tables: Sequence[str], arrays: Sequence[str], *,
     data: dict[str, Any] = {}
     pieces: list[TomlPiece] = []
     starts = [c[0] for c in cuts] + [total]
+    if progress is not None:
+        progress(0, total)
     try:
         if tomllib.loads(text[:starts[0]]):
             return None   # keys before the first table: not a file these pieces make
