@@ -260,25 +260,18 @@ class PointBook:
             return fresh, None
         return toml_text_keeping(keep, self.to_mapping(), header=_HEADER), None
 
-    def _point_rows(self) -> list[dict[str, Any]]:
-        """``self.to_mapping()["points"]`` without its None values (what tomllib reads
-        back of the plain writer's text), made the plain writer's way."""
-        shown = [j.to_display for j in self.arm.joints]
-        scara = self.arm.is_scara
-        rows = []
-        for p in self.points:
-            cart = _display_cartesian(self.arm, p.cartesian) if scara else p.cartesian
-            row = {"name": p.name, "frame": p.frame,
-                   "cartesian": [0.0 if (r := round(v, 6)) == 0 else r for v in cart],
-                   "joints": [0.0 if (r := round(f(v), 6)) == 0 else r
-                              for f, v in zip(shown, p.joints)],
-                   "branch": p.branch.value}
-            if p.taught:
-                row["taught"] = p.taught
-            if p.note:
-                row["note"] = p.note
-            rows.append(row)
-        return rows
+    def _point_row(self, p: TaughtPoint) -> dict[str, Any]:
+        """``self.to_mapping()["points"]``'s row of ``p`` without its None values (what
+        tomllib reads back of the plain writer's text for it)."""
+        cart = _display_cartesian(self.arm, p.cartesian) if self.arm.is_scara else p.cartesian
+        row = {"name": p.name, "frame": p.frame, "cartesian": [_r(v) for v in cart],
+               "joints": [_r(j.to_display(v)) for j, v in zip(self.arm.joints, p.joints)],
+               "branch": p.branch.value}
+        if p.taught:
+            row["taught"] = p.taught
+        if p.note:
+            row["note"] = p.note
+        return row
 
     def _plain_text(self) -> str:
         """``safe_files.toml_text(self.to_mapping(), header)``, the points written by one
@@ -578,48 +571,62 @@ def _spliced(book: PointBook, original: str,
         return None
     nl = "\r\n" if "\r\n" in original else "\n"
     head = PointBook(book.arm, frames=book.frames, frame_taught=book.frame_taught).to_mapping()
-    rows = {"file": [_without_none(head["file"])],
-            "frames": [_without_none(f) for f in head.get("frames", [])],
-            "points": book._point_rows()}
+    head_rows = {"file": [_without_none(head["file"])],
+                 "frames": [_without_none(f) for f in head.get("frames", [])]}
+    names = {"file": [None], "frames": [f["name"] for f in head_rows["frames"]],
+             "points": [p.name for p in book.points]}
     olds: dict[str, list[TomlPiece]] = {"file": [], "frames": [], "points": []}
     for piece in pieces[1:]:
         olds[piece.kind].append(piece)
     if len(olds["file"]) != 1:
         return None
+
+    def row(kind: str, j: int) -> dict[str, Any]:
+        return book._point_row(book.points[j]) if kind == "points" else head_rows[kind][j]
+
+    same_point = _point_test(book.arm)
+
+    def same(kind: str, table: dict[str, Any], j: int) -> bool:
+        return same_point(table, book.points[j]) if kind == "points" else \
+            table == head_rows[kind][j]
+
     # which old table each new row is (index into olds[kind]), and what comes after it
     pair: dict[str, list[int | None]] = {"file": [0]}
     after: dict[tuple[str, int], list[int]] = {}
     lead: dict[str, list[int]] = {"frames": [], "points": []}
     for kind in _ARRAYS:
         by_name = {p.table.get("name"): i for i, p in enumerate(olds[kind])}
-        matched = [by_name.get(row["name"]) for row in rows[kind]]
-        used = {i for i in matched if i is not None}
-        for j in range(len(matched)):
-            if matched[j] is None:
-                cand = 0 if j == 0 else (matched[j - 1] + 1 if matched[j - 1] is not None else None)
-                if cand is not None and cand < len(olds[kind]) and cand not in used:
-                    matched[j] = cand    # in the place of a name that went: a rename
-                    used.add(cand)
+        matched = [by_name.get(name) for name in names[kind]]
+        if None in matched:
+            used = set(matched)
+            for j in range(len(matched)):
+                if matched[j] is None:
+                    cand = 0 if j == 0 else \
+                        (matched[j - 1] + 1 if matched[j - 1] is not None else None)
+                    if cand is not None and cand < len(olds[kind]) and cand not in used:
+                        matched[j] = cand    # in the place of a name that went: a rename
+                        used.add(cand)
         kept = [i for i in matched if i is not None]
-        if kept != sorted(kept):
+        if any(a >= b for a, b in zip(kept, kept[1:])):
             return None   # tables in another order than the file's: the careful road
-        last = None
-        for j, i in enumerate(matched):
-            if i is not None:
-                last = i
-            elif last is None:
-                lead[kind].append(j)
-            else:
-                after.setdefault((kind, last), []).append(j)
+        if None in matched:
+            last = None
+            for j, i in enumerate(matched):
+                if i is not None:
+                    last = i
+                elif last is None:
+                    lead[kind].append(j)
+                else:
+                    after.setdefault((kind, last), []).append(j)
         pair[kind] = matched
-    row_of = {(kind, i): j for kind, matched in pair.items()
-              for j, i in enumerate(matched) if i is not None}
+    row_of = {kind: {i: j for j, i in enumerate(matched) if i is not None}
+              for kind, matched in pair.items()}
     first_kept = {kind: min((i for i in pair[kind] if i is not None), default=None)
                   for kind in _ARRAYS}
 
     out: list[str] = []
     new_pieces: list[TomlPiece] = []
-    emitted: dict[str, list[dict]] = {"file": [], "frames": [], "points": []}
+    emitted: dict[str, list[str | None]] = {"file": [], "frames": [], "points": []}
     at = 0
 
     def put(text: str, kind: str, table: dict, header: int, body: int) -> None:
@@ -632,16 +639,16 @@ def _spliced(book: PointBook, original: str,
             out.append(text)
             at += len(text)
         if kind:
-            emitted[kind].append(table)
+            emitted[kind].append(table.get("name"))
 
     def put_new(kind: str, j: int) -> bool:
-        row = rows[kind][j]
+        new = row(kind, j)
         header = f"[[{kind}]]"
         text = f"{nl}{header}{nl}" + "".join(f"{toml_key(k)} = {toml_value(v)}{nl}"
-                                             for k, v in row.items())
-        if _parsed_alone(text) != {kind: [row]}:
+                                             for k, v in new.items())
+        if _parsed_alone(text) != {kind: [new]}:
             return False
-        put(text, kind, row, len(nl), 2 * len(nl) + len(header))
+        put(text, kind, new, len(nl), 2 * len(nl) + len(header))
         return True
 
     put(original[:pieces[0].end], "", {}, 0, 0)
@@ -650,23 +657,29 @@ def _spliced(book: PointBook, original: str,
         kind = piece.kind
         i = index[kind]
         index[kind] += 1
-        j = row_of.get((kind, i))
+        j = row_of[kind].get(i)
         if j is None:
             continue   # deleted (or its place taken by a rename: then j is set)
         if kind in _ARRAYS and i == first_kept[kind]:
             for k in lead[kind]:
                 if not put_new(kind, k):
                     return None
-        row = rows[kind][j]
         text = original[piece.start:piece.end]
-        if piece.table == row:
-            put(text, kind, piece.table, piece.header - piece.start, piece.body - piece.start)
+        if same(kind, piece.table, j):
+            if at == piece.start:   # nothing before it changed: the piece as it was
+                new_pieces.append(piece)
+                out.append(text)
+                at = piece.end
+                emitted[kind].append(piece.table.get("name"))
+            else:
+                put(text, kind, piece.table, piece.header - piece.start, piece.body - piece.start)
         else:
-            text = _edited_table(text, piece.body - piece.start, piece.table, row, nl)
-            want = {kind: row} if kind == "file" else {kind: [row]}
+            new = row(kind, j)
+            text = _edited_table(text, piece.body - piece.start, piece.table, new, nl)
+            want = {kind: new} if kind == "file" else {kind: [new]}
             if text is None or _parsed_alone(text) != want:
                 return None
-            put(text, kind, row, piece.header - piece.start, piece.body - piece.start)
+            put(text, kind, new, piece.header - piece.start, piece.body - piece.start)
         if kind == "file" and first_kept["frames"] is None:
             for k in lead["frames"]:
                 if not put_new("frames", k):
@@ -678,13 +691,43 @@ def _spliced(book: PointBook, original: str,
         for k in lead["points"]:
             if not put_new("points", k):
                 return None
-    # the whole text reads back as the mapping: each piece reads alone as its row, the
-    # rows come in the book's order, and [file] once
-    for kind in ("file", *_ARRAYS):
-        if len(emitted[kind]) != len(rows[kind]) or \
-                any(a is not b and a != b for a, b in zip(emitted[kind], rows[kind])):
-            return None
+    # the whole text reads back as the mapping: each piece reads alone as its row (kept:
+    # the same data; edited or new: parsed above), [file] once, the rows in the book's order
+    if emitted != names:
+        return None
     return "".join(out), new_pieces
+
+
+def _point_test(arm: Arm) -> Callable[[Mapping[str, Any], TaughtPoint], bool]:
+    """``test(table, point)``: whether a points table as tomllib read it holds exactly
+    the point's row (PointBook._point_row), compared value by value without making the
+    row (numbers rounded as the plain writer rounds them; an int equals its float)."""
+    degrees = [j.is_revolute for j in arm.joints]   # Joint.to_display: math.degrees or as is
+    scara = arm.is_scara
+    branch = {b: b.value for b in Branch}
+    to_deg = math.degrees
+
+    def test(t: Mapping[str, Any], p: TaughtPoint) -> bool:
+        if len(t) != 5 + (p.taught != "") + (p.note != "") or t.get("name") != p.name or \
+                t.get("frame") != p.frame or t.get("branch") != branch[p.branch] or \
+                t.get("taught") != (p.taught or None) or t.get("note") != (p.note or None):
+            return False
+        c, j = t.get("cartesian"), t.get("joints")
+        cart, joints = p.cartesian, p.joints
+        if scara:
+            cart = _display_cartesian(arm, cart)
+        if type(c) is not list or type(j) is not list or len(c) != len(cart) or \
+                len(j) != len(joints):
+            return False
+        for a, v in zip(c, cart):
+            if a != round(v, 6) or type(a) is bool:
+                return False
+        for a, deg, v in zip(j, degrees, joints):
+            if a != round(to_deg(v) if deg else v, 6) or type(a) is bool:
+                return False
+        return True
+
+    return test
 
 
 def _parsed_alone(text: str) -> dict[str, Any] | None:
