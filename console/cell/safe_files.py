@@ -14,6 +14,9 @@ and a small TOML writer (``tomllib`` reads TOML but does not write it).
 - :func:`toml_text_keeping`: a save over a file a person edited keeps their comments,
   key order and formatting (tomlkit, the style-preserving TOML library), changing only
   the values that changed.
+- :func:`toml_pieces` / :func:`parse_toml_pieces`: ``tomllib.loads`` table by table,
+  with progress, proven to give the same mapping (else one whole parse); the pieces let
+  a save edit the text it read (points.PointBook.to_text).
 - :func:`read_text` caps the size (:data:`MAX_FILE_BYTES`) and turns every way a path
   can be bad (too long, a NUL byte, a device) into one line; :func:`parse_toml` turns a
   too-deep nesting (RecursionError in ``tomllib``) into one line too.
