@@ -24,6 +24,8 @@ import tomllib
 from pathlib import Path
 
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from benchjog.console.cell.armfile import builtin_arm
 from benchjog.console.cell.points import PointBook, _spliced
@@ -257,3 +259,47 @@ def test_saving_twice_keeps_using_the_edited_text(tmp_path):
     after = path.read_text()
     assert tomllib.loads(after) == reference(book)
     assert kept_in_order(before, after, table_lines(before, "place") | table_lines(before, "pick"))
+
+
+NOTE_TEXT = st.text(alphabet=st.sampled_from(list('ab #[]="\'\\\n\t') + ["é", "\x07"]), max_size=12)
+EDITS = st.lists(st.one_of(
+    st.tuples(st.just("note"), st.integers(0, 20), NOTE_TEXT),
+    st.tuples(st.just("delete"), st.integers(0, 20), st.just("")),
+    st.tuples(st.just("rename"), st.integers(0, 20), st.text(alphabet="xyz-", min_size=1, max_size=6)),
+    st.tuples(st.just("teach"), st.integers(0, 20), st.text(alphabet="uvw", min_size=1, max_size=6)),
+    st.tuples(st.just("frame"), st.integers(0, 20), st.just(""))), max_size=6)
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(EDITS, st.sampled_from(["\n", "\r\n"]), st.booleans())
+def test_any_edits_save_to_the_books_data(tmp_path, edits, nl, final_newline):
+    # whatever the edits, the saved text reads (tomllib) as the plain writer's text of
+    # the book does, and reads back into the same book
+    before = touched(DEMO).replace("\n", nl)
+    if not final_newline:
+        before = before.rstrip("\r\n")
+    path = tmp_path / "points.toml"
+    path.write_bytes(before.encode("utf-8"))
+    book = PointBook.load(path, PLANAR)
+    for what, k, words in edits:
+        names = book.names
+        if not names and what != "frame":
+            continue
+        name = names[k % len(names)] if names else ""
+        if what == "note":
+            book.set_note(name, words)
+        elif what == "delete":
+            book.delete(name)
+        elif what == "rename" and not book.has(words):
+            book.rename(name, words)
+        elif what == "teach" and not book.has(words):
+            book.teach(words, PLANAR.home_joints, taught="2026-12-02T08:00:00Z")
+        elif what == "frame":
+            book.set_frame(UserFrame("fixture", 100.0 + k, 220.0, math.radians(20.0 + k), 0.0),
+                           taught="2026-12-03T10:00:00Z")
+        book.save()
+        after = path.read_bytes().decode("utf-8")
+        assert tomllib.loads(after) == reference(book)
+        again = PointBook.load(path, PLANAR)
+        assert again.names == book.names and again.to_mapping() == book.to_mapping()
+    assert "# bench 3" in path.read_text()   # the [file] table is never deleted
