@@ -694,5 +694,6 @@ def _is_table_array(value: Any) -> bool:
 
 
 __all__ = ["FileError", "FileLocked", "FileLock", "write_atomic", "read_text", "read_bytes",
-           "parse_toml", "parse_toml_pieces", "toml_pieces", "TomlPiece", "remove_stale_temps", "toml_text_keeping", "MAX_FILE_BYTES",
+           "parse_toml", "parse_toml_pieces", "toml_pieces", "TomlPiece", "remove_stale_temps",
+           "toml_text_keeping", "MAX_FILE_BYTES",
            "backup_path", "lock_path", "toml_text", "toml_string", "toml_value"]
