@@ -79,7 +79,7 @@ class HeldLoad:
         real_open = PointBook.open
         held = self
 
-        def open_(cls, path, arm, *, progress=None):
+        def open_(cls, path, arm, *, progress=None, parsing=None):
             held.opens += 1
 
             def watched(done: int, total: int) -> None:
@@ -91,7 +91,7 @@ class HeldLoad:
                     progress(done, total)
 
             try:
-                book = real_open(path, arm, progress=watched)
+                book = real_open(path, arm, progress=watched, parsing=parsing)
             except BaseException as exc:
                 held.outcomes.append(type(exc).__name__)
                 raise
@@ -427,11 +427,54 @@ async def test_edits_change_only_their_rows_and_show_what_a_full_fill_shows(tmp_
             fills.clear()
 
 
+async def test_the_title_counts_while_the_text_is_parsed(tmp_path, big_text, gate, monkeypatch):
+    # the parse is held half way through the text (the parsing callback PointBook's
+    # loader calls); the book it gives is the one a single tomllib.loads of the text
+    # gives (tomllib: the standard library's TOML 1.0 reader)
+    points, program = tmp_path / "points.toml", tmp_path / "program.toml"
+    points.write_text(big_text)
+    held, go = threading.Event(), threading.Event()
+    seen: list[tuple[int, int]] = []
+    real_open = PointBook.open
+
+    def open_(cls, path, arm, *, progress=None, parsing=None):
+        def watched(done: int, total: int) -> None:
+            seen.append((done, total))
+            if done >= total // 2 and not held.is_set():
+                held.set()
+                go.wait(WAIT_S)
+            if parsing is not None:
+                parsing(done, total)
+        return real_open(path, arm, progress=progress, parsing=watched)
+
+    monkeypatch.setattr(PointBook, "open", classmethod(open_))
+    app = make_app(ARM, gate, points_path=points, program_path=program)
+    try:
+        async with app.run_test(size=(120, 40)) as pilot:
+            await until(pilot, lambda: app.state is not None)
+            await pilot.press("t")
+            assert await until(pilot, lambda: isinstance(app.screen, TeachScreen))
+            assert await until(pilot, held.is_set)
+            teach = app.screen
+            assert await until(pilot, lambda: re.fullmatch(
+                r"points: reading points\.toml: \d+ %", title(teach)))
+            percent = int(re.search(r"(\d+) %", title(teach)).group(1))
+            assert 0 < percent < 100
+            assert teach.load_state == "loading"
+            go.set()
+            assert await until(pilot, lambda: loaded(teach))
+            assert teach.book.names == [p["name"] for p in tomllib.loads(big_text)["points"]]
+            assert seen[0] == (0, len(big_text)) and seen[-1] == (len(big_text), len(big_text))
+            assert [d for d, _ in seen] == sorted(d for d, _ in seen)
+    finally:
+        go.set()
+
+
 async def test_an_unexpected_failure_of_the_load_is_one_line_not_a_crash(cell, gate,
                                                                          monkeypatch):
     points, program = cell
 
-    def broken_open(cls, path, arm, *, progress=None):
+    def broken_open(cls, path, arm, *, progress=None, parsing=None):
         raise MemoryError("no memory left for the book")
 
     monkeypatch.setattr(PointBook, "open", classmethod(broken_open))

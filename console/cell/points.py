@@ -36,6 +36,8 @@ from __future__ import annotations
 
 import difflib
 import math
+import re
+import tomllib
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
@@ -43,8 +45,10 @@ from pathlib import Path
 from typing import Any
 
 from benchjog.kinematics.armspec import number_problem
-from benchjog.console.cell.safe_files import (FileError, FileLock, parse_toml, read_text, real_path,
-                                             toml_text_keeping, write_atomic)
+from benchjog.console.cell.safe_files import (FileError, FileLock, TomlPiece, parse_toml,
+                                             parse_toml_pieces, read_text, real_path, toml_key,
+                                             toml_pieces, toml_text_keeping, toml_value,
+                                             write_atomic)
 from benchjog.kinematics.frames import FrameError, UserFrame, base_from_frame, frame_from_base, \
     frame_from_two_points
 from benchjog.kinematics.model import Arm, Branch
@@ -147,33 +151,42 @@ class PointBook:
     _lock: FileLock | None = field(default=None, repr=False)
     _where: dict[str, int] | None = field(default=None, repr=False, compare=False)
     _as_read: str | None = field(default=None, repr=False)  # the file's text: a save keeps its style
+    _pieces: list[TomlPiece] | None = field(default=None, repr=False, compare=False)  # its tables
 
     # --- files ---------------------------------------------------------------------
 
     @classmethod
-    def load(cls, path: str | Path, arm: Arm, *, progress: Progress | None = None) -> "PointBook":
+    def load(cls, path: str | Path, arm: Arm, *, progress: Progress | None = None,
+             parsing: Progress | None = None) -> "PointBook":
         """Read and validate a points file (no lock). ``progress(done, total)``, when
-        given, is called as the points are checked (see :func:`book_from_mapping`).
+        given, is called as the points are checked (see :func:`book_from_mapping`);
+        ``parsing(done, total)`` as the text is parsed (characters, table by table:
+        safe_files.parse_toml_pieces, the same mapping as one tomllib.loads).
 
         Raises:
             FileError: one line naming the file, the key and the problem.
         """
         path = Path(path)
         text = read_text(path)
-        book = book_from_mapping(parse_toml(text, str(path)), arm, str(path), progress=progress)
+        data, pieces = parse_toml_pieces(text, str(path), ("file",), ("frames", "points"),
+                                         progress=parsing)
+        book = book_from_mapping(data, arm, str(path), progress=progress)
         book.path = path
         book._as_read = text
+        book._pieces = pieces
         return book
 
     @classmethod
-    def open(cls, path: str | Path, arm: Arm, *, progress: Progress | None = None) -> "PointBook":
+    def open(cls, path: str | Path, arm: Arm, *, progress: Progress | None = None,
+             parsing: Progress | None = None) -> "PointBook":
         """The book for editing: takes the file's lock (FileLocked if another console
         holds it), then reads the file, or starts an empty book when there is none.
         An exception from ``progress`` (a load given up) releases the lock."""
         path = Path(path)
         lock = FileLock(path).acquire()
         try:
-            book = cls.load(path, arm, progress=progress) if path.exists() else cls(arm, path=path)
+            book = cls.load(path, arm, progress=progress, parsing=parsing) if path.exists() \
+                else cls(arm, path=path)
         except BaseException:
             lock.release()
             raise
@@ -199,30 +212,66 @@ class PointBook:
         if target is None:
             raise PointError("the book has no file yet: give a path")
         same_file = self.path is not None and real_path(target) == real_path(self.path)
-        text = self.to_text(keep=self._as_read if same_file else None)
+        text, pieces = self._text_and_pieces(self._as_read if same_file else None)
         if self._lock is not None and same_file:
             write_atomic(target, text)
         else:
             with FileLock(target):
                 write_atomic(target, text)
         if same_file:
-            self._as_read = text
+            self._as_read, self._pieces = text, pieces
         return target
 
     def to_text(self, keep: str | None = None) -> str:
-        """The file's text; ``keep``: the text as read, whose comments and formatting
-        stay (safe_files.toml_text_keeping).
+        """The file's text; ``keep``: the text as read, whose comments, blank lines,
+        spacing and key order stay.
 
-        Fast roads to the same file: the plain writer's text is made by
-        :meth:`_plain_text` (byte for byte ``toml_text(self.to_mapping(), header)``),
-        and when the text as read holds nothing a person wrote (every table of it that
-        is not written again unchanged is itself exactly as the plain writer writes it:
-        no comment, no spacing or number spelling of their own) there is nothing to keep,
-        so the plain text is the file (:func:`_nothing_to_keep`)."""
+        Three roads to the same data, the fastest that can be proven first:
+
+        - no text to keep: the plain writer, :meth:`_plain_text` (byte for byte
+          ``toml_text(self.to_mapping(), header)``);
+        - the text as read, table by table (:func:`_spliced`): every table the save
+          does not change is kept byte for byte with the comments and blank lines above
+          it, a changed one has only its changed lines rewritten (an inline comment
+          after a value stays), a deleted one is dropped, a new one is written in after
+          the one before it. Each table written is parsed on its own by tomllib and must
+          be what :meth:`to_mapping` holds for it; the kept ones were parsed on their
+          own when the file was read (safe_files.toml_pieces), so the whole text reads
+          back as ``to_mapping`` says;
+        - where that cannot be proven (a value over several lines that changed, tables
+          out of their order, a text that could not be read in pieces): the plain text
+          when the text as read holds nothing a person wrote (:func:`_nothing_to_keep`),
+          else tomlkit's keeping road (safe_files.toml_text_keeping)."""
+        return self._text_and_pieces(keep)[0]
+
+    def _text_and_pieces(self, keep: str | None) -> tuple[str, list[TomlPiece] | None]:
+        if not keep or not keep.strip():
+            return self._plain_text(), None
+        pieces = self._pieces if keep is self._as_read else None
+        if pieces is None:
+            split = toml_pieces(keep, ("file",), ("frames", "points"))
+            pieces = split[1] if split is not None else None
+        if pieces is not None:
+            spliced = _spliced(self, keep, pieces)
+            if spliced is not None:
+                return spliced
         fresh = self._plain_text()
-        if not keep or not keep.strip() or _nothing_to_keep(keep, fresh):
-            return fresh
-        return toml_text_keeping(keep, self.to_mapping(), header=_HEADER)
+        if _nothing_to_keep(keep, fresh):
+            return fresh, None
+        return toml_text_keeping(keep, self.to_mapping(), header=_HEADER), None
+
+    def _point_row(self, p: TaughtPoint) -> dict[str, Any]:
+        """``self.to_mapping()["points"]``'s row of ``p`` without its None values (what
+        tomllib reads back of the plain writer's text for it)."""
+        cart = _display_cartesian(self.arm, p.cartesian) if self.arm.is_scara else p.cartesian
+        row = {"name": p.name, "frame": p.frame, "cartesian": [_r(v) for v in cart],
+               "joints": [_r(j.to_display(v)) for j, v in zip(self.arm.joints, p.joints)],
+               "branch": p.branch.value}
+        if p.taught:
+            row["taught"] = p.taught
+        if p.note:
+            row["note"] = p.note
+        return row
 
     def _plain_text(self) -> str:
         """``safe_files.toml_text(self.to_mapping(), header)``, the points written by one
@@ -497,6 +546,243 @@ def _nothing_to_keep(original: str, fresh: str) -> bool:
         if toml_text(data) != block + "\n":
             return False
     return True
+
+
+# --- saving what a person wrote (PointBook.to_text) --------------------------------------
+
+_ARRAYS = ("frames", "points")
+_KEY_LINE = re.compile(r"([ \t]*)([A-Za-z0-9_-]+)([ \t]*=[ \t]*)([^\r\n]*?)(\r?\n)?\Z")
+_LINES = re.compile(r"[^\n]*\n|[^\n]+\Z")
+
+
+def _spliced(book: PointBook, original: str,
+             pieces: list[TomlPiece]) -> tuple[str, list[TomlPiece]] | None:
+    """The book's file made from ``original`` (the text as read) and its ``pieces``
+    (safe_files.toml_pieces: each parsed alone to its table), and the new text's
+    pieces; None where the result cannot be proven to read back as the book's mapping.
+
+    Tables of ``[[frames]]`` and ``[[points]]`` are matched by name; a new name that
+    takes the place of a name that went (a rename) is matched to that table. A table
+    whose data is the book's is kept byte for byte, a changed one is edited line by
+    line (:func:`_edited_table`), one whose name went is dropped, a new one is written
+    after the one before it (a first new frame after ``[file]``, a first new point at
+    the end). Line endings follow the file's (CRLF stays CRLF)."""
+    if not pieces or pieces[0].kind != "" or pieces[0].table:
+        return None
+    nl = "\r\n" if "\r\n" in original else "\n"
+    head = PointBook(book.arm, frames=book.frames, frame_taught=book.frame_taught).to_mapping()
+    head_rows = {"file": [_without_none(head["file"])],
+                 "frames": [_without_none(f) for f in head.get("frames", [])]}
+    names = {"file": [None], "frames": [f["name"] for f in head_rows["frames"]],
+             "points": [p.name for p in book.points]}
+    olds: dict[str, list[TomlPiece]] = {"file": [], "frames": [], "points": []}
+    for piece in pieces[1:]:
+        olds[piece.kind].append(piece)
+    if len(olds["file"]) != 1:
+        return None
+
+    def row(kind: str, j: int) -> dict[str, Any]:
+        return book._point_row(book.points[j]) if kind == "points" else head_rows[kind][j]
+
+    same_point = _point_test(book.arm)
+
+    def same(kind: str, table: dict[str, Any], j: int) -> bool:
+        return same_point(table, book.points[j]) if kind == "points" else \
+            table == head_rows[kind][j]
+
+    # which old table each new row is (index into olds[kind]), and what comes after it
+    pair: dict[str, list[int | None]] = {"file": [0]}
+    after: dict[tuple[str, int], list[int]] = {}
+    lead: dict[str, list[int]] = {"frames": [], "points": []}
+    for kind in _ARRAYS:
+        by_name = {p.table.get("name"): i for i, p in enumerate(olds[kind])}
+        matched = [by_name.get(name) for name in names[kind]]
+        if None in matched:
+            used = set(matched)
+            for j in range(len(matched)):
+                if matched[j] is None:
+                    cand = 0 if j == 0 else \
+                        (matched[j - 1] + 1 if matched[j - 1] is not None else None)
+                    if cand is not None and cand < len(olds[kind]) and cand not in used:
+                        matched[j] = cand    # in the place of a name that went: a rename
+                        used.add(cand)
+        kept = [i for i in matched if i is not None]
+        if any(a >= b for a, b in zip(kept, kept[1:])):
+            return None   # tables in another order than the file's: the careful road
+        if None in matched:
+            last = None
+            for j, i in enumerate(matched):
+                if i is not None:
+                    last = i
+                elif last is None:
+                    lead[kind].append(j)
+                else:
+                    after.setdefault((kind, last), []).append(j)
+        pair[kind] = matched
+    row_of = {kind: {i: j for j, i in enumerate(matched) if i is not None}
+              for kind, matched in pair.items()}
+    first_kept = {kind: min((i for i in pair[kind] if i is not None), default=None)
+                  for kind in _ARRAYS}
+
+    out: list[str] = []
+    new_pieces: list[TomlPiece] = []
+    emitted: dict[str, list[str | None]] = {"file": [], "frames": [], "points": []}
+    at = 0
+
+    def put(text: str, kind: str, table: dict, header: int, body: int) -> None:
+        nonlocal at
+        if at and not out[-1].endswith("\n"):
+            out.append(nl)
+            at += len(nl)
+        new_pieces.append(TomlPiece(kind, at, at + header, at + body, at + len(text), table))
+        if text:
+            out.append(text)
+            at += len(text)
+        if kind:
+            emitted[kind].append(table.get("name"))
+
+    def put_new(kind: str, j: int) -> bool:
+        new = row(kind, j)
+        header = f"[[{kind}]]"
+        text = f"{nl}{header}{nl}" + "".join(f"{toml_key(k)} = {toml_value(v)}{nl}"
+                                             for k, v in new.items())
+        if _parsed_alone(text) != {kind: [new]}:
+            return False
+        put(text, kind, new, len(nl), 2 * len(nl) + len(header))
+        return True
+
+    put(original[:pieces[0].end], "", {}, 0, 0)
+    index = {"file": 0, "frames": 0, "points": 0}
+    for piece in pieces[1:]:
+        kind = piece.kind
+        i = index[kind]
+        index[kind] += 1
+        j = row_of[kind].get(i)
+        if j is None:
+            continue   # deleted (or its place taken by a rename: then j is set)
+        if kind in _ARRAYS and i == first_kept[kind]:
+            for k in lead[kind]:
+                if not put_new(kind, k):
+                    return None
+        text = original[piece.start:piece.end]
+        if same(kind, piece.table, j):
+            if at == piece.start:   # nothing before it changed: the piece as it was
+                new_pieces.append(piece)
+                out.append(text)
+                at = piece.end
+                emitted[kind].append(piece.table.get("name"))
+            else:
+                put(text, kind, piece.table, piece.header - piece.start, piece.body - piece.start)
+        else:
+            new = row(kind, j)
+            text = _edited_table(text, piece.body - piece.start, piece.table, new, nl)
+            want = {kind: new} if kind == "file" else {kind: [new]}
+            if text is None or _parsed_alone(text) != want:
+                return None
+            put(text, kind, new, piece.header - piece.start, piece.body - piece.start)
+        if kind == "file" and first_kept["frames"] is None:
+            for k in lead["frames"]:
+                if not put_new("frames", k):
+                    return None
+        for k in after.get((kind, i), ()):
+            if not put_new(kind, k):
+                return None
+    if first_kept["points"] is None:
+        for k in lead["points"]:
+            if not put_new("points", k):
+                return None
+    # the whole text reads back as the mapping: each piece reads alone as its row (kept:
+    # the same data; edited or new: parsed above), [file] once, the rows in the book's order
+    if emitted != names:
+        return None
+    return "".join(out), new_pieces
+
+
+def _point_test(arm: Arm) -> Callable[[Mapping[str, Any], TaughtPoint], bool]:
+    """``test(table, point)``: whether a points table as tomllib read it holds exactly
+    the point's row (PointBook._point_row), compared value by value without making the
+    row (numbers rounded as the plain writer rounds them; an int equals its float)."""
+    degrees = [j.is_revolute for j in arm.joints]   # Joint.to_display: math.degrees or as is
+    scara = arm.is_scara
+    branch = {b: b.value for b in Branch}
+    to_deg = math.degrees
+
+    def test(t: Mapping[str, Any], p: TaughtPoint) -> bool:
+        if len(t) != 5 + (p.taught != "") + (p.note != "") or t.get("name") != p.name or \
+                t.get("frame") != p.frame or t.get("branch") != branch[p.branch] or \
+                t.get("taught") != (p.taught or None) or t.get("note") != (p.note or None):
+            return False
+        c, j = t.get("cartesian"), t.get("joints")
+        cart, joints = p.cartesian, p.joints
+        if scara:
+            cart = _display_cartesian(arm, cart)
+        if type(c) is not list or type(j) is not list or len(c) != len(cart) or \
+                len(j) != len(joints):
+            return False
+        for a, v in zip(c, cart):
+            if a != round(v, 6) or type(a) is bool:
+                return False
+        for a, deg, v in zip(j, degrees, joints):
+            if a != round(to_deg(v) if deg else v, 6) or type(a) is bool:
+                return False
+        return True
+
+    return test
+
+
+def _parsed_alone(text: str) -> dict[str, Any] | None:
+    try:
+        return tomllib.loads(text)
+    except (tomllib.TOMLDecodeError, RecursionError):
+        return None
+
+
+def _without_none(table: Mapping[str, Any]) -> dict[str, Any]:
+    return {k: v for k, v in table.items() if v is not None}
+
+
+def _edited_table(text: str, body_at: int, old: Mapping[str, Any], new: Mapping[str, Any],
+                  nl: str) -> str | None:
+    """A table's text (its leading comments, header, body) with the values that changed
+    from ``old`` to ``new`` rewritten on their own lines (the key's spacing and an
+    inline comment after the value stay), keys that went removed, and new keys added
+    after the last key line; None when a key's statement is not alone on one line (a
+    value over several lines, a dotted key). The caller checks the result."""
+    head, lines = text[:body_at], _LINES.findall(text[body_at:])
+    where: dict[str, tuple[int, re.Match[str]]] = {}
+    for i, line in enumerate(lines):
+        m = _KEY_LINE.match(line)
+        if m and m.group(2) in old and m.group(2) not in where:
+            where[m.group(2)] = (i, m)
+    if where.keys() != old.keys():
+        return None
+    for key, value in old.items():
+        if key in new and new[key] == value:
+            continue
+        i, m = where[key]
+        if _parsed_alone(lines[i]) != {key: value}:
+            return None   # the statement goes on past this line
+        if key not in new:
+            lines[i] = ""
+            continue
+        rest = m.group(4)
+        cut = len(rest)
+        for pos in [k for k, ch in enumerate(rest) if ch == "#"]:
+            if _parsed_alone("v = " + rest[:pos]) == {"v": value}:
+                cut = pos   # an inline comment starts here
+                break
+        end = len(rest[:cut].rstrip())
+        lines[i] = (m.group(1) + key + m.group(3) + toml_value(new[key]) + rest[end:]
+                    + (m.group(5) or ""))
+    added = [f"{toml_key(k)} = {toml_value(v)}{nl}" for k, v in new.items() if k not in old]
+    if added:
+        at = max((i for i, _m in where.values()), default=-1) + 1
+        if at and not lines[at - 1].endswith("\n"):
+            lines[at - 1] += nl
+        if not at and head and not head.endswith("\n"):
+            head += nl
+        lines[at:at] = added
+    return head + "".join(lines)
 
 
 def _display_cartesian(arm: Arm, values: Sequence[float]) -> list[float]:

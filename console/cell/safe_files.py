@@ -14,6 +14,9 @@ and a small TOML writer (``tomllib`` reads TOML but does not write it).
 - :func:`toml_text_keeping`: a save over a file a person edited keeps their comments,
   key order and formatting (tomlkit, the style-preserving TOML library), changing only
   the values that changed.
+- :func:`toml_pieces` / :func:`parse_toml_pieces`: ``tomllib.loads`` table by table,
+  with progress, proven to give the same mapping (else one whole parse); the pieces let
+  a save edit the text it read (points.PointBook.to_text).
 - :func:`read_text` caps the size (:data:`MAX_FILE_BYTES`) and turns every way a path
   can be bad (too long, a NUL byte, a device) into one line; :func:`parse_toml` turns a
   too-deep nesting (RecursionError in ``tomllib``) into one line too.
@@ -30,6 +33,7 @@ import tempfile
 import time
 import tomllib
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -217,6 +221,154 @@ def parse_toml(text: str, source: str) -> dict[str, Any]:
         raise FileError(source, "toml", str(exc).splitlines()[0]) from None
     except RecursionError:
         raise FileError(source, "toml", "arrays or tables nested too deeply") from None
+
+
+# --- reading in pieces ------------------------------------------------------------------
+
+PIECES_EVERY = 256   # pieces parsed between two calls of a split parse's progress callback
+
+
+@dataclass
+class TomlPiece:
+    """One table of a TOML text read in pieces: ``text[start:end]`` is its leading
+    comment and blank lines, its header line (from ``header``), and its body (from
+    ``body``); ``kind`` is the table's name ("" for the text before the first table) and
+    ``table`` what it holds."""
+
+    kind: str
+    start: int
+    header: int
+    body: int
+    end: int
+    table: dict[str, Any]
+
+
+def _header_pattern(tables: Sequence[str], arrays: Sequence[str]) -> re.Pattern[str]:
+    heads = [rf"\[\[[ \t]*{re.escape(k)}[ \t]*\]\]" for k in arrays] + \
+        [rf"\[[ \t]*{re.escape(k)}[ \t]*\]" for k in tables]
+    return re.compile(r"^(?:[ \t]*(?:#[^\n]*)?\r?\n)*(?P<head>[ \t]*(?:" + "|".join(heads) +
+                      r")[ \t]*(?:#[^\r\n]*)?)\r?$", re.M)
+
+
+def toml_pieces(text: str, tables: Sequence[str], arrays: Sequence[str], *,
+                progress: Any = None) -> tuple[dict[str, Any], list[TomlPiece]] | None:
+    """``tomllib.loads(text)`` read table by table, or None where that cannot be proven
+    the same (then one whole parse decides).
+
+    The text is cut at the line starts where a header line of one of ``tables``
+    (``[file]``) or ``arrays`` (``[[points]]``) begins, with the comment and blank lines
+    just above it; each piece is parsed alone by ``tomllib``. Why it is the whole
+    parse (TOML 1.0, from memory): a piece that starts where the whole text's reader
+    is between statements and parses alone cannot end inside a string, an array or
+    an inline table (that is an error at the end of a text), so the next piece starts
+    between statements too; the whole text's statements are then the pieces' in turn.
+    A piece must hold exactly its own header's table (the first piece: nothing), so no
+    statement of one piece reaches into another's table; a ``[table]`` met twice, a
+    sub-table header (``[file.x]``) or anything else is refused (None).
+
+    ``progress(done, total)`` (characters parsed of the text's length) is called at the
+    start, every PIECES_EVERY pieces and at the end; an exception it raises is passed on.
+
+    Raises:
+        tomllib.TOMLDecodeError, RecursionError: never here; a piece that does not
+        parse alone gives None, for the whole parse to say what is wrong.
+    """
+    pattern = _header_pattern(tables, arrays)
+    cuts = [(m.start(), m.start("head"), m.end()) for m in pattern.finditer(text)]
+    total = len(text)
+    data: dict[str, Any] = {}
+    pieces: list[TomlPiece] = []
+    starts = [c[0] for c in cuts] + [total]
+    if progress is not None:
+        progress(0, total)
+    try:
+        if tomllib.loads(text[:starts[0]]):
+            return None   # keys before the first table: not a file these pieces make
+        pieces.append(TomlPiece("", 0, 0, 0, starts[0], {}))
+        for first in range(0, len(cuts), PIECES_EVERY):
+            group = cuts[first:first + PIECES_EVERY]
+            found = _parsed_group(text, group, starts[first + len(group)], tables, arrays)
+            if found is None:   # a bracket at a line start that is no header: one by one
+                found = []
+                for n, cut in enumerate(group):
+                    one = _parsed_group(text, [cut], starts[first + n + 1], tables, arrays,
+                                        alone=True)
+                    if one is None:
+                        return None
+                    found += one
+            for n, (kind, table) in enumerate(found):
+                start, header, head_end = group[n]
+                end = starts[first + n + 1]
+                if kind in tables:
+                    if kind in data:
+                        return None   # a [table] met twice
+                    data[kind] = table
+                else:
+                    data.setdefault(kind, []).append(table)
+                body = head_end + 1 if head_end < end else end   # past the header line's \n
+                pieces.append(TomlPiece(kind, start, header, body, end, table))
+            if progress is not None:
+                progress(starts[first + len(group)], total)
+    except (tomllib.TOMLDecodeError, RecursionError):
+        return None
+    if progress is not None and not cuts:
+        progress(total, total)
+    return data, pieces
+
+
+_LINE_BRACKET = re.compile(r"^[ \t]*\[", re.M)
+
+
+def _parsed_group(text: str, group: list[tuple[int, int, int]], end: int, tables: Sequence[str],
+                  arrays: Sequence[str], alone: bool = False) -> list[tuple[str, dict]] | None:
+    """The (kind, table) of each piece of a run of pieces, parsed together, or None.
+    Together only when no line of the run starts with a bracket but the pieces' own
+    headers (so no statement of one piece reaches another's table); ``alone`` (one
+    piece) needs only that the piece hold exactly its own header's table.
+
+    Raises:
+        tomllib.TOMLDecodeError, RecursionError: the run does not parse alone."""
+    chunk = text[group[0][0]:end]
+    if not alone and len(_LINE_BRACKET.findall(chunk)) != len(group):
+        return None
+    got = tomllib.loads(chunk)
+    kinds = [_kind_of(text[h:e]) for _s, h, e in group]
+    want = {k: kinds.count(k) for k in kinds}
+    if set(got) != set(want):
+        return None
+    taken = {k: 0 for k in want}
+    out = []
+    for kind in kinds:
+        value = got[kind]
+        if kind in arrays:
+            if not (isinstance(value, list) and len(value) == want[kind]
+                    and isinstance(value[taken[kind]], dict)):
+                return None
+            out.append((kind, value[taken[kind]]))
+            taken[kind] += 1
+        elif kind in tables and want[kind] == 1 and isinstance(value, dict):
+            out.append((kind, value))
+        else:
+            return None
+    return out
+
+
+def _kind_of(header: str) -> str:
+    """The table name of a header line the pattern found (``[[ points ]]`` -> points)."""
+    return header.split("#", 1)[0].strip().strip("[]").strip()
+
+
+def parse_toml_pieces(text: str, source: str, tables: Sequence[str], arrays: Sequence[str], *,
+                      progress: Any = None) -> tuple[dict[str, Any], list[TomlPiece] | None]:
+    """:func:`parse_toml` read in pieces (:func:`toml_pieces`) with progress, and the
+    pieces; where the pieces are refused, one whole parse (pieces None)."""
+    split = toml_pieces(text, tables, arrays, progress=progress)
+    if split is not None:
+        return split
+    data = parse_toml(text, source)
+    if progress is not None:
+        progress(len(text), len(text))
+    return data, None
 
 
 # --- lock ----------------------------------------------------------------------------
@@ -542,5 +694,6 @@ def _is_table_array(value: Any) -> bool:
 
 
 __all__ = ["FileError", "FileLocked", "FileLock", "write_atomic", "read_text", "read_bytes",
-           "parse_toml", "remove_stale_temps", "toml_text_keeping", "MAX_FILE_BYTES",
+           "parse_toml", "parse_toml_pieces", "toml_pieces", "TomlPiece", "remove_stale_temps",
+           "toml_text_keeping", "MAX_FILE_BYTES",
            "backup_path", "lock_path", "toml_text", "toml_string", "toml_value"]

@@ -10,7 +10,10 @@ longest time a key (space: stop) would have waited; the sum is the time the UI t
 was busy. Both are taken from the t key until the points table shows every point.
 The same is measured with the files read and the table filled at once on the UI
 thread (the screen's size thresholds raised), which is how the screen opened them
-before, so the ratio compares the two in one run. Asserts nothing.
+before, so the ratio compares the two in one run. Beside them, the longest time the
+points table's title (the load's count: percent of the text parsed, then points
+checked) stood still: with the text parsed table by table it moves during the parse
+too. Asserts nothing.
 """
 
 from __future__ import annotations
@@ -27,7 +30,9 @@ sys.path.insert(0, str(Path(__file__).parent))
 from bench_cells import best_of, grid_book  # noqa: E402
 
 from benchjog.console.cell.armfile import builtin_arm  # noqa: E402
+from benchjog.console.cell import points as points_module  # noqa: E402
 from benchjog.console.cell.points import PointBook  # noqa: E402
+from benchjog.console.cell.safe_files import parse_toml  # noqa: E402
 from benchjog.console.tui.app import make_app  # noqa: E402
 from benchjog.console.tui.screens import teach  # noqa: E402
 from benchjog.drivers.interlock import Interlock  # noqa: E402
@@ -49,8 +54,11 @@ class LagProbe:
             self.lags.append(max(0.0, time.perf_counter() - t0 - TICK_S))
 
 
-async def open_teach(arm, gate, points: Path, program: Path, n: int) -> tuple[float, float, float]:
-    """(longest block, total blocked, wall time) from the t key to the full table."""
+async def open_teach(arm, gate, points: Path, program: Path,
+                     n: int) -> tuple[float, float, float, float]:
+    """(longest block, total blocked, wall time, longest still title) from the t key to
+    the full table; the last: the longest time the points table's title (the load's
+    count) did not change, polled every 5 ms."""
     app = make_app(arm, gate, points_path=points, program_path=program)
     async with app.run_test(size=(120, 40)) as pilot:
         for _ in range(300):
@@ -62,6 +70,17 @@ async def open_teach(arm, gate, points: Path, program: Path, n: int) -> tuple[fl
         await asyncio.sleep(0.05)
         probe.lags.clear()
         t0 = time.perf_counter()
+        titles: list[tuple[float, str | None]] = []
+        watching = True
+
+        async def watch() -> None:   # beside the key press, which waits for the app to idle
+            while watching:
+                title = app.screen.query("#points-title")
+                words = str(title.first().render()) if title else None
+                if not titles or titles[-1][1] != words:
+                    titles.append((time.perf_counter(), words))
+                await asyncio.sleep(0.005)
+        watcher = asyncio.create_task(watch())
         await pilot.press("t")
         while True:
             screen = app.screen
@@ -70,11 +89,24 @@ async def open_teach(arm, gate, points: Path, program: Path, n: int) -> tuple[fl
                     table and table.first().row_count == n:
                 break
             await asyncio.sleep(0.005)
-        wall = time.perf_counter() - t0
+        end = time.perf_counter()
+        wall = end - t0
+        watching = False
+        await watcher
+        moments = [t0] + [t for t, _w in titles if t > t0] + [end]
+        still = max(b - a for a, b in zip(moments, moments[1:]))
         await asyncio.sleep(0.05)
         probe.running = False
         await task
-        return max(probe.lags), sum(probe.lags), wall
+        return max(probe.lags), sum(probe.lags), wall, still
+
+
+def parsed_whole(text, source, tables, arrays, *, progress=None):
+    """safe_files.parse_toml_pieces as one whole parse (how the points were read before)."""
+    data = parse_toml(text, source)
+    if progress is not None:
+        progress(len(text), len(text))
+    return data, None
 
 
 def main() -> None:
@@ -88,10 +120,12 @@ def main() -> None:
         grid_book(arm, args.points, points).save()
         _, t_load = best_of(lambda: PointBook.load(points, arm), runs=args.runs)
         figures = {}
-        for mode in ("at once", "off the UI thread"):
-            saved = teach.INLINE_LOAD_BYTES, teach.FILL_CHUNK
+        for mode in ("at once", "off the UI thread, the text parsed whole", "off the UI thread"):
+            saved = teach.INLINE_LOAD_BYTES, teach.FILL_CHUNK, points_module.parse_toml_pieces
             if mode == "at once":
                 teach.INLINE_LOAD_BYTES = teach.FILL_CHUNK = 1 << 62
+            if mode.endswith("whole"):   # one tomllib.loads, no count while it runs
+                points_module.parse_toml_pieces = parsed_whole
             try:
                 results = []
                 for _ in range(args.runs):
@@ -99,11 +133,13 @@ def main() -> None:
                         results.append(asyncio.run(open_teach(
                             arm, gate, points, Path(tmp) / "program.toml", args.points)))
             finally:
-                teach.INLINE_LOAD_BYTES, teach.FILL_CHUNK = saved
-            figures[mode] = block, busy, wall = min(results)
+                teach.INLINE_LOAD_BYTES, teach.FILL_CHUNK, points_module.parse_toml_pieces = saved
+            figures[mode] = block, busy, wall, still = min(results)
             print(f"teach screen on {args.points} points, {mode}: UI thread blocked at most "
                   f"{block:.3f} s (busy {busy:.3f} s in all) of {wall:.3f} s from the t key to "
-                  f"the full table; longest block / PointBook.load {block / t_load:.2f}")
+                  f"the full table; longest block / PointBook.load {block / t_load:.2f}; "
+                  f"longest time the title's count stood still {still:.3f} s "
+                  f"({still / wall:.0%} of the wait)")
         print(f"PointBook.load of the same file: {t_load:.3f} s; longest block off the UI thread "
               f"/ at once: {figures['off the UI thread'][0] / figures['at once'][0]:.2f}")
 

@@ -409,20 +409,23 @@ class TeachScreen(DimmedKeyHints, Screen):
                 pass   # none yet, or unreadable: the load says so
         return total
 
-    def _read_files(self, progress=None) -> OpenedFiles:
+    def _read_files(self, progress=None, parsing=None) -> OpenedFiles:
         """Take the locks, read and check both files; widgets are not touched (a
         thread worker runs this). A file another console holds, or a broken one,
         makes the screen read only with a one-line reason. ``progress(done, total)``
-        follows the points being checked and may raise LoadGivenUp."""
+        follows the points being checked, ``parsing(done, total)`` the text being
+        parsed (characters); both may raise LoadGivenUp."""
         out = OpenedFiles()
         try:
             try:
-                out.book = PointBook.open(self.points_path, self.arm, progress=progress)
+                out.book = PointBook.open(self.points_path, self.arm, progress=progress,
+                                          parsing=parsing)
             except FileError as exc:
                 out.make_read_only(one_line(exc))
                 out.say(f"read only: {one_line(exc)}")
                 try:
-                    out.book = PointBook.load(self.points_path, self.arm, progress=progress) \
+                    out.book = PointBook.load(self.points_path, self.arm, progress=progress,
+                                              parsing=parsing) \
                         if self.points_path.exists() else PointBook(self.arm, path=self.points_path)
                 except FileError as exc2:
                     out.book = PointBook(self.arm, path=self.points_path)
@@ -475,7 +478,8 @@ class TeachScreen(DimmedKeyHints, Screen):
     @work(thread=True, group="teach-files", exit_on_error=False)
     def _load_worker(self, app) -> None:
         try:
-            out = self._read_files(self._progress_reporter(app))
+            out = self._read_files(self._progress_reporter(app),
+                                   self._progress_reporter(app, "parsing"))
         except LoadGivenUp:
             return   # the screen closed; what the load had taken is released
         except Exception as exc:  # noqa: BLE001 - never a crash: read only, in one line
@@ -501,9 +505,10 @@ class TeachScreen(DimmedKeyHints, Screen):
         one opened by teaching from the jog screen)."""
         return self._files_closed or not app.is_running
 
-    def _progress_reporter(self, app):
-        """The load's progress callback (worker thread): gives up once the screen has
-        closed; shows the count on the screen at most every PROGRESS_EVERY_S."""
+    def _progress_reporter(self, app, phase: str = "checking"):
+        """The load's progress callback (worker thread) for one phase ("parsing" the
+        text, "checking" the points): gives up once the screen has closed; shows the
+        count on the screen at most every PROGRESS_EVERY_S."""
         last = [0.0]
 
         def report(done: int, total: int) -> None:
@@ -512,8 +517,8 @@ class TeachScreen(DimmedKeyHints, Screen):
             now = time.monotonic()
             if done <= 0 or done == total or now - last[0] >= PROGRESS_EVERY_S:
                 last[0] = now
-                phase = "program" if done < 0 else "checking"
-                self._to_ui(app, self._show_load_progress, phase, done, total)
+                self._to_ui(app, self._show_load_progress, "program" if done < 0 else phase,
+                            done, total)
 
         return report
 
@@ -571,6 +576,9 @@ class TeachScreen(DimmedKeyHints, Screen):
             phase, done, total = self.load_progress
             if phase == "reading":
                 return f"points: reading {self.points_path.name} ..."
+            if phase == "parsing":
+                return (f"points: reading {self.points_path.name}: "
+                        f"{100 * done // max(total, 1)} %")
             if phase == "program":
                 return "points: read; reading the program ..."
             return f"points: {done:,} of {total:,} checked"
