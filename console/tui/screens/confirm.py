@@ -9,9 +9,9 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
-from textual.widgets import Footer, Static
+from textual.widgets import Static
 
-from benchjog.console.tui.widgets.keys import TooSmall
+from benchjog.console.tui.widgets.keys import KeyFooter, TooSmall
 
 
 class ConfirmMoveScreen(ModalScreen[bool]):
@@ -52,7 +52,7 @@ class ConfirmMoveScreen(ModalScreen[bool]):
                 yield Static(self._lines_text(), id="confirm-lines")
             yield Static(Text("Keep clear of the arm; the hardware e-stop is the safety "
                               "function, this prompt is not.", style="yellow"), id="confirm-caution")
-        yield Footer(compact=True)
+        yield KeyFooter(compact=True)   # composed once: the box is shown again and again
 
     def check_action(self, action: str, parameters: tuple) -> bool | None:
         if action == "answer" and parameters and parameters[0] is True and (
