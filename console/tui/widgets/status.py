@@ -87,6 +87,17 @@ def banner_lines(state, error: str | None = None, reach_warning: str | None = No
     return out
 
 
+def update_in_place(widget: Static, content, *, same_size: bool = False) -> None:
+    """``widget.update(content)`` without laying out the whole screen again when the
+    widget's size cannot change: its height and width are fixed by the styles (cells,
+    fractions or percent, or unset: filling the container), or the caller knows the new content takes the same room
+    (``same_size``). A layout is what makes a one-line change cost a whole frame."""
+    styles = widget.styles
+    fixed = all(scalar is None or not scalar.is_auto   # None: fills its container
+                for scalar in (styles.height, styles.width))
+    widget.update(content, layout=not (fixed or same_size) or not widget.size)
+
+
 class Banner(Static):
     """Full width, hidden when all is well; red for e-stop/fault/link, yellow for
     conditions the user fixes with a key."""
@@ -165,8 +176,12 @@ class LinkStatus(Static):
         self.words = words
         text = short if (short is not None and compact_screen(self)) else words
         if text != self.shown:
+            # the same number of lines, none longer than the panel: the same size
+            width = self.content_size.width
+            same = (isinstance(self.shown, str) and text.count("\n") == self.shown.count("\n")
+                    and max(map(len, text.splitlines() or [""])) <= width)
             self.shown = text
-            self.update(text)
+            update_in_place(self, text, same_size=same)
 
 
 class WarningsPanel(Static):
@@ -183,14 +198,14 @@ class WarningsPanel(Static):
             return
         self.items = items
         if not items:
-            self.update(Text("none", style="green"))
+            update_in_place(self, Text("none", style="green"))
             return
         text = Text()
         for n, item in enumerate(items):
             if n:
                 text.append("\n")
             text.append("! " + item, style="yellow")
-        self.update(text)
+        update_in_place(self, text)
 
 
 class EventLog(Widget):
@@ -226,4 +241,4 @@ class JogStatus(Static):
     def show(self, words: str) -> None:
         if words != self.words:
             self.words = words
-            self.update(words)
+            update_in_place(self, words)
