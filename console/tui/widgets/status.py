@@ -171,16 +171,17 @@ class LinkStatus(Static):
         self.border_title = "link"
         self.words = ""
         self.shown: tuple = ()
+        self._lines: int | None = None   # the shown text's height, wrapped
 
     def show(self, words: str, short: str | None = None) -> None:
         self.words = words
         text = short if (short is not None and compact_screen(self)) else words
         if text != self.shown:
-            # the same number of lines, none longer than the panel: the same size
+            # as many lines as before once wrapped to the panel: the same size
             width = self.content_size.width
-            same = (isinstance(self.shown, str) and text.count("\n") == self.shown.count("\n")
-                    and max(map(len, text.splitlines() or [""])) <= width)
-            self.shown = text
+            lines = len(Text(text).wrap(self.app.console, width)) if width else None
+            same = lines is not None and lines == self._lines
+            self.shown, self._lines = text, lines
             update_in_place(self, text, same_size=same)
 
 
