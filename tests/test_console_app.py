@@ -193,7 +193,8 @@ async def test_estop_during_a_move_halts_it(planar):
             assert "halted" in app.message
             x, y = fk_xy(*slow.state().joints)
             assert math.hypot(x + 100.0, y - 300.0) > 1.0        # it did not get there
-            assert "E-STOP" in app.jog_screen.query_one(Banner).text
+            banner = app.jog_screen.query_one(Banner)   # shown from the next state read
+            assert await until(pilot, lambda: "E-STOP" in banner.text)
     finally:
         slow.close()
 
