@@ -330,7 +330,7 @@ async def profile_keys(frames: Frames, runs: int) -> None:
                     await timing.press(pilot, frames, key, words)
                     frames.profile = worker_profile["p"] = None
                     await after()
-                print(f"\n== {name}: key to frame {summary(timing.key)}")
+                print(f"\n== {name}: key to frame, profiler overhead included: {summary(timing.key)}")
                 for label, prof in (("UI thread", ui), ("motion worker", work)):
                     if not prof.getstats():
                         continue
