@@ -17,6 +17,8 @@ from benchjog.console.tui.widgets.branch_table import BranchTable
 from benchjog.console.tui.widgets.status import Banner
 from benchjog.drivers.interlock import Interlock
 from benchjog.kinematics.model import Branch
+from console_helpers import confirm_shown, until
+from console_helpers import drives_on as enabled
 
 A1, A2 = 220.0, 160.0   # planar-bench link lengths (console/cell/arms/planar-bench.toml)
 SIZE = (120, 40)
@@ -47,26 +49,6 @@ def scara():
     gate = Interlock.open(arm, "sim", journal=False, time_scale=20.0)
     yield arm, gate
     gate.close()
-
-
-async def until(pilot, condition, tries: int = 200) -> bool:
-    """Let the app run until condition() holds (bounded number of short pauses)."""
-    for _ in range(tries):
-        if condition():
-            return True
-        await pilot.pause(0.03)
-    return condition()
-
-
-async def enabled(pilot, app: BenchjogApp) -> None:
-    await until(pilot, lambda: app.state is not None)
-    await pilot.press("e")
-    assert await until(pilot, lambda: app.state is not None and app.state.enabled and app.ready())
-
-
-async def confirm_shown(pilot, app) -> ConfirmMoveScreen:
-    assert await until(pilot, lambda: isinstance(app.screen, ConfirmMoveScreen))
-    return app.screen
 
 
 async def idle(pilot, app) -> None:
@@ -193,7 +175,8 @@ async def test_estop_during_a_move_halts_it(planar):
             assert "halted" in app.message
             x, y = fk_xy(*slow.state().joints)
             assert math.hypot(x + 100.0, y - 300.0) > 1.0        # it did not get there
-            assert "E-STOP" in app.jog_screen.query_one(Banner).text
+            banner = app.jog_screen.query_one(Banner)   # shown from the next state read
+            assert await until(pilot, lambda: "E-STOP" in banner.text)
     finally:
         slow.close()
 

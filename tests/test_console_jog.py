@@ -23,6 +23,8 @@ from benchjog.drivers.interlock import Interlock
 from benchjog.drivers.jog_session import DEADMAN_S
 from benchjog.drivers.journal import Journal, read_journal
 
+import console_helpers
+
 ROOT = Path(__file__).resolve().parents[1]
 TABLE = tomllib.loads((ROOT / "console/cell/arms/planar-bench.toml").read_text())
 SIZE = (120, 40)
@@ -51,17 +53,11 @@ def planar(tmp_path):
 
 
 async def until(pilot, condition, tries: int = 300) -> bool:
-    for _ in range(tries):
-        if condition():
-            return True
-        await pilot.pause(0.02)
-    return condition()
+    return await console_helpers.until(pilot, condition, tries, pause_s=0.02)   # this file's pace
 
 
 async def ready(pilot, app) -> None:
-    await until(pilot, lambda: app.state is not None)
-    await pilot.press("e")
-    assert await until(pilot, lambda: app.ready())
+    await console_helpers.drives_on(pilot, app, tries=300, pause_s=0.02)
 
 
 async def idle(pilot, app, gate) -> None:

@@ -17,6 +17,7 @@ from benchjog.console.tui.screens.jog import JogScreen
 from benchjog.console.tui.widgets.keys import MIN_HEIGHT, MIN_WIDTH, TooSmall, key_rows
 from benchjog.console.tui.widgets.target_input import TargetInput
 from benchjog.drivers.interlock import Interlock
+from console_helpers import until
 
 
 @pytest.fixture(params=["planar-bench", "scara-bench"])
@@ -25,14 +26,6 @@ def rig(request):
     gate = Interlock.open(arm, "sim", journal=False, time_scale=50.0)
     yield arm, gate
     gate.close()
-
-
-async def until(pilot, condition, tries: int = 200) -> bool:
-    for _ in range(tries):
-        if condition():
-            return True
-        await pilot.pause(0.03)
-    return condition()
 
 
 def fully_visible(widget, size: tuple[int, int]) -> bool:

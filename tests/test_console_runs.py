@@ -19,6 +19,8 @@ from benchjog.console.cli.main import main
 from benchjog.console.tui.screens.teach import RunClock
 from benchjog.drivers.interlock import START_TOL_RAD, Confirmer, Interlock
 
+import console_helpers
+
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "examples" / "bench-cell" / "program.toml"
 ARM = builtin_arm("planar-bench")
@@ -103,11 +105,7 @@ def test_run_clock_counts_steps_and_leaves_out_pauses():
 
 
 async def until(pilot, condition, tries: int = 300) -> bool:
-    for _ in range(tries):
-        if condition():
-            return True
-        await pilot.pause(0.03)
-    return condition()
+    return await console_helpers.until(pilot, condition, tries)   # this file's patience
 
 
 async def test_console_dry_run_plans_from_the_current_pose_and_runs_log(tmp_path):

@@ -15,6 +15,7 @@ from __future__ import annotations
 import importlib
 import importlib.util
 import math
+import queue
 import threading
 import time
 from dataclasses import dataclass, replace
@@ -171,6 +172,10 @@ class BenchjogApp(App):
         self._readiness: tuple | None = None
         self._has_teach: bool | None = None
         self._teach_screen = None   # the one teach screen, once made (its locks on quit)
+        # the motion thread: started once, it takes requests the moment a key makes them
+        # (a Textual worker per motion would start only after the next redraw)
+        self._motions: queue.SimpleQueue[MotionRequest | None] = queue.SimpleQueue()
+        self._motion_thread: threading.Thread | None = None
         self.jog_screen = JogScreen(arm)
 
     # -- life cycle --------------------------------------------------------------------
@@ -181,6 +186,7 @@ class BenchjogApp(App):
 
     def on_unmount(self) -> None:
         self.closing = True
+        self._motions.put(None)   # the motion thread ends after the motion it runs, if any
         # A teach screen used only through the jog screen's `a` was never shown, so it is
         # never unmounted, and Textual has emptied the installed screens by now: close
         # its files (their locks) through the reference kept when it was made.
@@ -406,11 +412,28 @@ class BenchjogApp(App):
             return
         self.busy = request
         self.plan_warnings = []
-        self._motion_worker(request)   # first: the key's setpoint does not wait for a redraw
-        self.refresh_view()
+        asks = request.kind != "jog" or self.interlock.jog_session() is None
+        self._start_motion(request)   # first: the key's setpoint does not wait for a redraw
+        if not asks:
+            self.refresh_view()   # a step in a session: the screen says it is moving
+        # else a question (or a refusal) follows within milliseconds and redraws; a
+        # redraw now would only delay it (the poll redraws anyway within POLL_S)
 
-    @work(thread=True, exclusive=True, group="motion", exit_on_error=False)
+    def _start_motion(self, request: MotionRequest) -> None:
+        """Hand the request to the motion thread (started on first use), which runs
+        motions one at a time, as the ``busy`` flag allows."""
+        if self._motion_thread is None or not self._motion_thread.is_alive():
+            self._motion_thread = threading.Thread(target=self._motion_loop, daemon=True,
+                                                   name="benchjog-motion")
+            self._motion_thread.start()
+        self._motions.put(request)
+
+    def _motion_loop(self) -> None:
+        while (request := self._motions.get()) is not None:
+            self._motion_worker(request)
+
     def _motion_worker(self, request: MotionRequest) -> None:
+        """Runs in the motion thread; the result always comes back as MotionDone."""
         done: MotionDone | None = None
         try:
             done = self._run_motion(request)

@@ -9,9 +9,9 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
-from textual.widgets import Footer, Static
+from textual.widgets import Static
 
-from benchjog.console.tui.widgets.keys import TooSmall
+from benchjog.console.tui.widgets.keys import KeyFooter, TooSmall
 
 
 class ConfirmMoveScreen(ModalScreen[bool]):
@@ -40,6 +40,7 @@ class ConfirmMoveScreen(ModalScreen[bool]):
         self.lines = list(lines)
         self.title_words = title
         self.answered = False
+        self._styled_for: tuple | None = None
 
     def compose(self) -> ComposeResult:
         # the answer keys stay in view at any size: only the plan scrolls
@@ -52,7 +53,7 @@ class ConfirmMoveScreen(ModalScreen[bool]):
                 yield Static(self._lines_text(), id="confirm-lines")
             yield Static(Text("Keep clear of the arm; the hardware e-stop is the safety "
                               "function, this prompt is not.", style="yellow"), id="confirm-caution")
-        yield Footer(compact=True)
+        yield KeyFooter(compact=True)   # composed once: the box is shown again and again
 
     def check_action(self, action: str, parameters: tuple) -> bool | None:
         if action == "answer" and parameters and parameters[0] is True and (
@@ -69,6 +70,17 @@ class ConfirmMoveScreen(ModalScreen[bool]):
             self.dismiss(bool(yes))
 
     # -- reuse (key to screen within one frame) ------------------------------------------
+    def _on_screen_resume(self, event) -> None:
+        """Shown again: Textual recomputes every node's styles on each resume; when the
+        stylesheet (theme), the terminal size and this screen's classes are what they were
+        the last time the box was shown, its styles are too, so that is skipped."""
+        version = getattr(self.app, "_css_update_count", None)   # Textual's stylesheet version
+        styled_for = (version, self.app.size, frozenset(self.classes))
+        if version is not None and styled_for == self._styled_for:
+            event.refresh_styles = False
+        super()._on_screen_resume(event)
+        self._styled_for = styled_for
+
     def ask(self, lines: Sequence[str], *, title: str | None = None) -> None:
         """Show new lines in this box before it is pushed again, so the console composes
         it once and every later question only updates two texts."""

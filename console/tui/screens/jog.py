@@ -21,7 +21,7 @@ from benchjog.console.tui.widgets.joint_readout import JointReadout
 from benchjog.console.tui.widgets.keys import DimmedKeyHints, KeyFooter, TooSmall
 from benchjog.console.tui.widgets.sketch import PoseSketch
 from benchjog.console.tui.widgets.status import (Banner, EventLog, JogStatus, LinkStatus, WarningsPanel,
-                                    banner_lines, link_short, link_words)
+                                    banner_lines, link_short, link_words, update_in_place)
 from benchjog.console.tui.widgets.target_input import TargetInput
 from benchjog.kinematics.model import Arm
 
@@ -207,9 +207,9 @@ class JogScreen(DimmedKeyHints, Screen):
 
     def show_message(self, words: str, *, error: bool = False) -> None:
         try:
-            self.query_one("#message", Static).update(
-                Text(words, style="bold red" if error else "green", no_wrap=True,
-                     overflow="ellipsis"))
+            update_in_place(self.query_one("#message", Static),   # one line, fixed height
+                            Text(words, style="bold red" if error else "green", no_wrap=True,
+                                 overflow="ellipsis"))
         except NoMatches:
             pass
 

@@ -9,6 +9,7 @@ from rich.text import Text
 from textual.message import Message
 from textual.widgets import Static
 
+from benchjog.console.tui.widgets.status import update_in_place
 from benchjog.kinematics.accuracy import accuracy_at
 from benchjog.kinematics.model import Arm, Branch
 from benchjog.kinematics.solve import IKResult
@@ -91,6 +92,7 @@ class BranchTable(Static):
         rows = branch_rows(self.arm, ik, active)
         if rows == self.rows and title == self.title:
             return
+        same = len(rows) == len(self.rows)   # one line a row (no_wrap): the same height
         self.ik, self.active, self.title, self.rows = ik, active, title, rows
         self.border_title = title
         table = Table(box=None, expand=True, show_edge=False, pad_edge=False,
@@ -111,7 +113,7 @@ class BranchTable(Static):
                     style = "green" if cell == "usable" else "yellow"
                 cells.append(Text(cell, style=style))
             table.add_row(*cells)
-        self.update(table)
+        update_in_place(self, table, same_size=same)
 
     def other_branch(self) -> Branch | None:
         """The branch one would switch to, when the target has two solutions."""

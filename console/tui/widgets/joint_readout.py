@@ -9,6 +9,7 @@ from rich.table import Table
 from rich.text import Text
 from textual.widgets import Static
 
+from benchjog.console.tui.widgets.status import update_in_place
 from benchjog.kinematics.model import Arm
 from benchjog.kinematics.solve import tool_from_joints
 
@@ -78,6 +79,7 @@ class JointReadout(Static):
         rows = readout_rows(self.arm, actual, target)
         if rows == self.rows:
             return
+        same = len(rows) == len(self.rows)   # one line a row, none wrapped: the same height
         self.rows = rows
         table = Table(box=None, expand=True, show_edge=False, pad_edge=False,
                       collapse_padding=True)
@@ -91,4 +93,4 @@ class JointReadout(Static):
                 err_style = "yellow"
             table.add_row(Text(row[0], style="bold" if i < n_tool else ""), row[1], row[2],
                           Text(row[3], style=err_style), end_section=(i == n_tool - 1))
-        self.update(table)
+        update_in_place(self, table, same_size=same)

@@ -10,7 +10,6 @@ ask the app. Pressing a dimmed key puts that reason on the screen
 
 from __future__ import annotations
 
-from collections import defaultdict
 from dataclasses import dataclass
 from itertools import groupby
 
@@ -91,11 +90,17 @@ def key_rows(screen) -> list[KeyRow]:
 class KeyFooter(Footer):
     """A footer of the screen's most used keys (``screen.FOOTER_KEYS``, binding ids),
     so that it fits 80 columns; the help key is always last. A dimmed key's tooltip
-    says why. Without ``FOOTER_KEYS`` it shows what Textual's footer shows."""
+    says why. Without ``FOOTER_KEYS`` it shows what Textual's footer shows.
 
-    def compose(self):
-        if not self._bindings_ready:
-            return
+    Textual's footer composes all its keys again whenever the screen's bindings may
+    have changed (a key dimmed, the screen covered or shown again: every jog key and
+    every question). This one composes only when the keys shown change; when only a
+    key's dimming or its reason changes, it updates that key in place."""
+
+    _shape: tuple | None = None
+
+    def _entries(self) -> list[tuple[Binding, bool, str]]:
+        """One (binding, enabled, tooltip) per action, in the footer's order."""
         wanted = getattr(self.screen, "FOOTER_KEYS", None)
         active = self.screen.active_bindings
         picked = []
@@ -113,28 +118,64 @@ class KeyFooter(Footer):
         if wanted is not None:
             order = {bid: n for n, bid in enumerate(wanted)}
             picked.sort(key=lambda item: order.get(item[0].id, len(order)))
-        by_action: defaultdict[str, list] = defaultdict(list)
+        by_action: dict[str, tuple[Binding, bool, str]] = {}
         for item in picked:
-            by_action[item[0].action].append(item)
-        self.styles.grid_size_columns = len(by_action)
-        for group, items in groupby(by_action.values(), lambda m: m[0][0].group):
+            by_action.setdefault(item[0].action, item)
+        return list(by_action.values())
+
+    def _shape_of(self, entries) -> tuple:
+        """What the composed keys depend on, apart from dimming and tooltips."""
+        return tuple((b.key, self.app.get_key_display(b), b.description, b.action,
+                      None if b.group is None else (b.group.description, b.group.compact))
+                     for b, _enabled, _tooltip in entries)
+
+    def compose(self):
+        if not self._bindings_ready:
+            return
+        entries = self._entries()
+        self._shape = self._shape_of(entries)
+        self.styles.grid_size_columns = len(entries)
+        for group, items in groupby(entries, lambda entry: entry[0].group):
             items = list(items)
             if group is not None and len(items) > 1:
                 with KeyGroup(classes="-compact" if group.compact else ""):
-                    for multi in items:
-                        binding, enabled, tooltip = multi[0]
+                    for binding, enabled, tooltip in items:
                         yield FooterKey(binding.key, self.app.get_key_display(binding), "",
                                         binding.action, disabled=not enabled,
                                         tooltip=tooltip or binding.description,
                                         classes="-grouped").data_bind(compact=Footer.compact)
                 yield FooterLabel(group.description)
             else:
-                for multi in items:
-                    binding, enabled, tooltip = multi[0]
+                for binding, enabled, tooltip in items:
                     yield FooterKey(binding.key, self.app.get_key_display(binding),
                                     binding.description, binding.action,
                                     disabled=not enabled,
                                     tooltip=tooltip).data_bind(compact=Footer.compact)
+
+    def bindings_changed(self, screen) -> None:
+        if not (self._bindings_ready and screen.app.app_focus and self.is_attached
+                and screen is self.screen and self._shape is not None):
+            super().bindings_changed(screen)   # Textual's way: compose again
+            return
+        entries = self._entries()
+        keys = list(self.query(FooterKey))
+        if self._shape_of(entries) != self._shape or len(keys) != len(entries):
+            self._shape = None   # stale until compose runs again
+            self.call_after_refresh(self.recompose)
+            return
+        by_action = {key.action: key for key in keys}
+        for binding, enabled, tooltip in entries:
+            key = by_action.get(binding.action)
+            if key is None:
+                self._shape = None
+                self.call_after_refresh(self.recompose)
+                return
+            tooltip = tooltip or (binding.description if key.has_class("-grouped") else "")
+            if key._disabled == enabled:   # Textual's FooterKey keeps it in _disabled
+                key._disabled = not enabled
+                key.set_class(not enabled, "-disabled")
+            if key.tooltip != (tooltip or None):
+                key.tooltip = tooltip or None
 
 
 class TooSmall(Static):

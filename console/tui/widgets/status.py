@@ -87,6 +87,17 @@ def banner_lines(state, error: str | None = None, reach_warning: str | None = No
     return out
 
 
+def update_in_place(widget: Static, content, *, same_size: bool = False) -> None:
+    """``widget.update(content)`` without laying out the whole screen again when the
+    widget's size cannot change: its height and width are fixed by the styles (cells,
+    fractions or percent, or unset: filling the container), or the caller knows the new content takes the same room
+    (``same_size``). A layout is what makes a one-line change cost a whole frame."""
+    styles = widget.styles
+    fixed = all(scalar is None or not scalar.is_auto   # None: fills its container
+                for scalar in (styles.height, styles.width))
+    widget.update(content, layout=not (fixed or same_size) or not widget.size)
+
+
 class Banner(Static):
     """Full width, hidden when all is well; red for e-stop/fault/link, yellow for
     conditions the user fixes with a key."""
@@ -160,13 +171,18 @@ class LinkStatus(Static):
         self.border_title = "link"
         self.words = ""
         self.shown: tuple = ()
+        self._lines: int | None = None   # the shown text's height, wrapped
 
     def show(self, words: str, short: str | None = None) -> None:
         self.words = words
         text = short if (short is not None and compact_screen(self)) else words
         if text != self.shown:
-            self.shown = text
-            self.update(text)
+            # as many lines as before once wrapped to the panel: the same size
+            width = self.content_size.width
+            lines = len(Text(text).wrap(self.app.console, width)) if width else None
+            same = lines is not None and lines == self._lines
+            self.shown, self._lines = text, lines
+            update_in_place(self, text, same_size=same)
 
 
 class WarningsPanel(Static):
@@ -183,14 +199,14 @@ class WarningsPanel(Static):
             return
         self.items = items
         if not items:
-            self.update(Text("none", style="green"))
+            update_in_place(self, Text("none", style="green"))
             return
         text = Text()
         for n, item in enumerate(items):
             if n:
                 text.append("\n")
             text.append("! " + item, style="yellow")
-        self.update(text)
+        update_in_place(self, text)
 
 
 class EventLog(Widget):
@@ -226,4 +242,4 @@ class JogStatus(Static):
     def show(self, words: str) -> None:
         if words != self.words:
             self.words = words
-            self.update(words)
+            update_in_place(self, words)
