@@ -90,10 +90,13 @@ async def test_cancel_moves_nothing(planar, key):
         await enabled(pilot, app)
         await pilot.press("up")
         await confirm_shown(pilot, app)
+        # while the box is open the status line says a question waits, not a motion
+        assert app.jog_screen.motion_words().startswith("motion: awaiting your answer")
         await pilot.press(key)
         await idle(pilot, app)
         assert not moves(gate)
         assert "cancelled" in app.message
+        assert app.jog_screen.motion_words() == "motion: idle"
         assert gate.state().joints == pytest.approx(arm.home_joints)
 
 

@@ -340,3 +340,24 @@ def test_workspace_map_against_the_textbook_2r_solution():
                 assert ((col, row) in cells) == expected, (branch, x, y)
                 checked += 1
     assert checked > 500
+
+
+async def test_a_reason_cut_on_the_message_bar_reads_in_full_in_the_events(rig):
+    # at 80 x 24 the one-line message bar ends a long reason with "..."; the events
+    # panel wraps the same entry onto indented lines, every word of it on screen
+    from benchjog.console.tui.widgets.status import EventLog
+
+    arm, gate = rig
+    app = make_app(arm, gate)
+    reason = ("controller refused RESET: ESTOP (the e-stop input is still active: release "
+              "the button, then reset)")
+    async with app.run_test(size=(80, 24)) as pilot:
+        await until(pilot, lambda: isinstance(app.screen, JogScreen))
+        app.jog_screen.log_event("reset", f"failed: {reason}")
+        app.set_message(f"reset failed: {reason}", error=True)
+        await pilot.pause()
+        log = app.jog_screen.query_one(EventLog)
+        shown = str(log.render())
+        assert len(shown.splitlines()) > 1
+        assert all(len(line) <= log.content_size.width for line in shown.splitlines())
+        assert " ".join(shown.split()).endswith(" ".join(f"failed: {reason}".split()))

@@ -97,14 +97,18 @@ class ScreenConfirmer(Confirmer):
         lines = plan[:1] + session + plan[1:]   # the bounds first: in view at 80x24
         title = ("Confirm a jog session before the arm moves" if session and
                  not session[0].startswith("single step") else "Confirm before the arm moves")
+        self.app.asking = True   # the status line says a question is open, not a motion
         try:
-            self.app.call_from_thread(self.app.ask_confirm, lines, title, on_answer)
-        except RuntimeError:
-            return False   # the app is not running
-        while not answered.wait(0.05):
-            if self.app.closing:
-                return False
-        return box["yes"]
+            try:
+                self.app.call_from_thread(self.app.ask_confirm, lines, title, on_answer)
+            except RuntimeError:
+                return False   # the app is not running
+            while not answered.wait(0.05):
+                if self.app.closing:
+                    return False
+            return box["yes"]
+        finally:
+            self.app.asking = False
 
 
 class BenchjogApp(App):
@@ -164,6 +168,7 @@ class BenchjogApp(App):
         self.last_end_joints: tuple[float, ...] | None = None
         self.plan_warnings: list[str] = []
         self.message = ""
+        self.asking = False   # a confirmation box is open (ScreenConfirmer)
         self.busy: MotionRequest | None = None
         self.pending: MotionRequest | None = None
         self.confirm_screen: ConfirmMoveScreen | None = None

@@ -200,7 +200,12 @@ class JogScreen(DimmedKeyHints, Screen):
 
     def motion_words(self) -> str:
         app = self.app
-        words = ("motion: " + app.busy.words(self.arm)) if app.busy is not None else "motion: idle"
+        if app.busy is None:
+            words = "motion: idle"
+        elif getattr(app, "asking", False):   # the box is open: nothing moves before the yes
+            words = "motion: awaiting your answer (" + app.busy.words(self.arm) + ")"
+        else:
+            words = "motion: " + app.busy.words(self.arm)
         if app.pending is not None:
             words += f"; next {app.pending.words(self.arm)}"
         return words

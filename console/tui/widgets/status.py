@@ -228,10 +228,32 @@ class EventLog(Widget):
         self.refresh()
 
     def render(self) -> Text:
+        """The newest entries that fit; a long one wraps onto indented lines, so a reason
+        cut short on the one-line message bar is read here in full."""
         width, height = self.content_size
-        shown = [line if len(line) <= width else line[:max(0, width - 3)] + "..."
-                 for line in list(self.entries)[-max(1, height):]]
+        height = max(1, height)
+        shown: list[str] = []
+        for entry in reversed(self.entries):
+            lines = wrap_entry(entry, width)
+            shown[:0] = lines
+            if len(shown) >= height:
+                break
+        shown = shown[-height:]
         return Text("\n".join(shown) if shown else "no events yet", no_wrap=True)
+
+
+def wrap_entry(entry: str, width: int, indent: str = "  ") -> list[str]:
+    """One event log entry as lines of at most ``width``; continuation lines indented.
+
+    >>> wrap_entry("12:00:00 reset     failed: the e-stop input is still active", 30)
+    ['12:00:00 reset     failed: the', '  e-stop input is still active']
+    """
+    import textwrap
+
+    if width <= len(indent) + 1 or len(entry) <= width:
+        return [entry[:max(1, width)]] if len(entry) > width > 0 else [entry]
+    return textwrap.wrap(entry, width, subsequent_indent=indent, break_long_words=True,
+                         break_on_hyphens=False, drop_whitespace=True) or [""]
 
 
 class JogStatus(Static):
