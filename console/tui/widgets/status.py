@@ -90,8 +90,9 @@ def banner_lines(state, error: str | None = None, reach_warning: str | None = No
 def update_in_place(widget: Static, content, *, same_size: bool = False) -> None:
     """``widget.update(content)`` without laying out the whole screen again when the
     widget's size cannot change: its height and width are fixed by the styles (cells,
-    fractions or percent, or unset: filling the container), or the caller knows the new content takes the same room
-    (``same_size``). A layout is what makes a one-line change cost a whole frame."""
+    fractions or percent, or unset: filling the container), or the caller knows the new
+    content takes the same room (``same_size``). A layout is what makes a one-line change
+    cost a whole frame."""
     styles = widget.styles
     fixed = all(scalar is None or not scalar.is_auto   # None: fills its container
                 for scalar in (styles.height, styles.width))
