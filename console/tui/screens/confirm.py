@@ -74,6 +74,11 @@ class ConfirmMoveScreen(ModalScreen[bool]):
         """Shown again: Textual recomputes every node's styles on each resume; when the
         stylesheet (theme), the terminal size and this screen's classes are what they were
         the last time the box was shown, its styles are too, so that is skipped."""
+        if not hasattr(event, "refresh_styles"):
+            # a Textual without the switch (6.x at the dependency floor): its handler
+            # takes no event, and every resume refreshes the styles
+            super()._on_screen_resume()
+            return
         version = getattr(self.app, "_css_update_count", None)   # Textual's stylesheet version
         styled_for = (version, self.app.size, frozenset(self.classes))
         if version is not None and styled_for == self._styled_for:
