@@ -12,6 +12,7 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+from benchjog.kinematics import planar
 from benchjog.kinematics.model import Arm
 
 TASK_COND_WARN = 10.0  # joint-to-tool Jacobian: "ill-conditioned" above this (a choice made here)
@@ -40,11 +41,8 @@ def position_jacobian_rows(arm: Arm, joints: Sequence[float]) -> list[list[float
     [[-160.0, -160.0], [220.0, 0.0]]
     """
     j1, j2 = arm.joints[0], arm.joints[1]
-    t1 = joints[0] + j1.offset_rad
-    t12 = t1 + joints[1] + j2.offset_rad
-    s1, c1, s12, c12 = math.sin(t1), math.cos(t1), math.sin(t12), math.cos(t12)
-    a1, a2 = j1.a_mm, j2.a_mm
-    rows = [[-a1 * s1 - a2 * s12, -a2 * s12], [a1 * c1 + a2 * c12, a2 * c12]]
+    rows = planar.jacobian_rows(j1.a_mm, j2.a_mm, joints[0] + j1.offset_rad,
+                                joints[1] + j2.offset_rad)
     if not arm.is_scara:
         return rows
     # the quill lowers the tool 1 mm per mm; the roll does not move the tool point

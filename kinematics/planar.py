@@ -225,21 +225,32 @@ def thetas_from_tool_xy_batch(a1_mm: float, a2_mm: float, x_mm: np.ndarray, y_mm
             on_boundary.reshape(shape))
 
 
-def jacobian(a1_mm: float, a2_mm: float, t1_rad: float, t2_rad: float) -> np.ndarray:
-    """The analytic 2x2 Jacobian d(x, y)/d(t1, t2), mm per radian.
+def jacobian_rows(a1_mm: float, a2_mm: float, t1_rad: float, t2_rad: float,
+                  ) -> list[list[float]]:
+    """The analytic 2x2 Jacobian d(x, y)/d(t1, t2), mm per radian, as plain rows (no
+    numpy: the accuracy ``solve`` prints uses it).
 
     Source: Lynch & Park (2017), example 5.1 (from memory). Its determinant is
     a1 a2 sin t2 (zero when stretched or folded).
+
+    >>> [[round(v, 9) for v in row] for row in jacobian_rows(300.0, 200.0, 0.0, math.pi / 2)]
+    [[-200.0, -200.0], [300.0, 0.0]]
+    """
+    s1, c1 = math.sin(t1_rad), math.cos(t1_rad)
+    s12, c12 = math.sin(t1_rad + t2_rad), math.cos(t1_rad + t2_rad)
+    return [[-a1_mm * s1 - a2_mm * s12, -a2_mm * s12],
+            [a1_mm * c1 + a2_mm * c12, a2_mm * c12]]
+
+
+def jacobian(a1_mm: float, a2_mm: float, t1_rad: float, t2_rad: float) -> np.ndarray:
+    """:func:`jacobian_rows` as a 2x2 numpy array.
 
     >>> jacobian(300.0, 200.0, 0.0, math.pi / 2).round(9).tolist()
     [[-200.0, -200.0], [300.0, 0.0]]
     """
     import numpy as np
 
-    s1, c1 = math.sin(t1_rad), math.cos(t1_rad)
-    s12, c12 = math.sin(t1_rad + t2_rad), math.cos(t1_rad + t2_rad)
-    return np.array([[-a1_mm * s1 - a2_mm * s12, -a2_mm * s12],
-                     [a1_mm * c1 + a2_mm * c12, a2_mm * c12]])
+    return np.array(jacobian_rows(a1_mm, a2_mm, t1_rad, t2_rad))
 
 
 def manipulability(a1_mm: float, a2_mm: float, t2_rad: float) -> float:
