@@ -168,8 +168,7 @@ class PointBook:
         """
         path = Path(path)
         text = read_text(path)
-        data, pieces = parse_toml_pieces(text, str(path), ("file",), ("frames", "points"),
-                                         progress=parsing)
+        data, pieces = parse_toml_pieces(text, str(path), _TABLES, _ARRAYS, progress=parsing)
         book = book_from_mapping(data, arm, str(path), progress=progress)
         book.path = path
         book._as_read = text
@@ -249,7 +248,7 @@ class PointBook:
             return self._plain_text(), None
         pieces = self._pieces if keep is self._as_read else None
         if pieces is None:
-            split = toml_pieces(keep, ("file",), ("frames", "points"))
+            split = toml_pieces(keep, _TABLES, _ARRAYS)
             pieces = split[1] if split is not None else None
         if pieces is not None:
             spliced = _spliced(self, keep, pieces)
@@ -261,17 +260,12 @@ class PointBook:
         return toml_text_keeping(keep, self.to_mapping(), header=_HEADER), None
 
     def _point_row(self, p: TaughtPoint) -> dict[str, Any]:
-        """``self.to_mapping()["points"]``'s row of ``p`` without its None values (what
-        tomllib reads back of the plain writer's text for it)."""
-        cart = _display_cartesian(self.arm, p.cartesian) if self.arm.is_scara else p.cartesian
-        row = {"name": p.name, "frame": p.frame, "cartesian": [_r(v) for v in cart],
-               "joints": [_r(j.to_display(v)) for j, v in zip(self.arm.joints, p.joints)],
-               "branch": p.branch.value}
-        if p.taught:
-            row["taught"] = p.taught
-        if p.note:
-            row["note"] = p.note
-        return row
+        """``p``'s row of :meth:`to_mapping` (an empty time stamp or note is None: not
+        written)."""
+        return {"name": p.name, "frame": p.frame,
+                "cartesian": [_r(v) for v in _display_cartesian(self.arm, p.cartesian)],
+                "joints": [_r(j.to_display(v)) for j, v in zip(self.arm.joints, p.joints)],
+                "branch": p.branch.value, "taught": p.taught or None, "note": p.note or None}
 
     def _plain_text(self) -> str:
         """``safe_files.toml_text(self.to_mapping(), header)``, the points written by one
@@ -318,12 +312,7 @@ class PointBook:
             "angle_deg": _r(math.degrees(f.angle_rad)), "z_mm": _r(f.z_mm),
             "taught": self.frame_taught.get(f.name) or None,
         } for f in self.frames.values()]
-        doc["points"] = [{
-            "name": p.name, "frame": p.frame,
-            "cartesian": [_r(v) for v in _display_cartesian(self.arm, p.cartesian)],
-            "joints": [_r(j.to_display(v)) for j, v in zip(self.arm.joints, p.joints)],
-            "branch": p.branch.value, "taught": p.taught or None, "note": p.note or None,
-        } for p in self.points]
+        doc["points"] = [self._point_row(p) for p in self.points]
         return {k: v for k, v in doc.items() if v != []}
 
     # --- lookups -------------------------------------------------------------------
@@ -550,7 +539,8 @@ def _nothing_to_keep(original: str, fresh: str) -> bool:
 
 # --- saving what a person wrote (PointBook.to_text) --------------------------------------
 
-_ARRAYS = ("frames", "points")
+_TABLES = ("file",)              # a points file's tables, read and saved piece by piece
+_ARRAYS = ("frames", "points")   # and its arrays of tables
 _KEY_LINE = re.compile(r"([ \t]*)([A-Za-z0-9_-]+)([ \t]*=[ \t]*)([^\r\n]*?)(\r?\n)?\Z")
 _LINES = re.compile(r"[^\n]*\n|[^\n]+\Z")
 
@@ -581,8 +571,9 @@ def _spliced(book: PointBook, original: str,
     if len(olds["file"]) != 1:
         return None
 
-    def row(kind: str, j: int) -> dict[str, Any]:
-        return book._point_row(book.points[j]) if kind == "points" else head_rows[kind][j]
+    def row(kind: str, j: int) -> dict[str, Any]:   # what tomllib reads back of it
+        return _without_none(book._point_row(book.points[j])) if kind == "points" else \
+            head_rows[kind][j]
 
     same_point = _point_test(book.arm)
 
