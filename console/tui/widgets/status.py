@@ -251,8 +251,8 @@ def wrap_entry(entry: str, width: int, indent: str = "  ") -> list[str]:
     """
     import textwrap
 
-    if width <= len(indent) + 1 or len(entry) <= width:
-        return [entry[:max(1, width)]] if len(entry) > width > 0 else [entry]
+    if len(entry) <= width or width <= len(indent) + 1:   # fits, or no room to wrap into
+        return [entry[:width] if width > 0 else entry]
     return textwrap.wrap(entry, width, subsequent_indent=indent, break_long_words=True,
                          break_on_hyphens=False, drop_whitespace=True) or [""]
 
