@@ -159,17 +159,14 @@ class KeyFooter(Footer):
             return
         entries = self._entries()
         keys = list(self.query(FooterKey))
-        if self._shape_of(entries) != self._shape or len(keys) != len(entries):
+        by_action = {key.action: key for key in keys}
+        if self._shape_of(entries) != self._shape or len(keys) != len(entries) or \
+                any(binding.action not in by_action for binding, _e, _t in entries):
             self._shape = None   # stale until compose runs again
             self.call_after_refresh(self.recompose)
             return
-        by_action = {key.action: key for key in keys}
         for binding, enabled, tooltip in entries:
-            key = by_action.get(binding.action)
-            if key is None:
-                self._shape = None
-                self.call_after_refresh(self.recompose)
-                return
+            key = by_action[binding.action]
             tooltip = tooltip or (binding.description if key.has_class("-grouped") else "")
             if key._disabled == enabled:   # Textual's FooterKey keeps it in _disabled
                 key._disabled = not enabled
