@@ -44,7 +44,7 @@ from typing import Any
 
 import numpy as np
 
-from benchjog.drivers.base import Driver, DriverEvent, DriverState, LinkError
+from benchjog.drivers.base import Driver, DriverEvent, DriverState, LinkError, Mode
 from benchjog.drivers.jog_session import (DEADMAN_S, ActiveSession, SessionBounds, SessionSlot,
                                           SessionStep,
                                           SessionView, frame_of, make_bounds, state_key,
@@ -71,6 +71,7 @@ ESCAPE_STEP_MM = 0.02      # its penetration is sampled every this much motion o
 ESCAPE_SAMPLES_MAX = 20001  # ... with at most this many poses per segment
 ESCAPE_TOL_MM = 1e-6       # rounding allowed when comparing penetrations
 ISSUED_MAX = 64            # proposals waiting for an answer; older ones are dropped
+AHEAD_MAX = 16             # jog plans made ahead of their key (prepare_session_jog)
 
 
 @dataclass(frozen=True)
@@ -350,6 +351,10 @@ class Interlock:
         self.sim = SimHooks(driver) if getattr(driver, "name", "") == "sim" else None
         self.link_error: str | None = None  # why the driver could not be opened, if so
         self._last_end: tuple[float, ...] | None = None  # where the last finished plan ended
+        # Jog plans made ahead of their key (prepare_session_jog), by exactly what
+        # plan_jog was given; each is taken at most once, by propose_jog.
+        self._ahead: dict[tuple, Plan] = {}
+        self._ahead_lock = threading.Lock()
         # The command line: the drives stay off until the person says yes (then the gate
         # switches them on); the console leaves them to the person's drives key.
         self.enable_on_yes = enable_on_yes
@@ -854,12 +859,54 @@ class Interlock:
         shown = ", ".join(f"{j.name} {fmt(j, v)}" for j, v in zip(self._arm.joints, joints))
         return self._propose(f"move joints to {shown}", [plan], start_joints=start)
 
-    def propose_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0) -> Proposal:
-        start = self._settled_state().joints
+    def _jog_inputs(self, start: tuple[float, ...], axis: str, delta: float,
+                    speed_pct: float) -> tuple[Arm, tuple, dict, tuple | None]:
+        """What plan_jog is given for a jog step from ``start``: the arm and arguments,
+        and the key a plan made ahead is kept under (None: not kept, as inside a
+        keep-out zone, where the planner sees a reduced arm)."""
         last = self._last_end
         base = last if last is not None and self._moved_since(last, start) is None else None
         arm, pct = self._planning(start, speed_pct)
-        plan = plan_jog(arm, start, axis, delta, speed_pct=pct, base=base)
+        key = (start, base, axis, float(delta), float(pct)) if arm is self._arm else None
+        return arm, (start, axis, delta), {"speed_pct": pct, "base": base}, key
+
+    def prepare_session_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0) -> bool:
+        """Plan, while nothing waits for it, the jog step a key may soon ask of the
+        active jog session, from where the arm is now. The step :meth:`session_jog` is
+        then asked for (same axis, step and speed, from the very same pose and the same
+        last end) takes this plan instead of planning again, so its first setpoint
+        leaves sooner; it is checked, journaled and bounded exactly as one planned
+        then (the plan is the same: plan_jog is a function of what it is given).
+        Planning only: nothing is issued, journaled or moved. Returns whether a plan
+        was kept (not without a session, nor from a stale or moving pose)."""
+        slot = self._jog_slot()
+        with slot.lock:
+            session = slot.active
+        state = self.state()
+        if session is None or not getattr(state, "fresh", True) or state.queued or (
+                state.mode == Mode.MOVING):
+            return False
+        start = tuple(state.joints)
+        arm, args, options, key = self._jog_inputs(
+            start, axis, delta, self._session_pct(session.bounds, speed_pct))
+        if key is None:
+            return False
+        plan = plan_jog(arm, *args, **options)
+        with self._ahead_lock:
+            for old in [k for k in self._ahead if k[:2] != key[:2]]:
+                del self._ahead[old]   # from a pose the arm has left: it would never match
+            if len(self._ahead) >= AHEAD_MAX:
+                self._ahead.clear()
+            self._ahead[key] = plan
+        return True
+
+    def propose_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0) -> Proposal:
+        start = self._settled_state().joints
+        arm, args, options, key = self._jog_inputs(tuple(start), axis, delta, speed_pct)
+        with self._ahead_lock:
+            plan = self._ahead.pop(key, None) if key is not None else None
+        if plan is None:
+            plan = plan_jog(arm, *args, **options)
         if axis.startswith("j"):
             index = int(axis[1:]) - 1
             joint = self._arm.joints[index]

@@ -138,6 +138,67 @@ async def test_a_held_key_jogs_on_and_stops_after_the_repeats_end(planar):
         assert stopped - released <= DEADMAN_S + 0.5, stopped - released
 
 
+async def test_the_next_step_is_planned_before_its_key(planar, monkeypatch):
+    """While the arm rests in a session, the motion thread plans the steps the next key
+    may ask for; the key then plans nothing, and its step goes where a step planned at
+    the key would (checked on the counts)."""
+    import benchjog.drivers.interlock as gate_module
+
+    monkeypatch.setattr("benchjog.console.tui.app.DEADMAN_S", 5.0)   # a loaded machine
+    calls = [0]
+    real_plan = gate_module.plan_jog
+
+    def counted(*args, **kwargs):
+        calls[0] += 1
+        return real_plan(*args, **kwargs)
+
+    monkeypatch.setattr(gate_module, "plan_jog", counted)
+    arm, gate = planar
+    planned_at_key: list[int] = []
+    real_propose = gate.propose_jog
+
+    def propose(*args, **kwargs):   # the planning done between a key's step and its checks
+        before = calls[0]
+        try:
+            return real_propose(*args, **kwargs)
+        finally:
+            planned_at_key.append(calls[0] - before)
+
+    gate.propose_jog = propose
+    app = make_app(arm, gate)
+    async with app.run_test(size=SIZE) as pilot:
+        await ready(pilot, app)
+        await start_session(pilot, app, gate)   # its own step, then x+, x-, y+, y- ahead
+        assert await until(pilot, lambda: calls[0] >= 5)
+        x0, y0 = xy_from_counts(moves(gate)[-1][2])
+        planned_at_key.clear()
+        for key in ("left", "up"):
+            await pilot.press(key)
+            await idle(pilot, app, gate)
+            await until(pilot, lambda: app._motions.empty(), 20)
+            await pilot.pause(0.2)   # the plans ahead of the next key
+        assert planned_at_key == [0, 0]
+        x, y = xy_from_counts(moves(gate)[-1][2])
+        assert x - x0 == pytest.approx(-1.0, abs=0.2) and y - y0 == pytest.approx(1.0, abs=0.2)
+
+
+async def test_a_session_step_is_shown_once_its_first_setpoint_is_sent(tmp_path):
+    arm = builtin_arm("planar-bench")
+    gate = Interlock.open(arm, "sim", journal=False, time_scale=0.2)   # a step lasts ~0.4 s
+    try:
+        app = make_app(arm, gate)
+        async with app.run_test(size=SIZE) as pilot:
+            await ready(pilot, app)
+            await start_session(pilot, app, gate)
+            status = app.jog_screen.query_one(LinkStatus)
+            await pilot.press("right")
+            assert await until(pilot, lambda: "motion: jog x +1 mm" in status.words)
+            assert moves(gate) and gate.state().queued > 0   # shown while it runs
+            await idle(pilot, app, gate)
+    finally:
+        gate.close()
+
+
 async def test_keys_during_the_question_never_move_later(planar):
     arm, gate = planar
     app = make_app(arm, gate)

@@ -257,11 +257,89 @@ def test_a_refused_step_moves_nothing_and_keeps_the_limits(gate):
         assert joints_deg_from_counts(command[2])[0] >= TABLE["joints"][0]["min"] + 0.5 - 1e-9
 
 
+# -- steps planned ahead of their key (prepare_session_jog) ---------------------------------
+class PlanCount:
+    """Counts the gate's calls of the planner's jog front door (it still plans)."""
+
+    def __init__(self, monkeypatch):
+        import benchjog.drivers.interlock as gate_module
+        self.calls = 0
+        real = gate_module.plan_jog
+
+        def counted(*args, **kwargs):
+            self.calls += 1
+            return real(*args, **kwargs)
+
+        monkeypatch.setattr(gate_module, "plan_jog", counted)
+
+
+def test_a_step_planned_ahead_moves_exactly_as_one_planned_at_its_key(tmp_path, clock,
+                                                                      monkeypatch):
+    """Two gates walk the same steps; one has each step planned ahead. The controller
+    takes the very same setpoints from both, and the ahead one plans nothing at the key."""
+    twin = Interlock.open(ARM, "sim", journal=False, time_scale=50.0, clock=clock)
+    ahead = Interlock.open(ARM, "sim", journal=False, time_scale=50.0, clock=clock)
+    count = PlanCount(monkeypatch)
+    try:
+        for g in (twin, ahead):
+            g.enable()
+            assert g.execute_jog_session(g.propose_jog_session("x", 1.0, step=1.0),
+                                         Answer(True)).completed
+        walk = [("x", 1.0), ("x", 1.0), ("y", -1.0), ("x", -1.0), ("y", 1.0)]
+        for axis, delta in walk:
+            assert twin.session_jog(axis, delta).result.completed
+            assert ahead.prepare_session_jog(axis, -delta)     # a guess that is not taken
+            assert ahead.prepare_session_jog(axis, delta)
+            before = count.calls
+            assert ahead.session_jog(axis, delta).result.completed
+            assert count.calls == before                      # the key planned nothing
+        assert moves(ahead) == moves(twin)
+    finally:
+        twin.close()
+        ahead.close()
+    x0, y0 = xy_from_deg(*joints_deg_from_counts((0, 0)))
+    x, y = tool_xy(ahead)
+    assert x - x0 == pytest.approx(2.0, abs=0.2) and y - y0 == pytest.approx(0.0, abs=0.2)
+
+
+def test_a_step_planned_from_a_pose_the_arm_has_left_is_planned_again(gate, monkeypatch):
+    start(gate)
+    x0, y0 = tool_xy(gate)
+    assert gate.prepare_session_jog("x", 1.0)
+    count = PlanCount(monkeypatch)
+    assert gate.session_jog("y", 1.0).result.completed          # the arm moves elsewhere
+    assert gate.session_jog("x", 1.0).result.completed
+    assert count.calls == 2                                      # both planned at their key
+    x, y = tool_xy(gate)
+    assert x - x0 == pytest.approx(1.0, abs=0.2) and y - y0 == pytest.approx(1.0, abs=0.2)
+
+
+def test_a_step_planned_ahead_still_ends_the_session_at_the_envelope(gate):
+    start(gate, delta=2.0, step=2.0, box_mm=5.0)
+    assert gate.session_jog("x", 2.0).result.completed          # 4 mm of 5
+    sent = len(moves(gate))
+    assert gate.prepare_session_jog("x", 2.0)                    # planned: 6 mm, outside
+    step = gate.session_jog("x", 2.0)
+    assert step.result is None and "envelope" in step.ended
+    assert len(moves(gate)) == sent and gate.jog_session() is None
+
+
+def test_nothing_is_planned_ahead_without_a_session(gate):
+    assert not gate.prepare_session_jog("x", 1.0)
+    _, _, result = start(gate, yes=False)
+    assert result.outcome == "cancelled" and not gate.prepare_session_jog("x", 1.0)
+    start(gate)
+    gate.end_jog_session("the branch was changed")
+    assert not gate.prepare_session_jog("x", 1.0)
+
+
 # -- random sequences with an independent checker ------------------------------------------
 OPS = st.lists(st.one_of(
     st.tuples(st.just("start"), st.sampled_from(["x", "y", "j1", "j2"]),
               st.sampled_from([-1, 1]), st.sampled_from([0.1, 1.0, 10.0]), st.booleans()),
     st.tuples(st.just("jog"), st.sampled_from(["x", "y", "j1", "j2"]), st.sampled_from([-1, 1]),
+              st.sampled_from([0.1, 1.0, 10.0]), st.booleans()),
+    st.tuples(st.just("ahead"), st.sampled_from(["x", "y", "j1", "j2"]), st.sampled_from([-1, 1]),
               st.sampled_from([0.1, 1.0, 10.0]), st.booleans()),
     st.tuples(st.sampled_from(["stop", "branch", "idle", "estop", "fault", "reset", "move"]),
               st.just("x"), st.just(1), st.just(1.0), st.booleans()),
@@ -309,6 +387,8 @@ def test_random_session_sequences_never_leave_the_envelope_or_move_without_a_yes
                     allowed_session_steps[out.token] = model
                 if out.ended:
                     model = None
+            elif op == "ahead":   # a step planned ahead of its key: changes nothing by itself
+                g.prepare_session_jog(axis, _delta(axis, sign, step))
             else:
                 model = None
                 if op == "stop":

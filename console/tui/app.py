@@ -25,7 +25,7 @@ from textual import work
 from textual.app import App
 from textual.binding import Binding
 
-from benchjog.console.tui.messages import ControlDone, MotionDone, StateUpdated
+from benchjog.console.tui.messages import ControlDone, MotionDone, MotionStarted, StateUpdated
 from benchjog.console.tui.screens.confirm import ConfirmMoveScreen
 from benchjog.console.tui.screens.help import HelpScreen
 from benchjog.console.tui.screens.jog import JogScreen
@@ -181,16 +181,39 @@ class BenchjogApp(App):
         # (a Textual worker per motion would start only after the next redraw)
         self._motions: queue.SimpleQueue[MotionRequest | None] = queue.SimpleQueue()
         self._motion_thread: threading.Thread | None = None
+        self._show_at_first_setpoint = False   # a session step: redraw once it is sent
+        self._unwatch = None
         self.jog_screen = JogScreen(arm)
+
+    # Textual asks for the current theme on every line it renders, and its answer copies
+    # the table of every registered theme each time (about a hundred copies per key's
+    # frame). The console never changes theme (no command palette), so the answer is
+    # kept, under the theme's name and for the theme object Textual itself gives.
+    _theme_kept: tuple[str, object] | None = None
+
+    @property
+    def current_theme(self):
+        name = self.theme
+        kept = self._theme_kept
+        if kept is None or kept[0] != name:
+            kept = self._theme_kept = (name, App.current_theme.fget(self))
+        return kept[1]
+
+    def register_theme(self, theme) -> None:
+        self._theme_kept = None
+        super().register_theme(theme)
 
     # -- life cycle --------------------------------------------------------------------
     def on_mount(self) -> None:
+        self._unwatch = self.interlock.watch(self._gate_record)
         self.push_screen(self.jog_screen)
         self.set_interval(POLL_S, self._poll_tick)
         self._poll_tick()
 
     def on_unmount(self) -> None:
         self.closing = True
+        if self._unwatch is not None:
+            self._unwatch()
         self._motions.put(None)   # the motion thread ends after the motion it runs, if any
         # A teach screen used only through the jog screen's `a` was never shown, so it is
         # never unmounted, and Textual has emptied the installed screens by now: close
@@ -387,15 +410,17 @@ class BenchjogApp(App):
         return self.planned_joints() if self.target is not None else self.last_end_joints
 
     # -- motion ------------------------------------------------------------------------
-    def jog(self, axis: str, sign: int) -> None:
+    def jog_delta(self, axis: str, sign: int) -> float:
+        """The step of a jog key on ``axis`` (mm or rad) at the present step size."""
         if axis.startswith("j"):
-            joint = self.arm.joints[int(axis[1:]) - 1]
-            delta = joint.from_display(sign * self.step)
-        elif axis == "roll":
-            delta = math.radians(sign * self.step)
-        else:
-            delta = sign * self.step
-        self.request_motion(MotionRequest("jog", axis=axis, delta=delta, key_at=time.monotonic()))
+            return self.arm.joints[int(axis[1:]) - 1].from_display(sign * self.step)
+        if axis == "roll":
+            return math.radians(sign * self.step)
+        return sign * self.step
+
+    def jog(self, axis: str, sign: int) -> None:
+        self.request_motion(MotionRequest("jog", axis=axis, delta=self.jog_delta(axis, sign),
+                                          key_at=time.monotonic()))
 
     def move_to_target(self) -> None:
         if self.target is None:
@@ -418,11 +443,22 @@ class BenchjogApp(App):
         self.busy = request
         self.plan_warnings = []
         asks = request.kind != "jog" or self.interlock.jog_session() is None
-        self._start_motion(request)   # first: the key's setpoint does not wait for a redraw
-        if not asks:
-            self.refresh_view()   # a step in a session: the screen says it is moving
-        # else a question (or a refusal) follows within milliseconds and redraws; a
-        # redraw now would only delay it (the poll redraws anyway within POLL_S)
+        # No redraw here: it would hold the interpreter while the motion thread plans and
+        # sends the key's first setpoint. A step in a session is shown once that setpoint
+        # is sent (MotionStarted); a question (or a refusal) follows within milliseconds
+        # and redraws; the poll redraws anyway within POLL_S.
+        self._show_at_first_setpoint = not asks
+        self._start_motion(request)
+
+    def _gate_record(self, kind: str, **fields) -> None:
+        """Watches the gate's records (on the motion thread): the first segment sent of
+        a session step asks the UI to show it."""
+        if kind == "segment" and fields.get("n") == 1 and self._show_at_first_setpoint:
+            self._show_at_first_setpoint = False
+            self.post_message(MotionStarted())
+
+    def on_motion_started(self, message: MotionStarted) -> None:
+        self.refresh_view()
 
     def _start_motion(self, request: MotionRequest) -> None:
         """Hand the request to the motion thread (started on first use), which runs
@@ -436,6 +472,31 @@ class BenchjogApp(App):
     def _motion_loop(self) -> None:
         while (request := self._motions.get()) is not None:
             self._motion_worker(request)
+            if request.kind == "jog":
+                self._plan_ahead(request)
+
+    def _plan_ahead(self, done: MotionRequest) -> None:
+        """Runs in the motion thread while it has nothing to do: inside a jog session,
+        plan the steps the next key may ask for (the same key first, then its
+        opposite, then the other keys of the frame), so that the key's first setpoint
+        does not wait for planning (Interlock.prepare_session_jog). Stops as soon as a
+        request comes; planning ahead is only a head start, and any trouble with it
+        leaves the step to be planned when its key comes."""
+        gate = self.interlock
+        sign = 1 if done.delta >= 0 else -1
+        if done.axis.startswith("j"):
+            axes = [f"j{i + 1}" for i in range(self.arm.n_joints)]
+        else:
+            axes = ["x", "y", "z", "roll"] if self.arm.is_scara else ["x", "y"]
+        likely = [(done.axis, sign), (done.axis, -sign)]
+        likely += [(axis, s) for axis in axes if axis != done.axis for s in (1, -1)]
+        for axis, s in likely:
+            if not self._motions.empty() or self.closing or gate.jog_session() is None:
+                return
+            try:
+                gate.prepare_session_jog(axis, self.jog_delta(axis, s), speed_pct=self.speed_pct)
+            except Exception:  # noqa: BLE001 - the key plans the step itself then
+                return
 
     def _motion_worker(self, request: MotionRequest) -> None:
         """Runs in the motion thread; the result always comes back as MotionDone."""
@@ -521,6 +582,7 @@ class BenchjogApp(App):
 
     def on_motion_done(self, message: MotionDone) -> None:
         self.busy = None
+        self._show_at_first_setpoint = False
         if message.session_end and message.session_end != "no jog session":
             self.jog_screen.log_event("session", f"ended: {message.session_end}")
         self.plan_warnings = [f"last plan: {w}" for w in message.warnings]

@@ -36,6 +36,12 @@ class MotionDone(Message):
     session_end: str | None = None  # why the jog session ended on this request, if it did
 
 
+class MotionStarted(Message):
+    """The first setpoint of a jog-session step has gone to the controller (the screen
+    says it moves from then on, not before: a redraw at the key would hold up the
+    motion thread that sends the setpoint)."""
+
+
 @dataclass
 class ControlDone(Message):
     """enable / disable / reset finished (``error`` one line when it failed)."""

@@ -33,6 +33,7 @@ import cProfile
 import io
 import os
 import pstats
+import random
 import statistics
 import threading
 import time
@@ -50,6 +51,11 @@ from benchjog.drivers.interlock import Interlock
 from benchjog.drivers.jog_session import DEADMAN_S
 
 FRAME_S = 1 / 60
+# Textual draws on a fixed 60 Hz grid (TEXTUAL_FPS); the pauses between keys here are
+# whole numbers of frames, so every key would land at the same point of that grid. A
+# random wait of up to one frame before each timed key spreads them over it, as a
+# person's keys are (seeded: the same spread every run).
+PHASE = random.Random(16)
 SIZE = (120, 40)
 LINES = [f"line {n} of a confirmation" for n in range(14)]
 SHOWN = int(os.environ.get("BENCH_PROFILE_LINES", "14"))   # lines per profile
@@ -166,6 +172,15 @@ async def until(pilot, condition, timeout_s: float = 5.0) -> bool:
     return condition()
 
 
+def repeat_key(app, key: str) -> None:
+    """A terminal's key repeat: the key event handed to the driver, without the pilot's
+    wait for an idle process after each key (which lasts up to 2 s while the arm moves
+    and the idle watch polls, so that a pilot's "30 Hz" would be one key per 2 s)."""
+    event = events.Key(key, None)
+    event.set_sender(app)
+    app._driver.send_message(event)
+
+
 class Timing:
     """Key-to-frame (from the key event) and pilot-to-frame (from the press call)."""
 
@@ -174,6 +189,7 @@ class Timing:
         self.pilot: list[float] = []
 
     async def press(self, pilot, frames: Frames, key: str, words: str) -> float | None:
+        await pilot.pause(PHASE.uniform(0.0, FRAME_S))   # a person's key, not in step with frames
         frames.clear()
         t0 = time.monotonic()
         await pilot.press(key)
@@ -280,8 +296,8 @@ async def console_session(runs: int, frames: Frames) -> dict[str, object]:
                 watch.active.set()
                 for _ in range(9):
                     last = time.monotonic()   # the last repeat's key
-                    await pilot.press(key)
-                    await pilot.pause(1 / 30)
+                    repeat_key(app, key)
+                    await asyncio.sleep(1 / 30)
                 await until(pilot, lambda: app.busy is None and gate.state().queued == 0, 3.0)
                 await pilot.pause(0.02)
                 watch.active.clear()
