@@ -24,7 +24,9 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from rich.text import Text
+from rich.segment import Segment
+from rich.style import Style
+from textual.strip import Strip
 from textual.widget import Widget
 
 from benchjog.kinematics.model import Arm, Zone
@@ -116,9 +118,11 @@ class View:
 class Canvas:
     """A grid of characters; writes outside it are dropped."""
 
-    def __init__(self, cols: int, rows: int):
+    def __init__(self, cols: int, rows: int, lines: Sequence[str] | None = None):
+        """A blank grid, or one starting from ``lines`` (``rows`` lines of ``cols``)."""
         self.cols, self.rows = cols, rows
-        self.cells = [[" "] * cols for _ in range(rows)]
+        self.cells = ([list(line) for line in lines] if lines is not None
+                      else [[" "] * cols for _ in range(rows)])
 
     def put(self, col: int, row: int, char: str) -> None:
         if 0 <= col < self.cols and 0 <= row < self.rows:
@@ -256,6 +260,25 @@ def branch_words(arm: Arm, joints: Sequence[float]) -> str:
     return "elbow-down" if math.sin(t2) >= 0 else "elbow-up"
 
 
+@functools.lru_cache(maxsize=32)
+def _top_background(arm: Arm, view: View, reaches: tuple[str, float, float] | None
+                    ) -> tuple[str, ...]:
+    """What the top view draws under the arm: the cells the branch reaches
+    (``reaches``: branch, z, roll; None for none), the reach circles and the keep-out
+    zones. It changes only with the arm, the view, the branch and the height and roll,
+    so it is drawn once for each and kept (the arm is then drawn over a copy)."""
+    canvas = Canvas(view.cols, view.rows)
+    if reaches is not None:
+        for col, row in workspace_cells(arm, *reaches, view):
+            canvas.put(col, row, WORKSPACE)
+    draw_circle(canvas, view, arm.max_reach_mm, REACH)
+    if arm.min_reach_mm > 0:
+        draw_circle(canvas, view, arm.min_reach_mm, REACH)
+    for zone in arm.zones:
+        hatch_zone(canvas, view, zone)
+    return tuple(canvas.lines())
+
+
 def render_top(arm: Arm, joints: Sequence[float], *, width: int, height: int,
                target: Sequence[float] | None = None,
                other_joints: Sequence[float] | None = None,
@@ -265,7 +288,6 @@ def render_top(arm: Arm, joints: Sequence[float], *, width: int, height: int,
                note: str | None = None, workspace: bool = True) -> list[str]:
     """The top view alone (see :func:`render_sketch`); ``workspace`` dots the cells
     the present branch reaches (:func:`workspace_cells`)."""
-    canvas = Canvas(width, height)
     reach = arm.max_reach_mm
     x0, x1, y0, y1 = -reach, reach, -reach, reach
     for zone in arm.zones:
@@ -275,16 +297,12 @@ def render_top(arm: Arm, joints: Sequence[float], *, width: int, height: int,
         x0, x1 = min(x0, target[0]), max(x1, target[0])
         y0, y1 = min(y0, target[1]), max(y1, target[1])
     view = View.fit(x0, x1, y0, y1, width, height)
+    reaches = None
     if workspace and _finite(joints):
         tool = tool_from_joints(arm, tuple(joints))
         z, roll = (round(tool[2], 1), round(tool[3], 3)) if arm.is_scara else (0.0, 0.0)
-        for col, row in workspace_cells(arm, branch_words(arm, joints), z, roll, view):
-            canvas.put(col, row, WORKSPACE)
-    draw_circle(canvas, view, arm.max_reach_mm, REACH)
-    if arm.min_reach_mm > 0:
-        draw_circle(canvas, view, arm.min_reach_mm, REACH)
-    for zone in arm.zones:
-        hatch_zone(canvas, view, zone)
+        reaches = (branch_words(arm, joints), z, roll)
+    canvas = Canvas(width, height, _top_background(arm, view, reaches))
     if _finite(envelope):
         draw_box(canvas, view, envelope, ENVELOPE)
     if _finite(other_joints):
@@ -476,6 +494,8 @@ class PoseSketch(Widget):
         self.envelope: tuple[float, ...] | None = None
         self.note: str | None = None
         self.lines: list[str] = []
+        self._drawn_at: tuple[int, int] | None = None   # the size self.lines were drawn at
+        self._line_style = None
 
     def show(self, joints, *, target=None, other_joints=None, planned_joints=None,
              envelope=None, note=None) -> None:
@@ -483,6 +503,7 @@ class PoseSketch(Widget):
         if (envelope, note) != (self.envelope, self.note):
             self.envelope = tuple(envelope) if envelope is not None else None
             self.note = note
+            self._drawn_at = None
             self.refresh()
         new = (tuple(joints) if joints is not None else None,
                tuple(target) if target is not None else None,
@@ -491,17 +512,37 @@ class PoseSketch(Widget):
         old = (self.joints, self.target, self.other_joints, self.planned_joints)
         if new != old:
             self.joints, self.target, self.other_joints, self.planned_joints = new
+            self._drawn_at = None
             self.refresh()
 
-    def render(self) -> Text:
+    def drawn(self) -> list[str]:
+        """The lines of the sketch at the panel's present size, drawn once per change."""
         width, height = self.content_size
-        if self.joints is None:
-            return Text("waiting for the arm's position...")
-        legend = legend_lines(width) if height >= 12 else []
-        lines = render_sketch(self.arm, self.joints, width=width, height=height - len(legend),
-                              target=self.target, other_joints=self.other_joints,
-                              planned_joints=self.planned_joints, envelope=self.envelope,
-                              note=self.note)
-        lines += legend
-        self.lines = lines
-        return Text("\n".join(lines), no_wrap=True, overflow="crop")
+        if self._drawn_at != (width, height):
+            if self.joints is None:
+                lines = ["waiting for the arm's position..."]
+            else:
+                legend = legend_lines(width) if height >= 12 else []
+                lines = render_sketch(self.arm, self.joints, width=width,
+                                      height=height - len(legend), target=self.target,
+                                      other_joints=self.other_joints,
+                                      planned_joints=self.planned_joints,
+                                      envelope=self.envelope, note=self.note) + legend
+            self.lines, self._drawn_at = lines, (width, height)
+        return self.lines
+
+    def render_lines(self, crop):
+        self._line_style = self.rich_style   # one look-up of the styles per frame, not per line
+        try:
+            return super().render_lines(crop)
+        finally:
+            self._line_style = None
+
+    def render_line(self, y: int) -> Strip:
+        """One line of plain characters (Textual's line API: no text layout per frame)."""
+        lines = self.drawn()
+        width = self.content_size.width
+        text = lines[y][:width] if y < len(lines) else ""
+        style = self._line_style or self.rich_style
+        strip = Strip([Segment(text, style)], len(text))
+        return strip.extend_cell_length(width, Style(bgcolor=style.bgcolor))
