@@ -45,8 +45,8 @@ from typing import Any
 import numpy as np
 
 from benchjog.drivers.base import Driver, DriverEvent, DriverState, LinkError, Mode
-from benchjog.drivers.jog_session import (DEADMAN_S, ActiveSession, SessionBounds, SessionSlot,
-                                          SessionStep,
+from benchjog.drivers.jog_session import (DEADMAN_S, TEACH_SPEED_MAX_MM_S, ActiveSession,
+                                          SessionBounds, SessionSlot, SessionStep,
                                           SessionView, frame_of, make_bounds, state_key,
                                           step_problems)
 from benchjog.drivers.journal import Journal, NullJournal
@@ -871,26 +871,31 @@ class Interlock:
         return arm, (start, axis, delta), {"speed_pct": pct, "base": base}, key
 
     def prepare_session_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0) -> bool:
-        """Plan, while nothing waits for it, the jog step a key may soon ask of the
-        active jog session, from where the arm is now. The step :meth:`session_jog` is
-        then asked for (same axis, step and speed, from the very same pose and the same
-        last end) takes this plan instead of planning again, so its first setpoint
-        leaves sooner; it is checked, journaled and bounded exactly as one planned
-        then (the plan is the same: plan_jog is a function of what it is given).
-        Planning only: nothing is issued, journaled or moved. Returns whether a plan
-        was kept (not without a session, nor from a stale or moving pose)."""
+        """Plan, while nothing waits for it, the jog step a key may soon ask for, from
+        where the arm rests now: a step of the active jog session, or with none the
+        first step a jog key offers as a new session (at the session's default speed
+        cap). The step then asked for (same axis, step and speed, from the very same
+        pose and the same last end) takes this plan instead of planning again, so its
+        first setpoint (or its question) comes sooner; it is checked, journaled,
+        confirmed and bounded exactly as one planned then (the plan is the same:
+        plan_jog is a function of what it is given). Planning only: nothing is
+        issued, journaled or moved. Returns whether a plan is kept (not from a stale
+        or moving pose, nor inside a keep-out zone)."""
         slot = self._jog_slot()
         with slot.lock:
             session = slot.active
         state = self.state()
-        if session is None or not getattr(state, "fresh", True) or state.queued or (
-                state.mode == Mode.MOVING):
+        if not getattr(state, "fresh", True) or state.queued or state.mode == Mode.MOVING:
             return False
+        cap = session.bounds.speed_cap_mm_s if session is not None else TEACH_SPEED_MAX_MM_S
         start = tuple(state.joints)
-        arm, args, options, key = self._jog_inputs(
-            start, axis, delta, self._session_pct(session.bounds, speed_pct))
+        arm, args, options, key = self._jog_inputs(start, axis, delta,
+                                                   self._capped_pct(cap, speed_pct))
         if key is None:
             return False
+        with self._ahead_lock:
+            if key in self._ahead:
+                return True   # planned already
         plan = plan_jog(arm, *args, **options)
         with self._ahead_lock:
             for old in [k for k in self._ahead if k[:2] != key[:2]]:
@@ -1275,7 +1280,10 @@ class Interlock:
 
     def _session_pct(self, bounds: SessionBounds, speed_pct: float) -> float:
         """The speed override that keeps the tool under the session's cap."""
-        return min(float(speed_pct), 100.0 * bounds.speed_cap_mm_s / self._arm.tool_speed_max_mm_s)
+        return self._capped_pct(bounds.speed_cap_mm_s, speed_pct)
+
+    def _capped_pct(self, cap_mm_s: float, speed_pct: float) -> float:
+        return min(float(speed_pct), 100.0 * cap_mm_s / self._arm.tool_speed_max_mm_s)
 
     def propose_jog_session(self, axis: str, delta: float, *, step: float,
                             speed_pct: float = 100.0, **bounds_options: Any) -> Proposal:

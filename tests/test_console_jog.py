@@ -138,13 +138,11 @@ async def test_a_held_key_jogs_on_and_stops_after_the_repeats_end(planar):
         assert stopped - released <= DEADMAN_S + 0.5, stopped - released
 
 
-async def test_the_next_step_is_planned_before_its_key(planar, monkeypatch):
-    """While the arm rests in a session, the motion thread plans the steps the next key
-    may ask for; the key then plans nothing, and its step goes where a step planned at
-    the key would (checked on the counts)."""
+def count_planning(gate, monkeypatch) -> tuple[list[int], list[int]]:
+    """(all calls of the gate's jog planner so far, the planner calls made inside each
+    propose_jog: the planning a key's step waited for)."""
     import benchjog.drivers.interlock as gate_module
 
-    monkeypatch.setattr("benchjog.console.tui.app.DEADMAN_S", 5.0)   # a loaded machine
     calls = [0]
     real_plan = gate_module.plan_jog
 
@@ -153,11 +151,10 @@ async def test_the_next_step_is_planned_before_its_key(planar, monkeypatch):
         return real_plan(*args, **kwargs)
 
     monkeypatch.setattr(gate_module, "plan_jog", counted)
-    arm, gate = planar
     planned_at_key: list[int] = []
     real_propose = gate.propose_jog
 
-    def propose(*args, **kwargs):   # the planning done between a key's step and its checks
+    def propose(*args, **kwargs):
         before = calls[0]
         try:
             return real_propose(*args, **kwargs)
@@ -165,19 +162,49 @@ async def test_the_next_step_is_planned_before_its_key(planar, monkeypatch):
             planned_at_key.append(calls[0] - before)
 
     gate.propose_jog = propose
+    return calls, planned_at_key
+
+
+async def test_the_first_jog_key_is_planned_before_it_and_still_asks(planar, monkeypatch):
+    arm, gate = planar
+    calls, planned_at_key = count_planning(gate, monkeypatch)
     app = make_app(arm, gate)
     async with app.run_test(size=SIZE) as pilot:
         await ready(pilot, app)
-        await start_session(pilot, app, gate)   # its own step, then x+, x-, y+, y- ahead
-        assert await until(pilot, lambda: calls[0] >= 5)
-        x0, y0 = xy_from_counts(moves(gate)[-1][2])
-        planned_at_key.clear()
-        for key in ("left", "up"):
-            await pilot.press(key)
-            await idle(pilot, app, gate)
-            await until(pilot, lambda: app._motions.empty(), 20)
-            await pilot.pause(0.2)   # the plans ahead of the next key
-        assert planned_at_key == [0, 0]
+        assert await until(pilot, lambda: calls[0] >= 4)   # x+, x-, y+, y- while it rests
+        asked = count_questions(app)
+        await pilot.press("right")
+        assert await until(pilot, lambda: isinstance(app.screen, ConfirmMoveScreen))
+        assert planned_at_key == [0] and len(asked) == 1
+        assert any("jog session" in line for line in asked[0])
+        await pilot.press("n")
+        await idle(pilot, app, gate)
+        await pilot.pause(2 * DEADMAN_S)
+        assert moves(gate) == [] and app.session_view() is None
+
+
+async def test_the_next_step_is_planned_before_its_key(planar, monkeypatch):
+    """While the arm rests in a session, the motion thread plans the steps the next key
+    may ask for; the key then plans nothing, and its step goes where a step planned at
+    the key would (checked on the counts)."""
+    monkeypatch.setattr("benchjog.console.tui.app.DEADMAN_S", 5.0)   # a loaded machine
+    arm, gate = planar
+    calls, planned_at_key = count_planning(gate, monkeypatch)
+    app = make_app(arm, gate)
+    async with app.run_test(size=SIZE) as pilot:
+        await ready(pilot, app)
+        assert await until(pilot, lambda: calls[0] >= 4)   # x+, x-, y+, y- while it rests
+        for key in ("right", "left", "up"):   # the first one opens the session
+            before = calls[0]
+            if key == "right":
+                await start_session(pilot, app, gate)
+                x0, y0 = xy_from_counts(moves(gate)[-1][2])
+            else:
+                await pilot.press(key)
+                await idle(pilot, app, gate)
+            # the four steps of the frame, planned again from the pose the step ended at
+            assert await until(pilot, lambda: calls[0] >= before + 4)
+        assert planned_at_key == [0, 0, 0]
         x, y = xy_from_counts(moves(gate)[-1][2])
         assert x - x0 == pytest.approx(-1.0, abs=0.2) and y - y0 == pytest.approx(1.0, abs=0.2)
 

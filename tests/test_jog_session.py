@@ -10,6 +10,8 @@ project's kinematics."""
 from __future__ import annotations
 
 import math
+import threading
+import time
 import tomllib
 from pathlib import Path
 
@@ -324,13 +326,31 @@ def test_a_step_planned_ahead_still_ends_the_session_at_the_envelope(gate):
     assert len(moves(gate)) == sent and gate.jog_session() is None
 
 
-def test_nothing_is_planned_ahead_without_a_session(gate):
-    assert not gate.prepare_session_jog("x", 1.0)
-    _, _, result = start(gate, yes=False)
-    assert result.outcome == "cancelled" and not gate.prepare_session_jog("x", 1.0)
-    start(gate)
-    gate.end_jog_session("the branch was changed")
-    assert not gate.prepare_session_jog("x", 1.0)
+def test_a_first_step_planned_ahead_still_asks_and_a_no_moves_nothing(gate, monkeypatch):
+    """With no session, the step planned ahead is the first step a jog key offers: the
+    key plans nothing, the question is asked all the same, and a no moves nothing."""
+    assert gate.prepare_session_jog("x", 1.0)
+    count = PlanCount(monkeypatch)
+    proposal = gate.propose_jog_session("x", 1.0, step=1.0)
+    assert count.calls == 0 and proposal.ok
+    answer = Answer(False)
+    assert gate.execute_jog_session(proposal, answer).outcome == "cancelled"
+    assert answer.asked == 1 and moves(gate) == [] and gate.jog_session() is None
+
+
+def test_nothing_is_planned_ahead_while_the_arm_moves(clock):
+    g = Interlock.open(ARM, "sim", journal=False, time_scale=0.5, clock=clock)  # ~0.2 s move
+    runner = threading.Thread(target=lambda: g.execute(g.propose_jog("x", 10.0), Answer(True)))
+    try:
+        g.enable()
+        runner.start()
+        deadline = time.monotonic() + 5.0
+        while not g.state().queued and time.monotonic() < deadline:
+            time.sleep(0.001)
+        assert g.state().queued and not g.prepare_session_jog("x", 1.0)
+    finally:
+        runner.join(10.0)
+        g.close()
 
 
 # -- random sequences with an independent checker ------------------------------------------

@@ -39,6 +39,7 @@ from benchjog.kinematics.solve import IKResult, joints_from_tool, pose_warnings,
 POLL_S = 0.15               # the heartbeat / state refresh period
 STEPS = (0.1, 1.0, 10.0)    # jog steps: mm (Cartesian), deg (roll and revolute joints), mm (quill)
 TEACH_MODULE = "benchjog.console.tui.screens.teach"
+AHEAD = "ahead"             # a request to the motion thread: plan the likely jog steps now
 BLOCKING_MODES = ("ESTOP", "FAULT")
 
 
@@ -51,7 +52,7 @@ def one_line(exc: BaseException) -> str:
 class MotionRequest:
     """What a person asked for; planned in the worker from the arm's position then."""
 
-    kind: str                                  # "jog", "move", "home"
+    kind: str                                  # "jog", "move", "home" (or AHEAD)
     axis: str = ""                             # jog: x, y, z, roll, j1..j4
     delta: float = 0.0                         # jog: mm or rad
     target: tuple[float, ...] | None = None    # move: tool target (mm, rad)
@@ -182,6 +183,7 @@ class BenchjogApp(App):
         self._motions: queue.SimpleQueue[MotionRequest | None] = queue.SimpleQueue()
         self._motion_thread: threading.Thread | None = None
         self._show_at_first_setpoint = False   # a session step: redraw once it is sent
+        self._ahead_for: tuple | None = None    # what the jog steps were planned ahead for
         self._unwatch = None
         self.jog_screen = JogScreen(arm)
 
@@ -327,6 +329,7 @@ class BenchjogApp(App):
         show_state = getattr(stack[-1], "show_state", None) if stack else None
         if show_state is not None:  # the teach screen, when it is up
             show_state(self.state)
+        self._ask_plan_ahead()
         readiness = (self.ready(), self.latched(), self.busy is not None, self.joint_mode,
                      self.target is not None, self.branch, self._state_bits())
         if readiness != self._readiness:
@@ -471,32 +474,51 @@ class BenchjogApp(App):
 
     def _motion_loop(self) -> None:
         while (request := self._motions.get()) is not None:
-            self._motion_worker(request)
-            if request.kind == "jog":
-                self._plan_ahead(request)
+            if request.kind != AHEAD:
+                self._motion_worker(request)
+            self._plan_ahead(request)
 
-    def _plan_ahead(self, done: MotionRequest) -> None:
-        """Runs in the motion thread while it has nothing to do: inside a jog session,
-        plan the steps the next key may ask for (the same key first, then its
-        opposite, then the other keys of the frame), so that the key's first setpoint
-        does not wait for planning (Interlock.prepare_session_jog). Stops as soon as a
-        request comes; planning ahead is only a head start, and any trouble with it
-        leaves the step to be planned when its key comes."""
+    def _plan_ahead(self, last: MotionRequest) -> None:
+        """Runs in the motion thread while it has nothing to do: plan the jog steps the
+        next key may ask for, from where the arm rests (the key of the last jog first,
+        then its opposite, then the other keys of the frame), so that the key's first
+        setpoint, or its question, does not wait for planning
+        (Interlock.prepare_session_jog). Stops as soon as a request comes; planning
+        ahead is only a head start, and any trouble with it leaves the step to be
+        planned when its key comes."""
         gate = self.interlock
-        sign = 1 if done.delta >= 0 else -1
-        if done.axis.startswith("j"):
+        if self.joint_mode:
             axes = [f"j{i + 1}" for i in range(self.arm.n_joints)]
         else:
             axes = ["x", "y", "z", "roll"] if self.arm.is_scara else ["x", "y"]
-        likely = [(done.axis, sign), (done.axis, -sign)]
-        likely += [(axis, s) for axis in axes if axis != done.axis for s in (1, -1)]
+        likely = [(axis, s) for axis in axes for s in (1, -1)]
+        if last.kind == "jog" and last.axis in axes:
+            sign = 1 if last.delta >= 0 else -1
+            likely.remove((last.axis, sign))
+            likely.remove((last.axis, -sign))
+            likely[:0] = [(last.axis, sign), (last.axis, -sign)]
         for axis, s in likely:
-            if not self._motions.empty() or self.closing or gate.jog_session() is None:
+            if not self._motions.empty() or self.closing:
                 return
             try:
-                gate.prepare_session_jog(axis, self.jog_delta(axis, s), speed_pct=self.speed_pct)
+                if not gate.prepare_session_jog(axis, self.jog_delta(axis, s),
+                                                speed_pct=self.speed_pct):
+                    return   # the arm is not resting where a plan can start
             except Exception:  # noqa: BLE001 - the key plans the step itself then
                 return
+
+    def _ask_plan_ahead(self) -> None:
+        """On the UI thread (from refresh_view): when the arm rests ready and what the
+        next jog key would plan has changed (pose, frame, step, speed), have the motion
+        thread plan it ahead."""
+        state = self.state
+        if state is None or self.busy is not None or state.queued or not self.ready():
+            self._ahead_for = None
+            return
+        key = (state.joints, self.joint_mode, self.step, self.speed_pct)
+        if key != self._ahead_for:
+            self._ahead_for = key
+            self._start_motion(MotionRequest(AHEAD))
 
     def _motion_worker(self, request: MotionRequest) -> None:
         """Runs in the motion thread; the result always comes back as MotionDone."""
