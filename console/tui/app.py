@@ -512,7 +512,8 @@ class BenchjogApp(App):
         next jog key would plan has changed (pose, frame, step, speed), have the motion
         thread plan it ahead."""
         state = self.state
-        if state is None or self.busy is not None or state.queued or not self.ready():
+        if (self.closing or state is None or self.busy is not None or state.queued
+                or not self.ready()):
             self._ahead_for = None
             return
         key = (state.joints, self.joint_mode, self.step, self.speed_pct)
