@@ -183,6 +183,36 @@ async def test_the_first_jog_key_is_planned_before_it_and_still_asks(planar, mon
         assert moves(gate) == [] and app.session_view() is None
 
 
+async def test_nothing_is_planned_ahead_under_the_teach_screen(planar, monkeypatch, tmp_path):
+    """The teach screen runs motions of its own: no planning ahead competes with them
+    while it is up; back on the jog screen, the steps are planned from the new pose."""
+    from benchjog.drivers.interlock import Confirmer
+
+    class Yes(Confirmer):
+        def confirm(self, proposal) -> bool:
+            return True
+
+    arm, gate = planar
+    calls, _ = count_planning(gate, monkeypatch)
+    app = make_app(arm, gate, points_path=tmp_path / "points.toml",
+                   program_path=tmp_path / "program.toml")
+    async with app.run_test(size=SIZE) as pilot:
+        await ready(pilot, app)
+        assert await until(pilot, lambda: calls[0] >= 4)
+        await pilot.press("t")
+        assert await until(pilot, lambda: type(app.screen).__name__ == "TeachScreen")
+        before = calls[0]
+        elbow = gate.state().joints[1]
+        assert gate.execute(gate.propose_joints((math.radians(10.0), elbow)), Yes()).completed
+        assert await until(pilot, lambda: app.state.joints[0] == pytest.approx(
+            math.radians(10.0), abs=1e-3) and app.state.queued == 0)
+        await pilot.pause(4 * 0.15)   # several polls of the new pose
+        assert calls[0] == before
+        await pilot.press("escape")
+        assert await until(pilot, lambda: app.screen is app.jog_screen)
+        assert await until(pilot, lambda: calls[0] >= before + 4)
+
+
 async def test_the_next_step_is_planned_before_its_key(planar, monkeypatch):
     """While the arm rests in a session, the motion thread plans the steps the next key
     may ask for; the key then plans nothing, and its step goes where a step planned at

@@ -508,12 +508,15 @@ class BenchjogApp(App):
                 return
 
     def _ask_plan_ahead(self) -> None:
-        """On the UI thread (from refresh_view): when the arm rests ready and what the
-        next jog key would plan has changed (pose, frame, step, speed), have the motion
-        thread plan it ahead."""
+        """On the UI thread (from refresh_view): when the jog screen is up, the arm rests
+        ready and what the next jog key would plan has changed (pose, frame, step,
+        speed), have the motion thread plan it ahead. Never under another screen: the
+        teach and commissioning screens run motions of their own, which planning here
+        would only slow."""
         state = self.state
         if (self.closing or state is None or self.busy is not None or state.queued
-                or not self.ready()):
+                or not self.ready() or not self.screen_stack
+                or self.screen_stack[-1] is not self.jog_screen):
             self._ahead_for = None
             return
         key = (state.joints, self.joint_mode, self.step, self.speed_pct)
