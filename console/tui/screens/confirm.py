@@ -34,6 +34,10 @@ class ConfirmMoveScreen(ModalScreen[bool]):
         Binding("f1", "app.help", "help", tooltip="List these keys", id="confirm.help"),
     ]
     HELP_NAME = "confirmation"
+    # The screen itself draws nothing but its background (the box is its children):
+    # Textual then paints it as one blank strip a line instead of laying out each line
+    # when the box is shown (Textual 8; older versions ignore this).
+    BLANK = True
 
     def __init__(self, lines: Sequence[str], *, title: str = "confirm motion"):
         super().__init__()
