@@ -91,9 +91,26 @@ async def test_confirmation_keys_stay_in_view_at_80x24(rig):
         await pilot.pause(0.2)
         assert fully_visible(app.screen.query_one("#confirm-keys"), (80, 24))
         assert fully_visible(app.screen.query_one("#confirm-title"), (80, 24))
+        caution_inside_the_box(app.screen)
+        await pilot.press("n")
+        assert await until(pilot, lambda: app.busy is None)
+        await pilot.press("right")   # a jog session's question: its bounds make it longer
+        assert await until(pilot, lambda: isinstance(app.screen, ConfirmMoveScreen))
+        await pilot.pause(0.2)
+        caution_inside_the_box(app.screen)
         await pilot.press("n")
         assert await until(pilot, lambda: app.busy is None)
         assert not moves(gate)
+
+
+def caution_inside_the_box(screen) -> None:
+    """The safety caution is on screen inside the box, under the plan (which scrolls),
+    however long the plan is."""
+    box = screen.query_one("#confirm-box").region
+    caution = screen.query_one("#confirm-caution").region
+    plan = screen.query_one("#confirm-scroll").region
+    assert caution.height >= 1 and box.contains_region(caution), (box, caution)
+    assert plan.bottom <= caution.y
 
 
 async def test_help_lists_every_key_with_its_tooltip():
