@@ -16,6 +16,7 @@ import importlib
 import importlib.util
 import math
 import queue
+import sys
 import threading
 import time
 from dataclasses import dataclass, replace
@@ -40,6 +41,7 @@ POLL_S = 0.15               # the heartbeat / state refresh period
 STEPS = (0.1, 1.0, 10.0)    # jog steps: mm (Cartesian), deg (roll and revolute joints), mm (quill)
 TEACH_MODULE = "benchjog.console.tui.screens.teach"
 AHEAD = "ahead"             # a request to the motion thread: plan the likely jog steps now
+SWITCH_INTERVAL_S = 0.001   # how often Python hands the interpreter between threads (5 ms default)
 BLOCKING_MODES = ("ESTOP", "FAULT")
 
 
@@ -185,6 +187,7 @@ class BenchjogApp(App):
         self._show_at_first_setpoint = False   # a session step: redraw once it is sent
         self._ahead_for: tuple | None = None    # what the jog steps were planned ahead for
         self._unwatch = None
+        self._switch_interval: float | None = None
         self.jog_screen = JogScreen(arm)
 
     # Textual asks for the current theme on every line it renders, and its answer copies
@@ -207,6 +210,11 @@ class BenchjogApp(App):
 
     # -- life cycle --------------------------------------------------------------------
     def on_mount(self) -> None:
+        # The motion thread plans in Python while the UI thread draws: hand the
+        # interpreter over every millisecond rather than every 5 (Python's default), so
+        # that a key is never kept waiting a frame behind planning done ahead of it.
+        self._switch_interval = sys.getswitchinterval()
+        sys.setswitchinterval(min(self._switch_interval, SWITCH_INTERVAL_S))
         self._unwatch = self.interlock.watch(self._gate_record)
         self.push_screen(self.jog_screen)
         self.set_interval(POLL_S, self._poll_tick)
@@ -214,6 +222,8 @@ class BenchjogApp(App):
 
     def on_unmount(self) -> None:
         self.closing = True
+        if self._switch_interval is not None:
+            sys.setswitchinterval(self._switch_interval)
         if self._unwatch is not None:
             self._unwatch()
         self._motions.put(None)   # the motion thread ends after the motion it runs, if any
