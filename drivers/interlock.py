@@ -46,7 +46,7 @@ import numpy as np
 
 from benchjog.drivers.base import Driver, DriverEvent, DriverState, LinkError, Mode
 from benchjog.drivers.jog_session import (DEADMAN_S, TEACH_SPEED_MAX_MM_S, ActiveSession,
-                                          SessionBounds, SessionSlot, SessionStep,
+                                          SessionBounds, SessionError, SessionSlot, SessionStep,
                                           SessionView, frame_of, make_bounds, state_key,
                                           step_problems)
 from benchjog.drivers.journal import Journal, NullJournal
@@ -354,6 +354,9 @@ class Interlock:
         # Jog plans made ahead of their key (prepare_session_jog), by exactly what
         # plan_jog was given; each is taken at most once, by propose_jog.
         self._ahead: dict[tuple, Plan] = {}
+        # ... and, for a first step, the session it would offer: that key and the
+        # session's step -> (bounds, why the step cannot open it, the plan checked)
+        self._ahead_offers: dict[tuple, tuple[SessionBounds, tuple[str, ...], Plan]] = {}
         self._ahead_lock = threading.Lock()
         # The command line: the drives stay off until the person says yes (then the gate
         # switches them on); the console leaves them to the person's drives key.
@@ -870,7 +873,8 @@ class Interlock:
         key = (start, base, axis, float(delta), float(pct)) if arm is self._arm else None
         return arm, (start, axis, delta), {"speed_pct": pct, "base": base}, key
 
-    def prepare_session_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0) -> bool:
+    def prepare_session_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0,
+                            step: float | None = None) -> bool:
         """Plan, while nothing waits for it, the jog step a key may soon ask for, from
         where the arm rests now: a step of the active jog session, or with none the
         first step a jog key offers as a new session (at the session's default speed
@@ -878,9 +882,12 @@ class Interlock:
         pose and the same last end) takes this plan instead of planning again, so its
         first setpoint (or its question) comes sooner; it is checked, journaled,
         confirmed and bounded exactly as one planned then (the plan is the same:
-        plan_jog is a function of what it is given). Planning only: nothing is
-        issued, journaled or moved. Returns whether a plan is kept (not from a stale
-        or moving pose, nor inside a keep-out zone)."""
+        plan_jog is a function of what it is given). With no session, ``step`` (the
+        session's largest step) also has the session it would offer worked out (its
+        bounds and whether the step fits them, as :meth:`propose_jog_session` with no
+        bounds options would). Planning only: nothing is issued, journaled or moved.
+        Returns whether a plan is kept (not from a stale or moving pose, nor inside a
+        keep-out zone)."""
         slot = self._jog_slot()
         with slot.lock:
             session = slot.active
@@ -893,16 +900,31 @@ class Interlock:
                                                    self._capped_pct(cap, speed_pct))
         if key is None:
             return False
+        okey = key + (float(step),) if session is None and step is not None else None
         with self._ahead_lock:
-            if key in self._ahead:
+            plan = self._ahead.get(key)
+            if plan is not None and (okey is None or okey in self._ahead_offers):
                 return True   # planned already
-        plan = plan_jog(arm, *args, **options)
+        if plan is None:
+            plan = plan_jog(arm, *args, **options)
+        offer = None
+        if okey is not None and not plan.problems:
+            try:
+                bounds = make_bounds(self._arm, start, frame_of(axis), float(step))
+            except SessionError:
+                bounds = None
+            if bounds is not None:
+                offer = (bounds, tuple(step_problems(self._arm, bounds, axis, delta, plan, start,
+                                                     self._tool_speed, wire_duration_s)), plan)
         with self._ahead_lock:
-            for old in [k for k in self._ahead if k[:2] != key[:2]]:
-                del self._ahead[old]   # from a pose the arm has left: it would never match
-            if len(self._ahead) >= AHEAD_MAX:
-                self._ahead.clear()
+            for table in (self._ahead, self._ahead_offers):
+                for old in [k for k in table if k[:2] != key[:2]]:
+                    del table[old]   # from a pose the arm has left: it would never match
+                if len(table) >= AHEAD_MAX:
+                    table.clear()
             self._ahead[key] = plan
+            if offer is not None:
+                self._ahead_offers[okey] = offer
         return True
 
     def propose_jog(self, axis: str, delta: float, *, speed_pct: float = 100.0) -> Proposal:
@@ -1296,12 +1318,24 @@ class Interlock:
             SessionError: bounds that cannot make a session.
         """
         joints = self._settled_state().joints
-        bounds = make_bounds(self._arm, joints, frame_of(axis), step, **bounds_options)
+        offer = None
+        if not bounds_options:   # the session prepare_session_jog worked out, if it did
+            _, _, _, key = self._jog_inputs(tuple(joints), axis, delta,
+                                            self._capped_pct(TEACH_SPEED_MAX_MM_S, speed_pct))
+            if key is not None:
+                with self._ahead_lock:
+                    offer = self._ahead_offers.pop(key + (float(step),), None)
+        bounds = offer[0] if offer is not None else make_bounds(
+            self._arm, joints, frame_of(axis), step, **bounds_options)
         proposal = self.propose_jog(axis, delta, speed_pct=self._session_pct(bounds, speed_pct))
         problems: list[str] = []
         if proposal.ok:
-            problems = step_problems(self._arm, bounds, axis, delta, proposal.plans[0],
-                                     proposal.start_joints, self._tool_speed, wire_duration_s)
+            if offer is not None and proposal.plans[0] is offer[2]:
+                problems = list(offer[1])   # worked out for this very plan and these bounds
+            else:
+                problems = step_problems(self._arm, bounds, axis, delta, proposal.plans[0],
+                                         proposal.start_joints, self._tool_speed,
+                                         wire_duration_s)
         slot = self._jog_slot()
         with slot.lock:
             for token in [t for t in slot.offers if t not in self._issued]:

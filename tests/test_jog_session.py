@@ -304,6 +304,40 @@ def test_a_step_planned_ahead_moves_exactly_as_one_planned_at_its_key(tmp_path, 
     assert x - x0 == pytest.approx(2.0, abs=0.2) and y - y0 == pytest.approx(0.0, abs=0.2)
 
 
+def test_a_session_offered_ahead_reads_as_one_worked_out_at_its_key(clock, monkeypatch):
+    """The first step planned ahead also has its session worked out (bounds, and why a
+    step cannot open one); the question then reads exactly as on a gate that worked it
+    all out at the key, and the key computes no bounds."""
+    import benchjog.drivers.interlock as gate_module
+
+    twin = Interlock.open(ARM, "sim", journal=False, time_scale=50.0, clock=clock)
+    ahead = Interlock.open(ARM, "sim", journal=False, time_scale=50.0, clock=clock)
+    made = [0]
+    real = gate_module.make_bounds
+
+    def counted(*args, **kwargs):
+        made[0] += 1
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(gate_module, "make_bounds", counted)
+    try:
+        for g in (twin, ahead):
+            g.enable()
+        # a step that fits, a larger one, and one too long for a session (single step)
+        for axis, delta, step in (("x", 1.0, 1.0), ("y", -10.0, 10.0), ("x", 40.0, 40.0)):
+            assert ahead.prepare_session_jog(axis, delta, step=step)
+            before = made[0]
+            offered = ahead.propose_jog_session(axis, delta, step=step)
+            assert made[0] == before
+            reference = twin.propose_jog_session(axis, delta, step=step)
+            assert ahead.jog_session_lines(offered) == twin.jog_session_lines(reference)
+            assert offered.lines(ARM) == reference.lines(ARM)
+        assert "single step" in ahead.jog_session_lines(offered)[0]
+    finally:
+        twin.close()
+        ahead.close()
+
+
 def test_a_step_planned_from_a_pose_the_arm_has_left_is_planned_again(gate, monkeypatch):
     start(gate)
     x0, y0 = tool_xy(gate)

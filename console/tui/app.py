@@ -512,7 +512,7 @@ class BenchjogApp(App):
                 return
             try:
                 if not gate.prepare_session_jog(axis, self.jog_delta(axis, s),
-                                                speed_pct=self.speed_pct):
+                                                speed_pct=self.speed_pct, step=self.step):
                     return   # the arm is not resting where a plan can start
             except Exception:  # noqa: BLE001 - the key plans the step itself then
                 return
