@@ -4,11 +4,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from rich.table import Table
 from rich.text import Text
 from textual.message import Message
 from textual.widgets import Static
 
+from benchjog.console.tui.widgets.columns import Column, table_content
 from benchjog.console.tui.widgets.status import update_in_place
 from benchjog.kinematics.accuracy import accuracy_at
 from benchjog.kinematics.model import Arm, Branch
@@ -95,25 +95,26 @@ class BranchTable(Static):
         same = len(rows) == len(self.rows)   # one line a row (no_wrap): the same height
         self.ik, self.active, self.title, self.rows = ik, active, title, rows
         self.border_title = title
-        table = Table(box=None, expand=True, show_edge=False, pad_edge=False,
-                      collapse_padding=True)
-        for i, head in enumerate(rows[0]):
-            style = "bold reverse" if head.startswith(ACTIVE_MARK) else "bold"
-            if i == 0:
-                table.add_column(Text(head, style=style), no_wrap=True,
-                                 min_width=max(len(r[0]) for r in rows))
-            else:   # "> elbow-down" on one line even at 80 columns
-                table.add_column(Text(head, style=style), ratio=1, no_wrap=True,
-                                 min_width=len(head))
+        self._draw(same_size=same)
+
+    def _draw(self, *, same_size: bool) -> None:
+        rows = self.rows
+        header = [Text(head, style="bold reverse" if head.startswith(ACTIVE_MARK) else "bold")
+                  for head in rows[0]]
+        # "> elbow-down" on one line even at 80 columns
+        columns = [Column(min_width=max(len(r[0]) for r in rows))] + [
+            Column(min_width=len(head), ratio=1) for head in rows[0][1:]]
+        cells = []
         for row in rows[1:]:
-            cells = []
-            for i, cell in enumerate(row):
-                style = ""
-                if row[0] == "status" and i > 0:
-                    style = "green" if cell == "usable" else "yellow"
-                cells.append(Text(cell, style=style))
-            table.add_row(*cells)
-        update_in_place(self, table, same_size=same)
+            cells.append([Text(cell, style=("green" if cell == "usable" else "yellow")
+                               if row[0] == "status" and i > 0 else "")
+                          for i, cell in enumerate(row)])
+        update_in_place(self, table_content(columns, header, cells, self.content_size.width),
+                        same_size=same_size)
+
+    def on_resize(self, event) -> None:
+        if self.rows:
+            self._draw(same_size=False)   # the columns spread over the new width
 
     def other_branch(self) -> Branch | None:
         """The branch one would switch to, when the target has two solutions."""

@@ -5,10 +5,10 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 
-from rich.table import Table
 from rich.text import Text
 from textual.widgets import Static
 
+from benchjog.console.tui.widgets.columns import Column, table_content
 from benchjog.console.tui.widgets.status import update_in_place
 from benchjog.kinematics.model import Arm
 from benchjog.kinematics.solve import tool_from_joints
@@ -81,16 +81,23 @@ class JointReadout(Static):
             return
         same = len(rows) == len(self.rows)   # one line a row, none wrapped: the same height
         self.rows = rows
-        table = Table(box=None, expand=True, show_edge=False, pad_edge=False,
-                      collapse_padding=True)
-        table.add_column("", no_wrap=True, min_width=max(len(r[0]) for r in rows))
-        for head in ("target", "actual", "error"):
-            table.add_column(head, justify="right", no_wrap=True)
+        self._draw(same_size=same)
+
+    def _draw(self, *, same_size: bool) -> None:
+        rows = self.rows
+        columns = [Column(min_width=max(len(r[0]) for r in rows))] + [Column("right")] * 3
+        header = [Text("")] + [Text(head) for head in ("target", "actual", "error")]
         n_tool = len(tool_fields(self.arm))
+        cells = []
         for i, row in enumerate(rows):
             err_style = ""
             if row[3] != "-" and abs(float(row[3])) > ERROR_WARN_DEG:
                 err_style = "yellow"
-            table.add_row(Text(row[0], style="bold" if i < n_tool else ""), row[1], row[2],
-                          Text(row[3], style=err_style), end_section=(i == n_tool - 1))
-        update_in_place(self, table, same_size=same)
+            cells.append([Text(row[0], style="bold" if i < n_tool else ""), Text(row[1]),
+                          Text(row[2]), Text(row[3], style=err_style)])
+        update_in_place(self, table_content(columns, header, cells, self.content_size.width),
+                        same_size=same_size)
+
+    def on_resize(self, event) -> None:
+        if self.rows:
+            self._draw(same_size=False)   # the columns spread over the new width
