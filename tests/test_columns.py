@@ -5,14 +5,32 @@ path must give way, and the panel falls back to rich's Table itself)."""
 
 from __future__ import annotations
 
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from rich.console import Console
+from rich.table import Table
 from rich.text import Text
 
 from benchjog.console.tui.widgets.columns import Column, columns_text, rich_table, table_content
 
 CONSOLE = Console(width=300, color_system="truecolor")
+
+
+def _rich_lays_out_the_older_way() -> bool:
+    """Older rich (13.3.3, this project's dependency floor, among them) widens a column
+    with a ``min_width`` by padding that such a table does not draw (``pad_edge=False``,
+    collapsed padding); the quick layout follows the rich of today, so under an older
+    one there is nothing to compare it with."""
+    table = Table(box=None, show_edge=False, pad_edge=False, collapse_padding=True)
+    table.add_column("a", min_width=3)
+    table.add_column("b")
+    table.add_row("a", "b")
+    return CONSOLE.measure(table).maximum > len("a   b")
+
+
+pytestmark = pytest.mark.skipif(_rich_lays_out_the_older_way(),
+                                reason="this rich lays the table out the older way")
 STYLES = ["", "bold", "yellow", "green", "bold reverse"]
 WORDS = st.text(alphabet="abcdefgh -.0123456789>", min_size=0, max_size=14)
 
