@@ -141,16 +141,7 @@ async def test_a_held_key_jogs_on_and_stops_after_the_repeats_end(planar):
 def count_planning(gate, monkeypatch) -> tuple[list[int], list[int]]:
     """(all calls of the gate's jog planner so far, the planner calls made inside each
     propose_jog: the planning a key's step waited for)."""
-    import benchjog.drivers.interlock as gate_module
-
-    calls = [0]
-    real_plan = gate_module.plan_jog
-
-    def counted(*args, **kwargs):
-        calls[0] += 1
-        return real_plan(*args, **kwargs)
-
-    monkeypatch.setattr(gate_module, "plan_jog", counted)
+    calls = console_helpers.count_calls(monkeypatch, "benchjog.drivers.interlock.plan_jog")
     planned_at_key: list[int] = []
     real_propose = gate.propose_jog
 
@@ -165,13 +156,19 @@ def count_planning(gate, monkeypatch) -> tuple[list[int], list[int]]:
     return calls, planned_at_key
 
 
+async def ready_and_planned(pilot, app, calls: list[int]) -> None:
+    """Drives on, and the four jog steps of the frame (x+, x-, y+, y-) planned while the
+    arm rests."""
+    await ready(pilot, app)
+    assert await until(pilot, lambda: calls[0] >= 4)
+
+
 async def test_the_first_jog_key_is_planned_before_it_and_still_asks(planar, monkeypatch):
     arm, gate = planar
     calls, planned_at_key = count_planning(gate, monkeypatch)
     app = make_app(arm, gate)
     async with app.run_test(size=SIZE) as pilot:
-        await ready(pilot, app)
-        assert await until(pilot, lambda: calls[0] >= 4)   # x+, x-, y+, y- while it rests
+        await ready_and_planned(pilot, app, calls)
         asked = count_questions(app)
         await pilot.press("right")
         assert await until(pilot, lambda: isinstance(app.screen, ConfirmMoveScreen))
@@ -197,8 +194,7 @@ async def test_nothing_is_planned_ahead_under_the_teach_screen(planar, monkeypat
     app = make_app(arm, gate, points_path=tmp_path / "points.toml",
                    program_path=tmp_path / "program.toml")
     async with app.run_test(size=SIZE) as pilot:
-        await ready(pilot, app)
-        assert await until(pilot, lambda: calls[0] >= 4)
+        await ready_and_planned(pilot, app, calls)
         await pilot.press("t")
         assert await until(pilot, lambda: type(app.screen).__name__ == "TeachScreen")
         before = calls[0]
@@ -222,8 +218,7 @@ async def test_the_next_step_is_planned_before_its_key(planar, monkeypatch):
     calls, planned_at_key = count_planning(gate, monkeypatch)
     app = make_app(arm, gate)
     async with app.run_test(size=SIZE) as pilot:
-        await ready(pilot, app)
-        assert await until(pilot, lambda: calls[0] >= 4)   # x+, x-, y+, y- while it rests
+        await ready_and_planned(pilot, app, calls)
         for key in ("right", "left", "up"):   # the first one opens the session
             before = calls[0]
             if key == "right":

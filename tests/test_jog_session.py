@@ -25,6 +25,8 @@ from benchjog.drivers.jog_session import (DEADMAN_S, SessionError, SessionView,
                                           TEACH_SPEED_MAX_MM_S)
 from benchjog.drivers.journal import Journal, read_journal
 
+from console_helpers import count_calls
+
 ROOT = Path(__file__).resolve().parents[1]
 ARM = builtin_arm("planar-bench")
 TABLE = tomllib.loads((ROOT / "console/cell/arms/planar-bench.toml").read_text())
@@ -260,19 +262,7 @@ def test_a_refused_step_moves_nothing_and_keeps_the_limits(gate):
 
 
 # -- steps planned ahead of their key (prepare_session_jog) ---------------------------------
-class PlanCount:
-    """Counts the gate's calls of the planner's jog front door (it still plans)."""
-
-    def __init__(self, monkeypatch):
-        import benchjog.drivers.interlock as gate_module
-        self.calls = 0
-        real = gate_module.plan_jog
-
-        def counted(*args, **kwargs):
-            self.calls += 1
-            return real(*args, **kwargs)
-
-        monkeypatch.setattr(gate_module, "plan_jog", counted)
+PLAN_JOG = "benchjog.drivers.interlock.plan_jog"   # the gate's jog planner (it still plans)
 
 
 def test_a_step_planned_ahead_moves_exactly_as_one_planned_at_its_key(tmp_path, clock,
@@ -281,7 +271,7 @@ def test_a_step_planned_ahead_moves_exactly_as_one_planned_at_its_key(tmp_path, 
     takes the very same setpoints from both, and the ahead one plans nothing at the key."""
     twin = Interlock.open(ARM, "sim", journal=False, time_scale=50.0, clock=clock)
     ahead = Interlock.open(ARM, "sim", journal=False, time_scale=50.0, clock=clock)
-    count = PlanCount(monkeypatch)
+    planned = count_calls(monkeypatch, PLAN_JOG)
     try:
         for g in (twin, ahead):
             g.enable()
@@ -292,9 +282,9 @@ def test_a_step_planned_ahead_moves_exactly_as_one_planned_at_its_key(tmp_path, 
             assert twin.session_jog(axis, delta).result.completed
             assert ahead.prepare_session_jog(axis, -delta)     # a guess that is not taken
             assert ahead.prepare_session_jog(axis, delta)
-            before = count.calls
+            before = planned[0]
             assert ahead.session_jog(axis, delta).result.completed
-            assert count.calls == before                      # the key planned nothing
+            assert planned[0] == before                      # the key planned nothing
         assert moves(ahead) == moves(twin)
     finally:
         twin.close()
@@ -308,18 +298,9 @@ def test_a_session_offered_ahead_reads_as_one_worked_out_at_its_key(clock, monke
     """The first step planned ahead also has its session worked out (bounds, and why a
     step cannot open one); the question then reads exactly as on a gate that worked it
     all out at the key, and the key computes no bounds."""
-    import benchjog.drivers.interlock as gate_module
-
     twin = Interlock.open(ARM, "sim", journal=False, time_scale=50.0, clock=clock)
     ahead = Interlock.open(ARM, "sim", journal=False, time_scale=50.0, clock=clock)
-    made = [0]
-    real = gate_module.make_bounds
-
-    def counted(*args, **kwargs):
-        made[0] += 1
-        return real(*args, **kwargs)
-
-    monkeypatch.setattr(gate_module, "make_bounds", counted)
+    made = count_calls(monkeypatch, "benchjog.drivers.interlock.make_bounds")
     try:
         for g in (twin, ahead):
             g.enable()
@@ -342,10 +323,10 @@ def test_a_step_planned_from_a_pose_the_arm_has_left_is_planned_again(gate, monk
     start(gate)
     x0, y0 = tool_xy(gate)
     assert gate.prepare_session_jog("x", 1.0)
-    count = PlanCount(monkeypatch)
+    planned = count_calls(monkeypatch, PLAN_JOG)
     assert gate.session_jog("y", 1.0).result.completed          # the arm moves elsewhere
     assert gate.session_jog("x", 1.0).result.completed
-    assert count.calls == 2                                      # both planned at their key
+    assert planned[0] == 2                                      # both planned at their key
     x, y = tool_xy(gate)
     assert x - x0 == pytest.approx(1.0, abs=0.2) and y - y0 == pytest.approx(1.0, abs=0.2)
 
@@ -364,9 +345,9 @@ def test_a_first_step_planned_ahead_still_asks_and_a_no_moves_nothing(gate, monk
     """With no session, the step planned ahead is the first step a jog key offers: the
     key plans nothing, the question is asked all the same, and a no moves nothing."""
     assert gate.prepare_session_jog("x", 1.0)
-    count = PlanCount(monkeypatch)
+    planned = count_calls(monkeypatch, PLAN_JOG)
     proposal = gate.propose_jog_session("x", 1.0, step=1.0)
-    assert count.calls == 0 and proposal.ok
+    assert planned[0] == 0 and proposal.ok
     answer = Answer(False)
     assert gate.execute_jog_session(proposal, answer).outcome == "cancelled"
     assert answer.asked == 1 and moves(gate) == [] and gate.jog_session() is None
