@@ -236,7 +236,9 @@ async def test_the_next_step_is_planned_before_its_key(planar, monkeypatch):
 
 async def test_a_session_step_is_shown_once_its_first_setpoint_is_sent(tmp_path):
     arm = builtin_arm("planar-bench")
-    gate = Interlock.open(arm, "sim", journal=False, time_scale=0.2)   # a step lasts ~0.4 s
+    # a 1 mm step lasts ~4 s here: the pilot's press waits up to 2 s for an idle process
+    # while the arm moves, and the step must still be running when it returns
+    gate = Interlock.open(arm, "sim", journal=False, time_scale=0.02)
     try:
         app = make_app(arm, gate)
         async with app.run_test(size=SIZE) as pilot:
